@@ -1,0 +1,8 @@
+"""Regressors that return a mean and a standard deviation for every cell."""
+
+from dopantgap.learners.boosted import BoostLearner
+from dopantgap.learners.column_mean import ColumnMeanLearner
+from dopantgap.learners.gaussian_process import GPLearner
+from dopantgap.learners.kernels import OnColumns, SameLabel
+
+__all__ = ["BoostLearner", "ColumnMeanLearner", "GPLearner", "OnColumns", "SameLabel"]

@@ -1,0 +1,102 @@
+"""Which site does an impurity prefer? Probabilities from joint samples.
+
+For one element, host, method and quantity, the energies of its sites are drawn
+together from the surrogate's calibrated joint distribution (so the correlation
+between an element's sites, through its shared element offset, is kept) and the
+share of draws in which each site is lowest is that site's probability. Computed
+sites enter with their own value and no spread.
+
+Energies are compared as the table gives them: the user's quantity must be one in
+which sites are comparable (for example a solution energy with a common reference).
+"""
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["site_quantities", "site_preference"]
+
+
+def site_quantities(table):
+    """Quantities that have at least two sites in some host (where a choice exists)."""
+    counts = table.groupby(["quantity", "host"])["site"].nunique()
+    return sorted({quantity for (quantity, _host), n in counts.items() if n >= 2})
+
+
+def _draw(mean, cov, n_samples, rng):
+    """Samples of N(mean, cov) for a positive semi-definite cov (zero rows allowed)."""
+    eigenvalues, eigenvectors = np.linalg.eigh((cov + cov.T) / 2.0)
+    root = eigenvectors * np.sqrt(np.clip(eigenvalues, 0.0, None))
+    return mean + rng.standard_normal((n_samples, len(mean))) @ root.T
+
+
+def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=4000, random_state=0):
+    """Probability that each site is the lowest in energy.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        A fitted surrogate.
+    element_symbols : sequence of str or None, default=None
+        Elements to cover; None: the elements of the surrogate's table.
+    quantities : sequence of str or None, default=None
+        Site-energy quantities; None: every quantity with two or more sites in a host.
+    n_samples : int, default=4000
+        Joint draws per element, host and method (the probabilities' sampling error
+        is at most 0.5 / sqrt(n_samples), 0.008 for 4000).
+    random_state : int, default=0
+
+    Returns
+    -------
+    DataFrame
+        One row per element, host, method, quantity and site: ``p_lowest``,
+        ``value`` (mean), ``std`` and ``status`` of the site's cell, and ``rank``
+        (1 = most probable lowest site).
+    """
+    table = surrogate.table_
+    rng = np.random.default_rng(random_state)
+    symbols = list(dict.fromkeys(table["element"])) if element_symbols is None else list(element_symbols)
+    quantities = site_quantities(table) if quantities is None else list(quantities)
+    records = []
+    for quantity in quantities:
+        rows = table[table["quantity"] == quantity]
+        for host, host_rows in rows.groupby("host", sort=False):
+            sites = list(dict.fromkeys(host_rows["site"]))
+            if len(sites) < 2:
+                continue
+            for method in dict.fromkeys(host_rows["method"]):
+                cells = pd.DataFrame(
+                    [
+                        {"element": e, "host": host, "site": s, "method": method, "quantity": quantity}
+                        for e in symbols
+                        for s in sites
+                    ]
+                )
+                summary = surrogate.predict(cells)
+                mean, cov = surrogate.predict_joint(cells)
+                for position, element in enumerate(symbols):
+                    block = slice(position * len(sites), (position + 1) * len(sites))
+                    draws = _draw(mean[block], cov[block, block], n_samples, rng)
+                    lowest = np.bincount(np.argmin(draws, axis=1), minlength=len(sites)) / n_samples
+                    order = np.argsort(-lowest, kind="stable")
+                    ranks = np.empty(len(sites), dtype=int)
+                    ranks[order] = np.arange(1, len(sites) + 1)
+                    part = summary.iloc[block]
+                    for index, site in enumerate(sites):
+                        records.append(
+                            {
+                                "element": element,
+                                "host": host,
+                                "method": method,
+                                "quantity": quantity,
+                                "site": site,
+                                "p_lowest": float(lowest[index]),
+                                "rank": int(ranks[index]),
+                                "value": float(part["value"].iat[index]),
+                                "std": float(part["std"].iat[index]),
+                                "status": part["status"].iat[index],
+                            }
+                        )
+    return pd.DataFrame(
+        records,
+        columns=["element", "host", "method", "quantity", "site", "p_lowest", "rank", "value", "std", "status"],
+    )

@@ -1,0 +1,531 @@
+"""One object that learns a whole table and predicts any cell with an honest spread.
+
+The table is split into *stages*: one per quantity and level of theory. The cheapest
+level of a quantity is learned directly; each more expensive level is learned as a
+correction to the level below it, where both were computed, so that
+
+    value(level k) = value(level k-1) + correction(k),
+
+with value(level k-1) the user's number where computed and the model's prediction
+(its spread carried through) where not. Every stage sees the element's descriptors,
+host-relative terms and the host/site column (``features.CellEncoder``).
+
+Uncertainty is calibrated per scenario (``calibration.SCENARIOS``) on grouped
+cross-validation: in each fold a group of elements is hidden entirely (new-element),
+the expensive cells of another group are hidden while their cheap cells stay
+(upgrade), and single cells of the remaining elements are hidden (new-cell).
+"""
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator
+from sklearn.utils.validation import check_is_fitted
+
+from dopantgap import elements
+from dopantgap.calibration import SCENARIOS, ScenarioCalibration
+from dopantgap.errors import DopantgapError
+from dopantgap.features import DEFAULT_DESCRIPTORS, CellEncoder
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+
+__all__ = ["LEARNERS", "Surrogate", "order_levels"]
+
+#: Learner names accepted by ``Surrogate(learner=...)`` besides ``"auto"``.
+LEARNERS = ("gp", "boost")
+
+# Below this many training rows a stage falls back on column means (common practice,
+# no source: a Gaussian process with ~15 length scales needs several rows per scale).
+_MIN_ROWS_FOR_LEARNER = 8
+# Below this many cells computed at both levels a level is learned directly
+# instead of as a correction.
+_MIN_ROWS_FOR_CORRECTION = 3
+# Cells predicted together (their joint covariance is formed in memory).
+_CHUNK_CELLS = 1500
+
+_CELL = ["element", "host", "site"]
+
+
+def order_levels(table, levels=None):
+    """The table's methods ordered from cheapest to most expensive.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Long table with a ``method`` column.
+    levels : sequence of str or None, default=None
+        Methods from cheapest to most expensive. None: by number of computed cells,
+        most first (the cheap level is the one computed most often); ties by name.
+
+    Returns
+    -------
+    list of str
+    """
+    counts = table["method"].value_counts()
+    present = sorted(counts.index, key=lambda method: (-counts[method], method))
+    if levels is None:
+        return present
+    levels = [str(level).strip() for level in levels if str(level).strip()]
+    unknown = [level for level in levels if level not in counts.index]
+    if unknown:
+        raise DopantgapError(
+            f"--levels names {', '.join(unknown)}, but the table's methods are "
+            f"{', '.join(present)}; spell them as in the table's 'method' column."
+        )
+    missing = [method for method in present if method not in levels]
+    if missing:
+        raise DopantgapError(
+            f"--levels leaves out {', '.join(missing)}; list every method of the table from "
+            f"cheapest to most expensive, e.g. --levels {','.join(present)}."
+        )
+    if len(set(levels)) != len(levels):
+        raise DopantgapError(f"--levels lists a method twice: {','.join(levels)}.")
+    return levels
+
+
+class _Stage:
+    """A fitted model of one quantity at one level: its encoder, learner and kind."""
+
+    def __init__(self, quantity, method, kind, encoder, learner):
+        self.quantity = quantity
+        self.method = method
+        self.kind = kind  # "direct" or "correction"
+        self.encoder = encoder
+        self.learner = learner
+
+
+class Surrogate(BaseEstimator):
+    """Learn a table of impurity energies and predict any cell with calibrated spread.
+
+    Parameters
+    ----------
+    learner : {"auto", "gp", "boost"}, default="auto"
+        "auto" fits both and keeps the one with the lower cross-validated mean
+        absolute error (whole elements held out together, and the other scenarios).
+    levels : sequence of str or None, default=None
+        Methods from cheapest to most expensive (see ``order_levels``).
+    correction : bool, default=True
+        Learn each expensive level as a correction to the one below; False learns
+        every level on its own (kept for comparison).
+    descriptors : sequence of str or None, default=None
+        Elemental descriptors the models see; None: ``features.DEFAULT_DESCRIPTORS``.
+    host_compositions : dict or None, default=None
+        Host label -> formula composition, for labels that are not formulas.
+    n_folds : int, default=5
+        Cross-validation folds for calibration and the learner choice.
+    random_state : int, default=0
+        Seed for everything random; the same table and seed give the same model.
+
+    Attributes
+    ----------
+    table_ : DataFrame
+        The training table, as given.
+    levels_ : list of str
+    learner_ : str
+        The learner kept.
+    stages_ : dict
+        (quantity, method) -> fitted stage.
+    calibration_ : ScenarioCalibration
+    cv_residuals_ : DataFrame
+        Out-of-fold predictions of the kept learner: the cell, truth, mean, raw std,
+        standardised residual and scenario.
+    cv_metrics_ : DataFrame
+        Per learner, scenario and quantity: n, mae, rmse, the out-of-fold coverage of
+        the raw 90 % Gaussian interval, and of the calibrated one (in-sample, ~0.9 by
+        construction).
+
+    Examples
+    --------
+    >>> from dopantgap.demo import demo_table
+    >>> model = Surrogate(learner="gp").fit(demo_table())   # doctest: +SKIP
+    """
+
+    def __init__(
+        self,
+        learner="auto",
+        levels=None,
+        correction=True,
+        descriptors=None,
+        host_compositions=None,
+        n_folds=5,
+        random_state=0,
+    ):
+        self.learner = learner
+        self.levels = levels
+        self.correction = correction
+        self.descriptors = descriptors
+        self.host_compositions = host_compositions
+        self.n_folds = n_folds
+        self.random_state = random_state
+
+    # ------------------------------------------------------------------ fitting
+    def fit(self, table):
+        """Fit every stage, cross-validate, choose the learner and calibrate.
+
+        Parameters
+        ----------
+        table : DataFrame
+            Long table with columns element, host, site, method, quantity, value
+            (as returned by ``table.read_table``); other columns are kept, unused.
+
+        Returns
+        -------
+        self : Surrogate
+        """
+        missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]
+        if missing:
+            raise DopantgapError(
+                f"The table lacks the column(s) {', '.join(missing)}; "
+                f"read it with dopantgap.read_table or rename its columns."
+            )
+        if self.learner not in ("auto",) + LEARNERS:
+            raise DopantgapError(
+                f"Unknown learner {self.learner!r}; choose one of auto, {', '.join(LEARNERS)}."
+            )
+        if len(table) == 0:
+            raise DopantgapError("The table has no rows to learn from.")
+        self.table_ = table.copy()
+        self.levels_ = order_levels(table, self.levels)
+        self.descriptors_ = tuple(self.descriptors or DEFAULT_DESCRIPTORS)
+        unknown = [name for name in self.descriptors_ if name not in elements.DESCRIPTOR_NAMES]
+        if unknown:
+            raise DopantgapError(
+                f"Unknown descriptor(s) {', '.join(unknown)}; "
+                f"available: {', '.join(elements.DESCRIPTOR_NAMES)}."
+            )
+        self.compositions_ = elements.host_compositions(
+            sorted(table["host"].unique()), self.host_compositions
+        )
+        self.quantity_levels_ = {
+            quantity: [m for m in self.levels_ if m in set(rows["method"])]
+            for quantity, rows in table.groupby("quantity", sort=False)
+        }
+        core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+        candidates = LEARNERS if self.learner == "auto" else (self.learner,)
+        fitted, residuals = {}, {}
+        for name in candidates:
+            fitted[name] = self._fit_stages(core, name, template=None)
+            residuals[name] = self._cross_validate(core, name, fitted[name])
+        mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}
+        self.learner_ = min(candidates, key=lambda name: (mae[name], name))
+        self.stages_ = fitted[self.learner_]
+        self.cv_residuals_ = residuals[self.learner_]
+        self.calibration_ = ScenarioCalibration(
+            {
+                scenario: rows["z"].to_numpy()
+                for scenario, rows in self.cv_residuals_.groupby("scenario")
+            }
+        )
+        self.cv_metrics_ = pd.concat(
+            [self._metrics(name, residuals[name]) for name in candidates], ignore_index=True
+        )
+        self.cv_metrics_["chosen"] = self.cv_metrics_["learner"] == self.learner_
+        return self
+
+    def _stage_rows(self, core, quantity, position):
+        """Training cells and target of a stage, and whether it is a correction."""
+        methods = self.quantity_levels_[quantity]
+        rows = core[(core["quantity"] == quantity) & (core["method"] == methods[position])]
+        if position == 0 or not self.correction:
+            return rows[_CELL].reset_index(drop=True), rows["value"].to_numpy(), "direct"
+        below = core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])]
+        joined = rows.merge(below[_CELL + ["value"]], on=_CELL, suffixes=("", "_below"))
+        if len(joined) < _MIN_ROWS_FOR_CORRECTION:
+            return rows[_CELL].reset_index(drop=True), rows["value"].to_numpy(), "direct"
+        target = (joined["value"] - joined["value_below"]).to_numpy()
+        return joined[_CELL].reset_index(drop=True), target, "correction"
+
+    def _new_learner(self, name, encoder, n_rows, template):
+        if n_rows < _MIN_ROWS_FOR_LEARNER:
+            return ColumnMeanLearner(label_column=encoder.label_columns_[1])
+        if name == "gp":
+            fixed = None
+            if template is not None and isinstance(template.learner, GPLearner):
+                fixed = template.learner.kernel_
+            element_label, column_label = encoder.label_columns_
+            # the column indicators already give each column its own behaviour; a
+            # random offset per column on top of them was measured to hurt
+            # corrections learned from few elements
+            return GPLearner(
+                label_columns=(element_label,),
+                indicator_columns=encoder.indicator_columns_,
+                ignored_columns=(column_label,),
+                fixed_kernel=fixed,
+                random_state=self.random_state,
+            )
+        return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=self.random_state)
+
+    def _fit_stages(self, core, name, template):
+        """Fit one stage per quantity and level; ``template`` reuses fitted hyperparameters."""
+        stages = {}
+        for quantity, methods in self.quantity_levels_.items():
+            for position, method in enumerate(methods):
+                cells, target, kind = self._stage_rows(core, quantity, position)
+                if len(cells) == 0:
+                    continue
+                model_template = None if template is None else template.get((quantity, method))
+                encoder = CellEncoder(self.descriptors_, self.compositions_)
+                columns = None if model_template is None else model_template.encoder.columns_
+                encoder.fit(cells, columns=columns)
+                learner = self._new_learner(name, encoder, len(cells), model_template)
+                learner.fit(encoder.transform(cells), target)
+                stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner)
+        return stages
+
+    # ------------------------------------------------------------ predicting
+    def _known(self, core):
+        return {
+            tuple(key): value
+            for key, value in zip(core[list(KEY_COLUMNS)].itertuples(index=False), core["value"])
+        }
+
+    def _joint(self, stages, known, quantity, method, cells):
+        """Mean and covariance (uncalibrated) of ``cells`` of one quantity and method.
+
+        Cells computed at this level return their value with zero variance.
+        """
+        methods = self.quantity_levels_[quantity]
+        position = methods.index(method)
+        stage = stages.get((quantity, method))
+        n_cells = len(cells)
+        if stage is None:
+            # a level with no training cell of its own: only reachable through a bad call
+            raise DopantgapError(f"No model for quantity {quantity!r} at method {method!r}.")
+        mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
+        mean = np.array(mean, dtype=float)
+        cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
+        if stage.kind == "correction":
+            below_mean, below_cov = self._joint(stages, known, quantity, methods[position - 1], cells)
+            mean, cov = mean + below_mean, cov + below_cov
+        computed = np.array(
+            [
+                known.get((element, host, site, method, quantity), np.nan)
+                for element, host, site in zip(cells["element"], cells["host"], cells["site"])
+            ]
+        )
+        is_computed = ~np.isnan(computed)
+        mean[is_computed] = computed[is_computed]
+        cov[is_computed, :] = 0.0
+        cov[:, is_computed] = 0.0
+        return mean, cov
+
+    def _scenarios(self, core, cells):
+        """Scenario of each cell given the cells computed in ``core``."""
+        with_quantity = set(zip(core["element"], core["quantity"]))
+        computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+        scenarios = []
+        for element, host, site, method, quantity in cells[list(KEY_COLUMNS)].itertuples(
+            index=False, name=None
+        ):
+            methods = self.quantity_levels_.get(quantity, [])
+            position = methods.index(method) if method in methods else 0
+            if (element, quantity) not in with_quantity:
+                scenarios.append("new-element")
+            elif position > 0 and (element, host, site, methods[position - 1], quantity) in computed:
+                scenarios.append("upgrade")
+            else:
+                scenarios.append("new-cell")
+        return np.array(scenarios, dtype=object)
+
+    def _predict_raw(self, stages, core, cells, with_cov=False):
+        """Mean, raw std (and block covariances) for cells; groups by quantity and method."""
+        known = self._known(core)
+        mean = np.full(len(cells), np.nan)
+        std = np.full(len(cells), np.nan)
+        blocks = {}
+        cells = cells.reset_index(drop=True)
+        for (quantity, method), group in cells.groupby(["quantity", "method"], sort=False):
+            element_order = list(dict.fromkeys(group["element"]))
+            chunk, size = [], 0
+            per_element = {e: rows.index for e, rows in group.groupby("element", sort=False)}
+            chunks = []
+            for element in element_order:
+                chunk.append(element)
+                size += len(per_element[element])
+                if size >= _CHUNK_CELLS:
+                    chunks.append(chunk)
+                    chunk, size = [], 0
+            if chunk:
+                chunks.append(chunk)
+            for chunk in chunks:
+                index = np.concatenate([per_element[element] for element in chunk])
+                part = cells.loc[index]
+                chunk_mean, chunk_cov = self._joint(stages, known, quantity, method, part)
+                mean[index] = chunk_mean
+                std[index] = np.sqrt(np.clip(np.diag(chunk_cov), 0.0, None))
+                if with_cov:
+                    blocks[(quantity, method, tuple(index))] = chunk_cov
+        return mean, std, blocks
+
+    def _check_cells(self, cells):
+        check_is_fitted(self)
+        missing = [column for column in KEY_COLUMNS if column not in cells.columns]
+        if missing:
+            raise DopantgapError(f"The cells to predict lack the column(s) {', '.join(missing)}.")
+        cells = cells[list(KEY_COLUMNS)].reset_index(drop=True).copy()
+        for quantity, method in set(zip(cells["quantity"], cells["method"])):
+            if (quantity, method) not in self.stages_:
+                raise DopantgapError(
+                    f"The model has no data for quantity {quantity!r} at method {method!r}; "
+                    f"it can predict only the quantity/method pairs of its table."
+                )
+        return cells
+
+    def predict(self, cells, level=0.9):
+        """Predict cells with calibrated spread and a central interval.
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, site, method, quantity (other columns ignored).
+            Elements need not be in the table; hosts must have a known composition.
+        level : float, default=0.9
+            Probability content of the central interval ``lo``..``hi``.
+
+        Returns
+        -------
+        DataFrame
+            The cell columns plus ``value``, ``std``, ``lo``, ``hi``, ``status``
+            (``computed``: the table's own value, passed through unchanged, with
+            std 0 and lo = hi = value; ``predicted`` otherwise) and ``scenario``
+            (empty for computed cells).
+        """
+        cells = self._check_cells(cells)
+        core = self.table_[list(REQUIRED_COLUMNS)]
+        mean, raw_std, _ = self._predict_raw(self.stages_, core, cells)
+        known = self._known(core)
+        keys = list(cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+        is_computed = np.array([key in known for key in keys])
+        scenarios = self._scenarios(core, cells)
+        scenarios[is_computed] = ""
+        std = np.zeros(len(cells))
+        half = np.zeros(len(cells))
+        for scenario in SCENARIOS:
+            rows = scenarios == scenario
+            std[rows] = raw_std[rows] * self.calibration_.std_scale(scenario)
+            half[rows] = raw_std[rows] * self.calibration_.half_width(scenario, level)
+        # computed cells: the user's own number, bit for bit
+        values = mean.copy()
+        values[is_computed] = [known[key] for key, flag in zip(keys, is_computed) if flag]
+        result = cells.copy()
+        result["value"] = values
+        result["std"] = std
+        result["lo"] = values - half
+        result["hi"] = values + half
+        result["status"] = np.where(is_computed, "computed", "predicted")
+        result["scenario"] = scenarios
+        return result
+
+    def predict_joint(self, cells):
+        """Calibrated mean and covariance of cells of one quantity and method.
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Cells sharing one quantity and one method (for example the sites of one
+            element in one host).
+
+        Returns
+        -------
+        mean : ndarray of shape (n_cells,)
+        cov : ndarray of shape (n_cells, n_cells)
+            Zero rows and columns for computed cells.
+        """
+        cells = self._check_cells(cells)
+        if cells[["quantity", "method"]].drop_duplicates().shape[0] != 1:
+            raise DopantgapError("predict_joint takes cells of one quantity and one method.")
+        core = self.table_[list(REQUIRED_COLUMNS)]
+        known = self._known(core)
+        quantity, method = cells["quantity"].iloc[0], cells["method"].iloc[0]
+        mean, cov = self._joint(self.stages_, known, quantity, method, cells)
+        scenarios = self._scenarios(core, cells)
+        scale = np.array(
+            [self.calibration_.std_scale(s) if s in SCENARIOS else 1.0 for s in scenarios]
+        )
+        return mean, cov * np.outer(scale, scale)
+
+    # ------------------------------------------------------- cross-validation
+    def _fold_masks(self, core):
+        """Boolean test masks over ``core`` rows, one per fold (see module docstring)."""
+        rng = np.random.default_rng(self.random_state)
+        table_elements = np.array(sorted(core["element"].unique()))
+        rng.shuffle(table_elements)
+        n_folds = int(min(max(self.n_folds, 2), len(table_elements)))
+        groups = np.array_split(table_elements, n_folds)
+        element = core["element"].to_numpy()
+        lowest = np.array(
+            [
+                self.quantity_levels_[quantity].index(method) == 0
+                for quantity, method in zip(core["quantity"], core["method"])
+            ]
+        )
+        masks = []
+        for fold in range(n_folds):
+            hidden_elements = np.isin(element, groups[fold])
+            upgrade_elements = np.isin(element, groups[(fold + 1) % n_folds]) & ~hidden_elements
+            test = hidden_elements | (upgrade_elements & ~lowest)
+            candidates = ~test & ~upgrade_elements
+            test |= candidates & (rng.random(len(core)) < 1.0 / n_folds)
+            # every element keeps at least one training cell per quantity unless hidden whole
+            training = core[~test]
+            kept = set(zip(training["element"], training["quantity"]))
+            for position in np.flatnonzero(test & ~hidden_elements):
+                key = (element[position], core["quantity"].iat[position])
+                if key not in kept:
+                    test[position] = False
+                    kept.add(key)
+            masks.append(test)
+        return masks
+
+    def _cross_validate(self, core, name, template):
+        """Out-of-fold predictions of every hidden cell, with its scenario."""
+        records = []
+        for test in self._fold_masks(core):
+            if not test.any():
+                continue
+            training, held_out = core[~test], core[test].reset_index(drop=True)
+            stages = self._fit_stages(training, name, template=template)
+            servable = np.array(
+                [(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])]
+            )
+            held_out = held_out[servable].reset_index(drop=True)
+            if len(held_out) == 0:
+                continue
+            mean, std, _ = self._predict_raw(stages, training, held_out)
+            part = held_out.copy()
+            part["mean"] = mean
+            part["raw_std"] = std
+            part["scenario"] = self._scenarios(training, held_out)
+            records.append(part)
+        if not records:
+            raise DopantgapError(
+                "Cross-validation found nothing to hold out: the table needs at least two elements."
+            )
+        residuals = pd.concat(records, ignore_index=True)
+        residuals["error"] = residuals["value"] - residuals["mean"]
+        residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+        return residuals
+
+    def _metrics(self, name, residuals):
+        rows = []
+        calibration = ScenarioCalibration(
+            {scenario: part["z"].to_numpy() for scenario, part in residuals.groupby("scenario")}
+        )
+        for scenario in SCENARIOS:
+            part = residuals[residuals["scenario"] == scenario]
+            for quantity, sub in [("all", part)] + list(part.groupby("quantity")):
+                if len(sub) == 0:
+                    continue
+                scale = calibration.half_width(scenario, 0.9)
+                rows.append(
+                    {
+                        "learner": name,
+                        "scenario": scenario,
+                        "quantity": quantity,
+                        "n": len(sub),
+                        "mae": float(np.mean(np.abs(sub["error"]))),
+                        "rmse": float(np.sqrt(np.mean(sub["error"] ** 2))),
+                        "coverage_raw": float(np.mean(np.abs(sub["z"]) <= 1.6448536269514722)),
+                        "coverage_calibrated": float(np.mean(np.abs(sub["z"]) <= scale)),
+                    }
+                )
+        return pd.DataFrame(rows)
