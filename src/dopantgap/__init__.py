@@ -1,3 +1,42 @@
-"""dopantgap: fill, prioritise and explain tables of DFT impurity energies."""
+"""dopantgap: fill, prioritise and explain tables of DFT impurity energies.
+
+The Python API mirrors the command line::
+
+    import dopantgap as dg
+    table = dg.read_table("energies.csv")
+    model = dg.Surrogate(random_state=0).fit(table)
+    filled = dg.fill_table(model, element_symbols=["Ti", "V"])
+    sites = dg.site_preference(model)
+    dg.save_model(model, "models/mine")
+"""
 
 __version__ = "0.1.0"
+
+from dopantgap.calibration import SCENARIOS
+from dopantgap.elements import DESCRIPTORS, descriptor_table, element_flags
+from dopantgap.errors import DopantgapError, ModelFolderError, TableError
+from dopantgap.fill import fill_table
+from dopantgap.sites import site_preference
+from dopantgap.store import load_model, save_model
+from dopantgap.surrogate import Surrogate
+from dopantgap.table import coverage, read_table, to_wide, write_table
+
+__all__ = [
+    "DESCRIPTORS",
+    "DopantgapError",
+    "ModelFolderError",
+    "SCENARIOS",
+    "Surrogate",
+    "TableError",
+    "__version__",
+    "coverage",
+    "descriptor_table",
+    "element_flags",
+    "fill_table",
+    "load_model",
+    "read_table",
+    "save_model",
+    "site_preference",
+    "to_wide",
+    "write_table",
+]

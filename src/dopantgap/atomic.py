@@ -30,6 +30,10 @@ def atomic_path(target):
     )
     os.close(handle)
     temporary = Path(temporary)
+    # mkstemp makes the file private (0600); give it the permissions a plain open() would
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(temporary, 0o666 & ~umask)
     try:
         yield temporary
         os.replace(temporary, target)

@@ -1,0 +1,100 @@
+"""The demo: the whole job on an invented table, end to end, in well under a minute.
+
+The table is INVENTED (see ``dopantgap.world``): two hosts, ZnS (two sublattices) and
+diamond-structure C, five sites each, a solution energy ``E_sol`` at every site and a
+vacancy binding energy ``E_bind``; a cheap level ``gga`` for most elements, an
+expensive level ``hyb`` for a fifth of them, and four elements never computed. Because
+the world is invented, its truth is known, and the demo shows how close the filled
+cells come to it.
+"""
+
+from pathlib import Path
+
+import numpy as np
+
+from dopantgap.atomic import write_text_atomic
+from dopantgap.fill import fill_table
+from dopantgap.sites import site_preference
+from dopantgap.store import save_model
+from dopantgap.surrogate import Surrogate
+from dopantgap.table import write_table
+from dopantgap.world import invent_world, observe
+
+__all__ = ["DEMO_ABSENT", "DEMO_SEED", "demo_table", "demo_world", "run_demo"]
+
+DEMO_SEED = 7
+#: Elements of the invented world left out of the demo table entirely.
+DEMO_ABSENT = ("Ce", "Gd", "Hg", "Os")
+
+def demo_world():
+    """Every cell of the invented demo world with its true value (``truth``)."""
+    return invent_world(seed=DEMO_SEED)
+
+
+def demo_table():
+    """The invented table a researcher would hold (what ``data_demo/`` ships)."""
+    table = observe(demo_world(), absent=DEMO_ABSENT, seed=DEMO_SEED)
+    table["note"] = "invented"
+    return table
+
+
+def run_demo(out_dir="dopantgap_demo", report=print):
+    """Run the whole job on the invented table and summarise it.
+
+    Parameters
+    ----------
+    out_dir : str or Path, default="dopantgap_demo"
+        Folder for the table, the model folder and the filled outputs.
+    report : callable, default=print
+        Receives each line of the summary.
+
+    Returns
+    -------
+    dict
+        Paths written and the figures printed (per-scenario error against the
+        invented truth, and interval coverage).
+    """
+    out_dir = Path(out_dir)
+    table_path = out_dir / "invented_table.csv"
+    model_dir = out_dir / "model"
+    filled_path = out_dir / "filled.csv"
+    sites_path = out_dir / "site_preference.csv"
+    table = demo_table()
+    write_table(table, table_path)
+    report(f"Invented demo table (not DFT data): {len(table)} computed cells -> {table_path}")
+    surrogate = Surrogate(random_state=0).fit(table)
+    save_model(surrogate, model_dir, source=table_path)
+    report(f"Model folder: {model_dir} (learner kept: {surrogate.learner_})")
+    filled = fill_table(surrogate, element_symbols=DEMO_ABSENT)
+    write_table(filled, filled_path)
+    preference = site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))
+    write_table(preference, sites_path)
+    report(f"Filled table: {filled_path}; site preferences: {sites_path}")
+    world = demo_world()
+    merged = filled.merge(
+        world[["element", "host", "site", "method", "quantity", "value"]].rename(columns={"value": "truth"}),
+        on=["element", "host", "site", "method", "quantity"],
+    )
+    predicted = merged[merged["status"] == "predicted"]
+    report("")
+    report("How the filled cells compare with the invented truth (90 % intervals):")
+    report(f"  {'scenario':<12} {'cells':>6} {'mean |error| eV':>16} {'inside interval':>16}")
+    figures = {}
+    for scenario, part in predicted.groupby("scenario"):
+        error = float(np.mean(np.abs(part["value"] - part["truth"])))
+        inside = float(np.mean((part["truth"] >= part["lo"]) & (part["truth"] <= part["hi"])))
+        figures[scenario] = {"n": len(part), "mae": error, "coverage": inside}
+        report(f"  {scenario:<12} {len(part):>6} {error:>16.3f} {inside:>15.0%}")
+    report("  (noise of the invented world: 0.05 eV; element term no descriptor explains: 0.15 eV)")
+    report("")
+    report("Estimates guide which calculations to run; they do not replace calculation,")
+    report("experiment or local safety rules.")
+    summary_lines = [f"{s},{v['n']},{v['mae']:.4f},{v['coverage']:.4f}" for s, v in figures.items()]
+    write_text_atomic(out_dir / "truth_check.csv", "scenario,n,mae,coverage\n" + "\n".join(summary_lines) + "\n")
+    return {
+        "table": table_path,
+        "model": model_dir,
+        "filled": filled_path,
+        "site_preference": sites_path,
+        "figures": figures,
+    }

@@ -1,0 +1,96 @@
+"""Fill every cell of the table, and of elements never tabulated, with an interval."""
+
+import difflib
+
+import pandas as pd
+
+from dopantgap import elements
+from dopantgap.errors import DopantgapError
+from dopantgap.symbols import SYMBOLS, normalise_symbol
+from dopantgap.table import KEY_COLUMNS
+
+__all__ = ["FILLED_COLUMNS", "fill_table", "parse_element_list"]
+
+#: The leading columns of a filled table, in order; the table's own extra columns follow.
+FILLED_COLUMNS = (
+    "element", "host", "site", "method", "quantity",
+    "value", "std", "lo", "hi", "status", "scenario", "caution",
+)
+
+
+def parse_element_list(text, option="--elements"):
+    """Symbols from a comma-separated list such as ``"Ti, v,Cr"``.
+
+    Raises
+    ------
+    DopantgapError
+        For a blank entry or a word that is not an element symbol.
+    """
+    symbols = []
+    for word in str(text).split(","):
+        symbol = normalise_symbol(word)
+        if symbol is None:
+            near = difflib.get_close_matches(word.strip().capitalize(), SYMBOLS, n=1)
+            hint = f" Did you mean {near[0]}?" if near else ""
+            shown = word.strip() or "(blank)"
+            raise DopantgapError(
+                f"{option}: {shown!r} is not an element symbol; give symbols separated by "
+                f"commas, e.g. {option} Ti,V,Cr.{hint}"
+            )
+        if symbol not in symbols:
+            symbols.append(symbol)
+    return symbols
+
+
+def _caution(symbols):
+    flags = elements.element_flags(list(symbols))
+    return {symbol: flags.at[symbol, "note"] for symbol in flags.index}
+
+
+def fill_table(surrogate, element_symbols=None, level=0.9):
+    """Every cell of every element, computed or predicted with a central interval.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        A fitted surrogate.
+    element_symbols : sequence of str or None, default=None
+        Elements to add to those of the table (never computed ones get the
+        ``new-element`` scenario and its wider interval).
+    level : float, default=0.9
+        Probability content of ``lo``..``hi``.
+
+    Returns
+    -------
+    DataFrame
+        One row per element and host/site/method/quantity column of the table, with
+        ``FILLED_COLUMNS`` then the table's extra columns (filled on computed rows,
+        empty on predicted ones). Computed values are the table's own, unchanged.
+    """
+    if not 0.0 < float(level) < 1.0:
+        raise DopantgapError(f"--level must lie strictly between 0 and 1 (e.g. 0.9), got {level}.")
+    table = surrogate.table_
+    symbols = list(dict.fromkeys(table["element"]))
+    for symbol in element_symbols or ():
+        canonical = normalise_symbol(symbol)
+        if canonical is None:
+            raise DopantgapError(f"{symbol!r} is not an element symbol.")
+        if canonical not in symbols:
+            symbols.append(canonical)
+    columns = table[["host", "site", "method", "quantity"]].drop_duplicates()
+    grid = pd.DataFrame(
+        [
+            {"element": symbol, "host": host, "site": site, "method": method, "quantity": quantity}
+            for symbol in symbols
+            for host, site, method, quantity in columns.itertuples(index=False, name=None)
+        ]
+    )
+    filled = surrogate.predict(grid, level=float(level))
+    notes = _caution(symbols)
+    filled["caution"] = filled["element"].map(notes).fillna("")
+    extras = [c for c in table.columns if c not in KEY_COLUMNS and c != "value" and not c.startswith("_")]
+    if extras:
+        filled = filled.merge(table[list(KEY_COLUMNS) + extras], on=list(KEY_COLUMNS), how="left")
+        for column in extras:
+            filled[column] = filled[column].astype(object).where(filled[column].notna(), "")
+    return filled[list(FILLED_COLUMNS) + extras]
