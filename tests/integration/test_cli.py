@@ -1,0 +1,142 @@
+"""The command line driven as a user would: exit codes, messages and files."""
+
+import json
+import re
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from dopantgap.cli import main
+from dopantgap.world import invent_world, observe
+
+pytestmark = pytest.mark.slow
+
+ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As", "Sn", "Sb", "Ba", "W", "Pb")
+
+
+@pytest.fixture(scope="module")
+def workspace(tmp_path_factory):
+    """A small invented table, fitted once through the command line."""
+    folder = tmp_path_factory.mktemp("cli")
+    world = invent_world(element_symbols=ELEMENTS, seed=3)
+    table = observe(world, expensive_fraction=0.3, absent=("W",), seed=3)
+    table["run_id"] = [f"r{index:04d}" for index in range(len(table))]
+    # padded lower-case symbols, as a user's script might write them
+    table["element"] = [f" {symbol.lower()} " for symbol in table["element"]]
+    table_path = folder / "energies.csv"
+    table.to_csv(table_path, index=False)
+    model_dir = folder / "model"
+    status = main(["fit", str(table_path), "--out", str(model_dir), "--seed", "1", "--learner", "gp", "--quiet"])
+    assert status == 0
+    return {"folder": folder, "table": table_path, "model": model_dir, "world": world}
+
+
+def test_check_prints_coverage(workspace, capsys):
+    assert main(["check", str(workspace["table"])]) == 0
+    output = capsys.readouterr().out
+    assert "no problems found" in output
+    assert "E_sol" in output and "sub_Zn" in output
+
+
+def test_fit_writes_manifest_with_metrics(workspace):
+    manifest = json.loads((workspace["model"] / "manifest.json").read_text())
+    assert manifest["seed"] == 1
+    assert manifest["learner"] == "gp"
+    assert manifest["levels"] == ["gga", "hyb"]
+    scenarios = {row["scenario"] for row in manifest["cross_validation"]}
+    assert scenarios == {"new-cell", "new-element", "upgrade"}
+
+
+def test_fill_outputs(workspace, capsys):
+    filled_path = workspace["folder"] / "filled.csv"
+    status = main(["fill", str(workspace["model"]), "--out", str(filled_path), "--elements", "ti, Zr"])
+    assert status == 0
+    output = capsys.readouterr().out
+    assert "do not replace calculation" in output
+    # As is toxic, Ba is not: the caution names the flagged element
+    assert re.search(r"caution: As: toxic", output)
+    filled = pd.read_csv(filled_path, keep_default_na=False)
+    assert list(filled.columns[:12]) == [
+        "element", "host", "site", "method", "quantity",
+        "value", "std", "lo", "hi", "status", "scenario", "caution",
+    ]
+    table = pd.read_csv(workspace["table"])
+    n_columns = table[["host", "site", "method", "quantity"]].drop_duplicates().shape[0]
+    # every table element, W (absent from the table) is not asked for, Zr is added
+    assert set(filled["element"]) == {s for s in ELEMENTS if s != "W"} | {"Zr"}
+    assert len(filled) == filled["element"].nunique() * n_columns
+    computed = filled[filled["status"] == "computed"]
+    assert len(computed) == len(table)
+    # computed values come back bit for bit, with their run ids
+    merged = computed.merge(
+        table.assign(element=table["element"].str.strip().str.capitalize()),
+        on=["element", "host", "site", "method", "quantity"],
+        suffixes=("", "_table"),
+    )
+    assert len(merged) == len(table)
+    assert np.array_equal(merged["value"].to_numpy(), merged["value_table"].to_numpy())
+    assert (merged["run_id"] == merged["run_id_table"]).all()
+    predicted = filled[filled["status"] == "predicted"]
+    assert (predicted["lo"] < predicted["value"]).all() and (predicted["value"] < predicted["hi"]).all()
+    assert set(predicted.loc[predicted["element"] == "Zr", "scenario"]) == {"new-element"}
+    sites = pd.read_csv(workspace["folder"] / "site_preference.csv")
+    sums = sites.groupby(["element", "host", "method", "quantity"])["p_lowest"].sum()
+    assert np.allclose(sums, 1.0)
+
+
+def test_fill_level_widens_intervals(workspace):
+    narrow, wide = workspace["folder"] / "narrow.csv", workspace["folder"] / "wide.csv"
+    assert main(["fill", str(workspace["model"]), "--out", str(narrow), "--level", "0.5", "--quiet"]) == 0
+    assert main(["fill", str(workspace["model"]), "--out", str(wide), "--level", "0.95", "--quiet"]) == 0
+    narrow_rows = pd.read_csv(narrow).query("status == 'predicted'")
+    wide_rows = pd.read_csv(wide).query("status == 'predicted'")
+    assert ((wide_rows["hi"] - wide_rows["lo"]).to_numpy() > (narrow_rows["hi"] - narrow_rows["lo"]).to_numpy()).all()
+
+
+def test_same_seed_same_output(workspace, tmp_path):
+    second_model = tmp_path / "model"
+    assert main(["fit", str(workspace["table"]), "--out", str(second_model), "--seed", "1", "--learner", "gp", "--quiet"]) == 0
+    first, second = tmp_path / "a.csv", tmp_path / "b.csv"
+    assert main(["fill", str(workspace["model"]), "--out", str(first), "--quiet"]) == 0
+    assert main(["fill", str(second_model), "--out", str(second), "--quiet"]) == 0
+    assert first.read_bytes() == second.read_bytes()
+
+
+@pytest.mark.parametrize(
+    "content, expected",
+    [
+        ("element,host,site,method,quantity,value\nFe,ZnS,sub_Zn,gga,E_sol,abc\n", r":2: .*abc"),
+        ("element,host,site,method,quantity,value\nXq,ZnS,sub_Zn,gga,E_sol,1.0\n", r":2: .*Xq"),
+        ("element,host,site\nFe,ZnS,sub_Zn\n", r"value"),
+        ("", r":1: "),
+    ],
+)
+def test_bad_table_is_one_line_not_a_traceback(tmp_path, capsys, content, expected):
+    path = tmp_path / "bad.csv"
+    path.write_text(content)
+    assert main(["check", str(path)]) == 2
+    error = capsys.readouterr().err
+    assert "Traceback" not in error
+    assert len(error.strip().splitlines()) == 1
+    assert re.search(expected, error)
+    assert str(path) in error
+
+
+def test_unknown_extra_element_is_refused(workspace, capsys, tmp_path):
+    assert main(["fill", str(workspace["model"]), "--out", str(tmp_path / "x.csv"), "--elements", "Ti,Fx"]) == 2
+    error = capsys.readouterr().err
+    assert "'Fx' is not an element symbol" in error
+    assert not (tmp_path / "x.csv").exists()
+
+
+def test_missing_model_folder_is_explained(tmp_path, capsys):
+    assert main(["fill", str(tmp_path / "nowhere"), "--out", str(tmp_path / "x.csv")]) == 2
+    assert "dopantgap fit" in capsys.readouterr().err
+
+
+def test_wrong_levels_are_explained(workspace, tmp_path, capsys):
+    status = main(["fit", str(workspace["table"]), "--out", str(tmp_path / "m"), "--levels", "gga,hse", "--quiet"])
+    assert status == 2
+    error = capsys.readouterr().err
+    assert "hse" in error and "gga, hyb" in error
