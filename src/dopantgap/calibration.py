@@ -53,6 +53,10 @@ class ScenarioCalibration:
                 self.scores_[scenario] = pooled
                 self.borrowed_.add(scenario)
 
+    def n_residuals(self, scenario):
+        """How many residuals the scenario's widths rest on (pooled ones if borrowed)."""
+        return len(self.scores_[scenario])
+
     def half_width(self, scenario, level):
         """Multiplier q such that mean +/- q * std is the calibrated interval."""
         if not 0.0 < level < 1.0:

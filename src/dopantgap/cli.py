@@ -121,11 +121,17 @@ def _command_fit(arguments, say):
     for row in pooled.itertuples(index=False):
         mark = " <- kept" if row.chosen else ""
         say(f"  {row.learner:<8} {row.scenario:<12} {row.n:>6} {row.mae:>13.3f} {row.rmse:>10.3f}{mark}")
+    for scenario in sorted(surrogate.calibration_.borrowed_):
+        if scenario in set(pooled["scenario"]):
+            say(
+                f"note: few cross-validated {scenario} cells; their intervals use the residuals "
+                f"of all scenarios pooled. Compute more cells to calibrate it on its own."
+            )
     say(f"Model folder written: {arguments.out} ({elapsed:.1f} s)")
 
 
 def _command_fill(arguments, say):
-    from dopantgap.fill import fill_table, parse_element_list
+    from dopantgap.fill import fill_table, parse_element_list, unfamiliar_elements
     from dopantgap.sites import site_preference
     from dopantgap.store import load_model
     from dopantgap.table import write_table
@@ -144,7 +150,22 @@ def _command_fill(arguments, say):
     )
     for scenario, part in predicted.groupby("scenario"):
         say(f"  {scenario:<12} {len(part):>6} cells, median interval width {float((part['hi'] - part['lo']).median()):.2f} eV")
-    say(f"Site preferences -> {sites_out}")
+    for scenario in sorted(set(predicted["scenario"])):
+        n_residuals = surrogate.calibration_.n_residuals(scenario)
+        if n_residuals < 20:
+            say(
+                f"caution: the {scenario} intervals rest on only {n_residuals} cross-validated "
+                f"cells; treat them as rough until the table has more computed cells."
+            )
+    if len(preference):
+        say(f"Site preferences -> {sites_out}")
+    else:
+        say(f"No quantity has two or more sites in a host: {sites_out} lists no site preference.")
+    for symbol, block in unfamiliar_elements(surrogate, extra).items():
+        say(
+            f"caution: {symbol} is in the {block} block and the table has no element there: its "
+            f"estimates are extrapolations far outside the training data."
+        )
     flagged = filled.loc[filled["caution"] != "", ["element", "caution"]].drop_duplicates()
     for row in flagged.itertuples(index=False):
         say(f"caution: {row.element}: {row.caution}")

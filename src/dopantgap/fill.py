@@ -9,7 +9,9 @@ from dopantgap.errors import DopantgapError
 from dopantgap.symbols import SYMBOLS, normalise_symbol
 from dopantgap.table import KEY_COLUMNS
 
-__all__ = ["FILLED_COLUMNS", "fill_table", "parse_element_list"]
+__all__ = ["FILLED_COLUMNS", "fill_table", "parse_element_list", "unfamiliar_elements"]
+
+_BLOCK_NAMES = {0: "s", 1: "p", 2: "d", 3: "f"}
 
 #: The leading columns of a filled table, in order; the table's own extra columns follow.
 FILLED_COLUMNS = (
@@ -94,3 +96,19 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
         for column in extras:
             filled[column] = filled[column].astype(object).where(filled[column].notna(), "")
     return filled[list(FILLED_COLUMNS) + extras]
+
+
+def unfamiliar_elements(surrogate, element_symbols):
+    """Elements from a periodic-table block that the table has no element of.
+
+    Their estimates are extrapolations (for example a lanthanide when the table holds
+    none) and deserve a warning, whatever their interval says.
+
+    Returns
+    -------
+    dict
+        Symbol -> block letter, for the unfamiliar ones.
+    """
+    known = set(elements.descriptor_table(list(set(surrogate.table_["element"])))["block_index"])
+    asked = elements.descriptor_table(list(element_symbols))["block_index"]
+    return {symbol: _BLOCK_NAMES[int(block)] for symbol, block in asked.items() if block not in known}

@@ -82,6 +82,20 @@ def order_levels(table, levels=None):
     return levels
 
 
+def _host_compositions(table, host_map):
+    """Host compositions, with an unreadable host label located in the user's file."""
+    compositions = {}
+    for host, rows in table.groupby("host", sort=False):
+        try:
+            compositions.update(elements.host_compositions([host], host_map))
+        except DopantgapError as error:
+            where = ""
+            if "_file" in rows.columns and "_line" in rows.columns:
+                where = f"{rows['_file'].iat[0]}:{rows['_line'].iat[0]}: "
+            raise DopantgapError(f"{where}{error}; on the command line: --hosts HOST_FILE") from error
+    return compositions
+
+
 class _Stage:
     """A fitted model of one quantity at one level: its encoder, learner and kind."""
 
@@ -192,9 +206,7 @@ class Surrogate(BaseEstimator):
                 f"Unknown descriptor(s) {', '.join(unknown)}; "
                 f"available: {', '.join(elements.DESCRIPTOR_NAMES)}."
             )
-        self.compositions_ = elements.host_compositions(
-            sorted(table["host"].unique()), self.host_compositions
-        )
+        self.compositions_ = _host_compositions(table, self.host_compositions)
         self.quantity_levels_ = {
             quantity: [m for m in self.levels_ if m in set(rows["method"])]
             for quantity, rows in table.groupby("quantity", sort=False)
@@ -206,7 +218,8 @@ class Surrogate(BaseEstimator):
             fitted[name] = self._fit_stages(core, name, template=None)
             residuals[name] = self._cross_validate(core, name, fitted[name])
         mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}
-        self.learner_ = min(candidates, key=lambda name: (mae[name], name))
+        # a tie keeps the earlier candidate: the Gaussian process, whose spread is principled
+        self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
         self.stages_ = fitted[self.learner_]
         self.cv_residuals_ = residuals[self.learner_]
         self.calibration_ = ScenarioCalibration(

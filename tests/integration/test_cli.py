@@ -140,3 +140,12 @@ def test_wrong_levels_are_explained(workspace, tmp_path, capsys):
     assert status == 2
     error = capsys.readouterr().err
     assert "hse" in error and "gga, hyb" in error
+
+
+def test_radioactive_and_extrapolated_elements_get_cautions(workspace, capsys, tmp_path):
+    assert main(["fill", str(workspace["model"]), "--out", str(tmp_path / "u.csv"), "--elements", "U"]) == 0
+    output = capsys.readouterr().out
+    assert "caution: U: radioactive" in output
+    assert "caution: U is in the f block" in output and "extrapolation" in output
+    filled = pd.read_csv(tmp_path / "u.csv", keep_default_na=False)
+    assert set(filled.loc[filled["element"] == "U", "caution"]) == {"radioactive: no stable isotope"}
