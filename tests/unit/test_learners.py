@@ -28,31 +28,12 @@ def _one_thread():
         yield
 
 
-def _expected_failed_checks(estimator):
-    if isinstance(estimator, BoostLearner):
-        return {
-            "check_non_transformer_estimators_n_iter": (
-                "BoostLearner has a max_iter parameter but no n_iter_ attribute "
-                "(scikit-learn convention); reported to the lead engineer."
-            )
-        }
-    if isinstance(estimator, ColumnMeanLearner):
-        # A label-mean baseline cannot reach R^2 > 0.5 on the check's regression data;
-        # the learner does not declare the `poor_score` tag that would tell the check so.
-        return {
-            "check_regressors_train": "a column-mean baseline scores R^2 ~ 0 by design",
-        }
-    return {}
-
-
 @parametrize_with_checks(
     [
         GPLearner(random_state=0),
         BoostLearner(random_state=0, n_members=3, max_iter=20),
         ColumnMeanLearner(),
     ],
-    expected_failed_checks=_expected_failed_checks,
-    xfail_strict=True,
 )
 def test_scikit_learn_estimator_checks(estimator, check):
     check(estimator)
@@ -114,14 +95,7 @@ def test_std_is_the_square_root_of_the_covariance_diagonal(learner):
     [
         GPLearner(random_state=0),
         BoostLearner(n_members=3, max_iter=20, random_state=0),
-        pytest.param(
-            ColumnMeanLearner(),
-            marks=pytest.mark.xfail(
-                strict=True,
-                reason="ColumnMeanLearner.predict (column_mean.py, line ~52) returns (mean, cov) "
-                "when both return_std and return_cov are asked; the other learners raise ValueError.",
-            ),
-        ),
+        ColumnMeanLearner(),
     ],
     ids=lambda learner: type(learner).__name__,
 )
@@ -301,12 +275,6 @@ def test_boost_offset_of_a_label_with_many_rows_approaches_its_mean_residual():
     assert small_variance > offsets[1.0][1] * 10
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="boosted.py _shrunk_offsets (line ~180) takes np.var(means) with ddof=0, so the "
-    "between-label variance is ((a-1)/a * MSA - MSE)/n instead of the ANOVA estimator "
-    "(MSA - MSE)/n cited from Searle, Casella & McCulloch 1992; it is too small for few labels.",
-)
 def test_between_label_variance_is_the_balanced_anova_estimator():
     # Searle, Casella & McCulloch 1992, "Variance Components", chapter 3 (one-way
     # classification, balanced data): sigma_a^2 = (MSA - MSE) / n with

@@ -43,6 +43,8 @@ class BoostLearner(RegressorMixin, BaseEstimator):
         Per label column: label -> (offset, posterior variance of the offset).
     label_variance_ : list of float
         Per label column: between-label variance of the offsets.
+    n_iter_ : int
+        Boosting iterations of the longest member.
     """
 
     def __init__(
@@ -116,6 +118,7 @@ class BoostLearner(RegressorMixin, BaseEstimator):
             self.label_offsets_.append(offsets)
             self.label_variance_.append(between)
         self.residual_variance_ = float(np.var(residual)) if n_samples > 1 else 0.0
+        self.n_iter_ = int(max(member.n_iter_ for member in self.members_))
         return self
 
     def predict(self, X, return_std=False, return_cov=False):
@@ -172,7 +175,10 @@ def _shrunk_offsets(labels, residual):
     within = residual - means[inverse]
     degrees = max(len(residual) - len(unique), 1)
     within_variance = float(np.sum(within**2) / degrees)
-    between = float(max(np.var(means) - within_variance * np.mean(1.0 / counts), 0.0))
+    # one-way random effects, ANOVA estimator: (MSA - MSE) / n for balanced data
+    # (Searle, Casella & McCulloch 1992, ch. 3); unbiased spread of the label means
+    spread = float(np.var(means, ddof=1)) if len(unique) > 1 else 0.0
+    between = float(max(spread - within_variance * np.mean(1.0 / counts), 0.0))
     offsets = {}
     shrunk = np.zeros(len(unique))
     for index, label in enumerate(unique):

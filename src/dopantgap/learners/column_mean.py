@@ -43,10 +43,18 @@ class ColumnMeanLearner(RegressorMixin, BaseEstimator):
             self.residual_std_ = float(np.std(y)) or 1.0
         return self
 
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        # a baseline: it is meant to score poorly
+        tags.regressor_tags.poor_score = True
+        return tags
+
     def predict(self, X, return_std=False, return_cov=False):
         """Label means; optionally the pooled spread (``return_std``) or its diagonal covariance."""
         check_is_fitted(self)
         X = validate_data(self, X, reset=False, dtype=np.float64)
+        if return_std and return_cov:
+            raise ValueError("Ask for return_std or return_cov, not both.")
         labels = np.zeros(X.shape[0]) if self.label_column is None else X[:, int(self.label_column)]
         mean = np.array([self.means_.get(float(label), self.overall_mean_) for label in labels])
         if return_cov:
