@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 from sklearn.ensemble import HistGradientBoostingRegressor
 from sklearn.model_selection import KFold, cross_val_predict
+from threadpoolctl import threadpool_info
 
 from dopantgap.calibration import SCENARIOS
 from dopantgap.demo import DEMO_ABSENT, demo_table
@@ -158,14 +159,10 @@ def measure_speed():
     filled = fill_table(surrogate, element_symbols=DEMO_ABSENT)
     site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))
     python_fill = time.perf_counter() - started
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:
-        cores = os.cpu_count()
     print(
         f"Demo table (invented): {len(table)} computed cells, {table['element'].nunique()} elements; "
         f"filled table {filled_rows} cells incl. {len(DEMO_ABSENT)} new elements; "
-        f"cores available: {cores}; learner kept: {surrogate.learner_}"
+        f"learner kept: {surrogate.learner_}"
     )
     rows = [
         ("fit, command line", f"{cli_fit:.1f}", f"< {TARGET_FIT_SECONDS:.0f}", "s"),
@@ -469,6 +466,25 @@ def report_targets(speed, runs, fidelity, n_seeds):
     return rows
 
 
+def load_text():
+    return " / ".join(f"{value:.2f}" for value in os.getloadavg())
+
+
+def machine_line():
+    """Cores, BLAS threads and load: timings mean little if other work shares the cores."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:
+        cores = os.cpu_count()
+    blas = ", ".join(
+        f"{pool['internal_api']} {pool['num_threads']} thread(s)" for pool in threadpool_info()
+    ) or "none found"
+    return (
+        f"Cores available: {cores}; BLAS/OpenMP pools: {blas}; "
+        f"load average before start (1/5/15 min): {load_text()}"
+    )
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="one seed only (a smoke run)")
@@ -480,6 +496,7 @@ def main(argv=None):
     seeds = list(range(n_seeds))
     started = time.perf_counter()
     print("dopantgap fill benchmark. All worlds and tables are INVENTED (dopantgap.world), not DFT data.")
+    print(machine_line())
     speed = measure_speed()
     runs = [run_world(name, element_sd, seed) for seed in seeds for name, element_sd in WORLDS.items()]
     report_accuracy(runs, seeds)
@@ -488,6 +505,7 @@ def main(argv=None):
     report_targets(speed, runs, fidelity, n_seeds)
     print()
     print(f"Benchmark finished in {time.perf_counter() - started:.0f} s ({n_seeds} seed(s)).")
+    print(f"Load average at the end (1/5/15 min, includes this benchmark): {load_text()}")
     return 0
 
 

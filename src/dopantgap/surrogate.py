@@ -18,6 +18,7 @@ the expensive cells of another group are hidden while their cheap cells stay
 
 import numpy as np
 import pandas as pd
+from joblib import Parallel, delayed
 from sklearn.base import BaseEstimator
 from sklearn.utils.validation import check_is_fitted
 
@@ -213,10 +214,13 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         candidates = LEARNERS if self.learner == "auto" else (self.learner,)
-        fitted, residuals = {}, {}
-        for name in candidates:
-            fitted[name] = self._fit_stages(core, name, template=None)
-            residuals[name] = self._cross_validate(core, name, fitted[name])
+        # the candidates are independent: on two cores they fit side by side, each
+        # worker held to one BLAS/OpenMP thread so that they do not fight for cores
+        outcomes = Parallel(n_jobs=min(len(candidates), 2))(
+            delayed(self._fit_candidate)(core, name) for name in candidates
+        )
+        fitted = {name: stages for name, (stages, _) in zip(candidates, outcomes)}
+        residuals = {name: found for name, (_, found) in zip(candidates, outcomes)}
         mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}
         # a tie keeps the earlier candidate: the Gaussian process, whose spread is principled
         self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
@@ -233,6 +237,11 @@ class Surrogate(BaseEstimator):
         )
         self.cv_metrics_["chosen"] = self.cv_metrics_["learner"] == self.learner_
         return self
+
+    def _fit_candidate(self, core, name):
+        """Fitted stages of one learner and their cross-validated residuals."""
+        stages = self._fit_stages(core, name, template=None)
+        return stages, self._cross_validate(core, name, stages)
 
     def _stage_rows(self, core, quantity, position):
         """Training cells and target of a stage, and whether it is a correction."""
