@@ -20,48 +20,66 @@ __all__ = ["SCENARIOS", "ScenarioCalibration"]
 #: The scenarios a missing cell can be in, in the order they are reported.
 SCENARIOS = ("new-cell", "new-element", "upgrade")
 
-# Fewer residuals than this and a scenario borrows the pooled residuals of all
-# scenarios (common practice, no source: 20 points give a 90 % quantile to ~ +/-15 %).
+# Fewer residuals than this and a key borrows the pooled residuals of a wider group
+# (common practice, no source: 20 points give a 90 % quantile to ~ +/-15 %).
 _MIN_RESIDUALS = 20
 _REFERENCE_LEVEL = 0.9
 
 
 class ScenarioCalibration:
-    """Per-scenario interval widths learned from standardised residuals.
+    """Per-scenario (and per-quantity) interval widths from standardised residuals.
+
+    Widths are taken from the residuals of the same scenario and quantity when there
+    are at least 20 of them, else from the scenario's residuals over all quantities,
+    else from all residuals pooled. Quantities differ: a binding energy computed at
+    one site per host is not as predictable as a site energy, and pooling the two
+    was measured to leave the binding energies' intervals too narrow.
 
     Parameters
     ----------
     scores : dict
-        Scenario name -> array of standardised residuals (truth - mean) / std.
+        (scenario, quantity) -> array of standardised residuals (truth - mean) / std.
 
     Attributes
     ----------
     scores_ : dict
-        Scenario -> sorted |z| (pooled residuals for scenarios with too few).
+        Key -> sorted |z|, for keys (scenario, quantity), (scenario, None) and
+        (None, None), the last two pooled.
     borrowed_ : set
-        Scenarios that use the pooled residuals.
+        Scenarios with too few residuals of their own, using all residuals pooled.
     """
 
     def __init__(self, scores):
-        pooled = np.sort(np.abs(np.concatenate([np.asarray(v, float) for v in scores.values()] or [[]])))
-        self.scores_, self.borrowed_ = {}, set()
+        def sorted_abs(arrays):
+            arrays = [np.asarray(array, dtype=float) for array in arrays]
+            return np.sort(np.abs(np.concatenate(arrays))) if arrays else np.empty(0)
+
+        self.scores_ = {(None, None): sorted_abs(list(scores.values()))}
+        self.borrowed_ = set()
         for scenario in SCENARIOS:
-            own = np.sort(np.abs(np.asarray(scores.get(scenario, []), dtype=float)))
-            if len(own) >= _MIN_RESIDUALS:
-                self.scores_[scenario] = own
-            else:
-                self.scores_[scenario] = pooled
+            own = sorted_abs([v for (s, _q), v in scores.items() if s == scenario])
+            self.scores_[(scenario, None)] = own
+            if len(own) < _MIN_RESIDUALS:
                 self.borrowed_.add(scenario)
+        for (scenario, quantity), values in scores.items():
+            self.scores_[(scenario, quantity)] = sorted_abs([values])
 
-    def n_residuals(self, scenario):
-        """How many residuals the scenario's widths rest on (pooled ones if borrowed)."""
-        return len(self.scores_[scenario])
+    def _scores(self, scenario, quantity=None):
+        for key in ((scenario, quantity), (scenario, None)):
+            found = self.scores_.get(key)
+            if found is not None and len(found) >= _MIN_RESIDUALS:
+                return found
+        return self.scores_[(None, None)]
 
-    def half_width(self, scenario, level):
+    def n_residuals(self, scenario, quantity=None):
+        """How many residuals the widths of a scenario (and quantity) rest on."""
+        return len(self._scores(scenario, quantity))
+
+    def half_width(self, scenario, level, quantity=None):
         """Multiplier q such that mean +/- q * std is the calibrated interval."""
         if not 0.0 < level < 1.0:
             raise ValueError(f"The interval level must lie strictly between 0 and 1, got {level}.")
-        scores = self.scores_[scenario]
+        scores = self._scores(scenario, quantity)
         n_scores = len(scores)
         gaussian = norm.ppf(0.5 + level / 2.0)
         if n_scores == 0:
@@ -69,14 +87,14 @@ class ScenarioCalibration:
         rank = math.ceil((n_scores + 1) * level)
         if rank <= n_scores:
             return float(scores[rank - 1])
-        return gaussian * self.std_scale(scenario)
+        return gaussian * self.std_scale(scenario, quantity)
 
-    def std_scale(self, scenario):
+    def std_scale(self, scenario, quantity=None):
         """Factor turning a raw std into a calibrated one.
 
         Chosen so that mean +/- 1.645 * calibrated std is the 90 % interval.
         """
-        scores = self.scores_[scenario]
+        scores = self._scores(scenario, quantity)
         n_scores = len(scores)
         if n_scores == 0:
             return 1.0

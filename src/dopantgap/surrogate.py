@@ -40,6 +40,9 @@ _MIN_ROWS_FOR_LEARNER = 8
 # Below this many cells computed at both levels a level is learned directly
 # instead of as a correction.
 _MIN_ROWS_FOR_CORRECTION = 3
+# Stages with at most this many training rows re-optimise their hyperparameters in
+# each cross-validation fold; larger ones reuse the full fit's.
+_MAX_ROWS_REOPTIMISED = 60
 # Cells predicted together (their joint covariance is formed in memory).
 _CHUNK_CELLS = 1500
 
@@ -95,6 +98,13 @@ def _host_compositions(table, host_map):
                 where = f"{rows['_file'].iat[0]}:{rows['_line'].iat[0]}: "
             raise DopantgapError(f"{where}{error}; on the command line: --hosts HOST_FILE") from error
     return compositions
+
+
+def _calibration(residuals):
+    """Per-scenario, per-quantity calibration from out-of-fold residuals."""
+    return ScenarioCalibration(
+        {key: part["z"].to_numpy() for key, part in residuals.groupby(["scenario", "quantity"])}
+    )
 
 
 class _Stage:
@@ -226,12 +236,7 @@ class Surrogate(BaseEstimator):
         self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
         self.stages_ = fitted[self.learner_]
         self.cv_residuals_ = residuals[self.learner_]
-        self.calibration_ = ScenarioCalibration(
-            {
-                scenario: rows["z"].to_numpy()
-                for scenario, rows in self.cv_residuals_.groupby("scenario")
-            }
-        )
+        self.calibration_ = _calibration(self.cv_residuals_)
         self.cv_metrics_ = pd.concat(
             [self._metrics(name, residuals[name]) for name in candidates], ignore_index=True
         )
@@ -261,7 +266,14 @@ class Surrogate(BaseEstimator):
             return ColumnMeanLearner(label_column=encoder.label_columns_[1])
         if name == "gp":
             fixed = None
-            if template is not None and isinstance(template.learner, GPLearner):
+            # folds reuse the full fit's hyperparameters only where optimising them is
+            # costly; small stages (corrections learned from few elements) re-optimise in
+            # every fold, so that their cross-validated spread is honest
+            if (
+                template is not None
+                and isinstance(template.learner, GPLearner)
+                and n_rows > _MAX_ROWS_REOPTIMISED
+            ):
                 fixed = template.learner.kernel_
             element_label, column_label = encoder.label_columns_
             # the column indicators already give each column its own behaviour; a
@@ -421,10 +433,12 @@ class Surrogate(BaseEstimator):
         scenarios[is_computed] = ""
         std = np.zeros(len(cells))
         half = np.zeros(len(cells))
+        quantities = cells["quantity"].to_numpy()
         for scenario in SCENARIOS:
-            rows = scenarios == scenario
-            std[rows] = raw_std[rows] * self.calibration_.std_scale(scenario)
-            half[rows] = raw_std[rows] * self.calibration_.half_width(scenario, level)
+            for quantity in set(quantities[scenarios == scenario]):
+                rows = (scenarios == scenario) & (quantities == quantity)
+                std[rows] = raw_std[rows] * self.calibration_.std_scale(scenario, quantity)
+                half[rows] = raw_std[rows] * self.calibration_.half_width(scenario, level, quantity)
         # computed cells: the user's own number, bit for bit
         values = mean.copy()
         values[is_computed] = [known[key] for key, flag in zip(keys, is_computed) if flag]
@@ -461,7 +475,7 @@ class Surrogate(BaseEstimator):
         mean, cov = self._joint(self.stages_, known, quantity, method, cells)
         scenarios = self._scenarios(core, cells)
         scale = np.array(
-            [self.calibration_.std_scale(s) if s in SCENARIOS else 1.0 for s in scenarios]
+            [self.calibration_.std_scale(s, quantity) if s in SCENARIOS else 1.0 for s in scenarios]
         )
         return mean, cov * np.outer(scale, scale)
 
@@ -529,15 +543,13 @@ class Surrogate(BaseEstimator):
 
     def _metrics(self, name, residuals):
         rows = []
-        calibration = ScenarioCalibration(
-            {scenario: part["z"].to_numpy() for scenario, part in residuals.groupby("scenario")}
-        )
+        calibration = _calibration(residuals)
         for scenario in SCENARIOS:
             part = residuals[residuals["scenario"] == scenario]
             for quantity, sub in [("all", part)] + list(part.groupby("quantity")):
                 if len(sub) == 0:
                     continue
-                scale = calibration.half_width(scenario, 0.9)
+                scale = calibration.half_width(scenario, 0.9, None if quantity == "all" else quantity)
                 rows.append(
                     {
                         "learner": name,
