@@ -203,6 +203,11 @@ def main(argv=None):
     except DopantgapError as error:
         print(f"dopantgap {arguments.command}: {error}", file=sys.stderr)
         return 2
+    except OSError as error:
+        # a folder where a file should go, a full disk, no permission: the user's to fix
+        target = error.filename or ""
+        print(f"dopantgap {arguments.command}: {target}: {error.strerror or error}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print("dopantgap: interrupted; no file was left half-written.", file=sys.stderr)
         return 130

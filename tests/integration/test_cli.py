@@ -149,3 +149,12 @@ def test_radioactive_and_extrapolated_elements_get_cautions(workspace, capsys, t
     assert "caution: U is in the f block" in output and "extrapolation" in output
     filled = pd.read_csv(tmp_path / "u.csv", keep_default_na=False)
     assert set(filled.loc[filled["element"] == "U", "caution"]) == {"radioactive: no stable isotope"}
+
+
+def test_unwritable_output_is_one_line(workspace, capsys, tmp_path):
+    blocker = tmp_path / "occupied"
+    blocker.write_text("a file where a folder should go")
+    status = main(["fill", str(workspace["model"]), "--out", str(blocker / "filled.csv"), "--quiet"])
+    assert status == 2
+    error = capsys.readouterr().err
+    assert "Traceback" not in error and str(blocker) in error
