@@ -130,6 +130,3 @@ class CellEncoder:
             [atomic_number(symbol) for symbol in cells["element"]], dtype=float
         )
         return np.column_stack([physical, indicators, element_label, column_index])
-
-    def fit_transform(self, cells):
-        return self.fit(cells).transform(cells)

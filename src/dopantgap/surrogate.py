@@ -360,12 +360,12 @@ class Surrogate(BaseEstimator):
                 scenarios.append("new-cell")
         return np.array(scenarios, dtype=object)
 
-    def _predict_raw(self, stages, core, cells, with_cov=False):
-        """Mean, raw std (and block covariances) for cells; groups by quantity and method."""
+    def _predict_raw(self, stages, core, cells):
+        """Mean and raw std of cells, predicted by quantity and method in chunks of whole
+        elements (the joint covariance of a chunk is formed in memory)."""
         known = self._known(core)
         mean = np.full(len(cells), np.nan)
         std = np.full(len(cells), np.nan)
-        blocks = {}
         cells = cells.reset_index(drop=True)
         for (quantity, method), group in cells.groupby(["quantity", "method"], sort=False):
             element_order = list(dict.fromkeys(group["element"]))
@@ -386,9 +386,7 @@ class Surrogate(BaseEstimator):
                 chunk_mean, chunk_cov = self._joint(stages, known, quantity, method, part)
                 mean[index] = chunk_mean
                 std[index] = np.sqrt(np.clip(np.diag(chunk_cov), 0.0, None))
-                if with_cov:
-                    blocks[(quantity, method, tuple(index))] = chunk_cov
-        return mean, std, blocks
+        return mean, std
 
     def _check_cells(self, cells):
         check_is_fitted(self)
@@ -425,7 +423,7 @@ class Surrogate(BaseEstimator):
         """
         cells = self._check_cells(cells)
         core = self.table_[list(REQUIRED_COLUMNS)]
-        mean, raw_std, _ = self._predict_raw(self.stages_, core, cells)
+        mean, raw_std = self._predict_raw(self.stages_, core, cells)
         known = self._known(core)
         keys = list(cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))
         is_computed = np.array([key in known for key in keys])
@@ -526,7 +524,7 @@ class Surrogate(BaseEstimator):
             held_out = held_out[servable].reset_index(drop=True)
             if len(held_out) == 0:
                 continue
-            mean, std, _ = self._predict_raw(stages, training, held_out)
+            mean, std = self._predict_raw(stages, training, held_out)
             part = held_out.copy()
             part["mean"] = mean
             part["raw_std"] = std
