@@ -19,7 +19,7 @@ the expensive cells of another group are hidden while their cheap cells stay
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
-from sklearn.base import BaseEstimator
+from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
 from dopantgap import elements
@@ -243,6 +243,56 @@ class Surrogate(BaseEstimator):
         self.cv_metrics_["chosen"] = self.cv_metrics_["learner"] == self.learner_
         return self
 
+    def refreshed(self, table):
+        """This model relearned on ``table`` without choosing or calibrating anew.
+
+        The learner kept, the Gaussian processes' hyperparameters and the interval
+        calibration are carried over; every stage is conditioned on the new table's
+        cells. Seconds instead of a full ``fit``: meant for campaign rounds and
+        replays, where a table grows by a few cells at a time. Refit in full when the
+        table has changed much (the calibration describes the old one).
+
+        Parameters
+        ----------
+        table : DataFrame
+            Long table with the same quantities and methods (new elements, hosts
+            with known compositions and sites may appear).
+
+        Returns
+        -------
+        Surrogate
+            A new fitted model; this one is left as it was.
+        """
+        check_is_fitted(self)
+        missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]
+        if missing:
+            raise DopantgapError(f"The table lacks the column(s) {', '.join(missing)}.")
+        unknown = sorted(set(table["method"]) - set(self.levels_))
+        if unknown:
+            raise DopantgapError(
+                f"The table has method(s) {', '.join(unknown)} that the model never saw; "
+                f"fit a new model instead."
+            )
+        fresh = clone(self)
+        fresh.table_ = table.copy()
+        fresh.levels_ = [level for level in self.levels_ if level in set(table["method"])]
+        fresh.descriptors_ = self.descriptors_
+        fresh.compositions_ = dict(self.compositions_)
+        new_hosts = table.loc[~table["host"].isin(list(self.compositions_)), :]
+        if len(new_hosts):
+            fresh.compositions_.update(_host_compositions(new_hosts, self.host_compositions))
+        fresh.quantity_levels_ = {
+            quantity: [m for m in fresh.levels_ if m in set(rows["method"])]
+            for quantity, rows in table.groupby("quantity", sort=False)
+        }
+        core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+        fresh.learner_ = self.learner_
+        fresh.stages_ = fresh._fit_stages(core, self.learner_, template=self.stages_, always_reuse=True)
+        fresh.calibration_ = self.calibration_
+        fresh.cv_residuals_ = self.cv_residuals_
+        fresh.cv_metrics_ = self.cv_metrics_
+        return fresh
+
     def _fit_candidate(self, core, name):
         """Fitted stages of one learner and their cross-validated residuals."""
         stages = self._fit_stages(core, name, template=None)
@@ -261,7 +311,7 @@ class Surrogate(BaseEstimator):
         target = (joined["value"] - joined["value_below"]).to_numpy()
         return joined[_CELL].reset_index(drop=True), target, "correction"
 
-    def _new_learner(self, name, encoder, n_rows, template):
+    def _new_learner(self, name, encoder, n_rows, template, always_reuse=False):
         if n_rows < _MIN_ROWS_FOR_LEARNER:
             return ColumnMeanLearner(label_column=encoder.label_columns_[1])
         if name == "gp":
@@ -272,7 +322,7 @@ class Surrogate(BaseEstimator):
             if (
                 template is not None
                 and isinstance(template.learner, GPLearner)
-                and n_rows > _MAX_ROWS_REOPTIMISED
+                and (always_reuse or n_rows > _MAX_ROWS_REOPTIMISED)
             ):
                 fixed = template.learner.kernel_
             element_label, column_label = encoder.label_columns_
@@ -288,8 +338,9 @@ class Surrogate(BaseEstimator):
             )
         return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=self.random_state)
 
-    def _fit_stages(self, core, name, template):
-        """Fit one stage per quantity and level; ``template`` reuses fitted hyperparameters."""
+    def _fit_stages(self, core, name, template, always_reuse=False):
+        """Fit one stage per quantity and level; ``template`` reuses fitted hyperparameters
+        (of stages above ``_MAX_ROWS_REOPTIMISED`` rows, or of all with ``always_reuse``)."""
         stages = {}
         for quantity, methods in self.quantity_levels_.items():
             for position, method in enumerate(methods):
@@ -299,8 +350,13 @@ class Surrogate(BaseEstimator):
                 model_template = None if template is None else template.get((quantity, method))
                 encoder = CellEncoder(self.descriptors_, self.compositions_)
                 columns = None if model_template is None else model_template.encoder.columns_
+                if columns is not None and not set(zip(cells["host"], cells["site"])) <= set(columns):
+                    # a column the template never saw: its input layout cannot be kept
+                    columns, model_template = None, None
                 encoder.fit(cells, columns=columns)
-                learner = self._new_learner(name, encoder, len(cells), model_template)
+                learner = self._new_learner(
+                    name, encoder, len(cells), model_template, always_reuse=always_reuse
+                )
                 learner.fit(encoder.transform(cells), target)
                 stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner)
         return stages
