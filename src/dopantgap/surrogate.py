@@ -11,9 +11,12 @@ with value(level k-1) the user's number where computed and the model's predictio
 host-relative terms and the host/site column (``features.CellEncoder``).
 
 Uncertainty is calibrated per scenario (``calibration.SCENARIOS``) on grouped
-cross-validation: in each fold a group of elements is hidden entirely (new-element),
-the expensive cells of another group are hidden while their cheap cells stay
-(upgrade), and single cells of the remaining elements are hidden (new-cell).
+cross-validation: in each fold a group of elements is hidden entirely (new-element)
+and single cells of the remaining elements are hidden (new-cell). The upgrade
+scenario (an expensive cell whose cheap level is computed) has a loop of its own
+over the elements computed at both levels: a correction learned from a dozen
+elements is sensitive to how many it sees, so its folds hide as few of them as
+possible, and each fold optimises the correction's hyperparameters afresh.
 """
 
 import numpy as np
@@ -43,6 +46,9 @@ _MIN_ROWS_FOR_CORRECTION = 3
 # Stages with at most this many training rows re-optimise their hyperparameters in
 # each cross-validation fold; larger ones reuse the full fit's.
 _MAX_ROWS_REOPTIMISED = 60
+# Folds of the upgrade loop: at most this many, over the elements computed at both
+# levels (leave-one-element-out when there are fewer).
+_UPGRADE_FOLDS = 6
 # Cells predicted together (their joint covariance is formed in memory).
 _CHUNK_CELLS = 1500
 
@@ -296,7 +302,11 @@ class Surrogate(BaseEstimator):
     def _fit_candidate(self, core, name):
         """Fitted stages of one learner and their cross-validated residuals."""
         stages = self._fit_stages(core, name, template=None)
-        return stages, self._cross_validate(core, name, stages)
+        residuals = self._cross_validate(core, name, stages)
+        upgrade = self._cross_validate_upgrade(core, name)
+        if len(upgrade):
+            residuals = pd.concat([residuals, upgrade], ignore_index=True)
+        return stages, residuals
 
     def _stage_rows(self, core, quantity, position):
         """Training cells and target of a stage, and whether it is a correction."""
@@ -548,12 +558,26 @@ class Surrogate(BaseEstimator):
                 for quantity, method in zip(core["quantity"], core["method"])
             ]
         )
+        computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+        has_cheap = np.array(
+            [
+                position > 0
+                and (e, h, s, self.quantity_levels_[q][position - 1], q) in computed
+                for e, h, s, q, position in zip(
+                    core["element"], core["host"], core["site"], core["quantity"],
+                    [self.quantity_levels_[q].index(m) for q, m in zip(core["quantity"], core["method"])],
+                )
+            ],
+            dtype=bool,
+        )
         masks = []
         for fold in range(n_folds):
             hidden_elements = np.isin(element, groups[fold])
-            upgrade_elements = np.isin(element, groups[(fold + 1) % n_folds]) & ~hidden_elements
-            test = hidden_elements | (upgrade_elements & ~lowest)
-            candidates = ~test & ~upgrade_elements
+            test = hidden_elements.copy()
+            # single cells: cheap-level cells only, or expensive ones whose cheap level is
+            # missing too; an expensive cell with its cheap level computed is an upgrade,
+            # cross-validated by its own loop
+            candidates = ~test & (lowest | ~has_cheap)
             test |= candidates & (rng.random(len(core)) < 1.0 / n_folds)
             # every element keeps at least one training cell per quantity unless hidden whole
             training = core[~test]
@@ -591,6 +615,47 @@ class Surrogate(BaseEstimator):
                 "Cross-validation found nothing to hold out: the table needs at least two elements."
             )
         residuals = pd.concat(records, ignore_index=True)
+        residuals["error"] = residuals["value"] - residuals["mean"]
+        residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+        return residuals
+
+    def _cross_validate_upgrade(self, core, name):
+        """Out-of-fold upgrade predictions: each correction stage relearned without
+        some of the elements computed at both levels, which are then predicted from
+        their computed cheap level (the only part of the chain an upgrade needs)."""
+        records = []
+        rng = np.random.default_rng(self.random_state + 1)
+        for quantity, methods in self.quantity_levels_.items():
+            for position in range(1, len(methods)):
+                cells, target, kind = self._stage_rows(core, quantity, position)
+                if kind != "correction":
+                    continue
+                both = np.array(sorted(cells["element"].unique()))
+                if len(both) < 3:
+                    continue
+                rng.shuffle(both)
+                below = core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])]
+                for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
+                    test = cells["element"].isin(group).to_numpy()
+                    encoder = CellEncoder(self.descriptors_, self.compositions_)
+                    encoder.fit(cells[~test])
+                    learner = self._new_learner(name, encoder, int((~test).sum()), template=None)
+                    learner.fit(encoder.transform(cells[~test]), target[~test])
+                    correction, std = learner.predict(encoder.transform(cells[test]), return_std=True)
+                    part = cells[test].reset_index(drop=True)
+                    cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"]
+                    part["method"] = methods[position]
+                    part["quantity"] = quantity
+                    part["value"] = target[test] + cheap.to_numpy()
+                    part["mean"] = np.asarray(correction, dtype=float) + cheap.to_numpy()
+                    part["raw_std"] = np.asarray(std, dtype=float)
+                    part["scenario"] = "upgrade"
+                    records.append(part)
+        if not records:
+            return pd.DataFrame()
+        residuals = pd.concat(records, ignore_index=True)[
+            list(REQUIRED_COLUMNS) + ["mean", "raw_std", "scenario"]
+        ]
         residuals["error"] = residuals["value"] - residuals["mean"]
         residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
         return residuals
