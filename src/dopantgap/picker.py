@@ -1,0 +1,883 @@
+"""Which cells to calculate next: a ranked batch of missing cells, each with its reason.
+
+Candidates are the cells of the filled grid (every element of the table plus any
+extra ones, times every host/site/method/quantity column of the table) that are not
+computed; a computed cell is never proposed. Each candidate gets a *benefit* under
+one of three goals, divided by the *cost* of its method (default 1 per method).
+
+Goals
+-----
+``table`` (default)
+    Expected reduction of the predictive variance summed over all missing cells of
+    the target method(s), in eV^2. For a Gaussian joint with fixed hyperparameters,
+    observing cell i changes the covariance to C - C[:, i] C[i, :] / C[i, i]
+    (Rasmussen & Williams 2006, "Gaussian Processes for Machine Learning", eq. 2.24
+    and Algorithm 2.1, the posterior covariance after conditioning on one more
+    point), so the summed variance drops by sum_j C[j, i]^2 / C[i, i]. The diagonal
+    holds the fitted white noise: C describes what a new calculation would return.
+    A calculation that informs many cells therefore ranks above one that only
+    settles itself.
+``site``
+    Expected reduction of the Shannon entropy, in bits, of which site is lowest in
+    energy, for each element, host and method of a quantity with two or more sites in
+    a host (``sites.site_quantities``). The candidate's result is drawn at
+    Gauss-Hermite nodes of its predictive distribution, the joint Gaussian of that
+    element's sites is conditioned on it (rank-1 update of mean and covariance), and
+    the site-lowest probabilities are computed exactly for two sites and by Monte
+    Carlo with common random numbers (fixed seed) for more. A candidate's benefit is
+    the sum of the reductions over the questions of its own element and host at the
+    target method(s): without ``method``, a cheap-level calculation counts for the
+    cheap question and, through the chain below, for the expensive one. Only cells of
+    such quantities and hosts are candidates.
+``window``
+    For ``window=(quantity, low, high)`` (eV): the probability that a cell's value lies
+    inside, p = Phi((high - m) / s) - Phi((low - m) / s), and its binary entropy H(p)
+    in bits, largest for undecided cells (p near 0.5). Benefit: the expected reduction
+    of H(p) summed over all missing cells of that quantity at the target method(s),
+    with the same Gauss-Hermite and rank-1 conditioning. Only cells of that quantity
+    are candidates (the other quantities' models do not inform it).
+
+Target methods: with ``method`` given, candidates and the cells whose uncertainty is
+counted are that method's missing cells; without it, every method's. Quantities are
+learned by separate models, so each quantity is a block of its own. Within a block,
+the covariance between levels follows the surrogate's chain value(level k) =
+value(level k-1) + correction(k): a cheap-level calculation informs the expensive
+cells that rest on its predicted value, exactly as the chain carries it.
+
+Batches
+-------
+The K picks are chosen one after the other: after each pick the covariance is
+conditioned as if its result were known at the predicted mean (the mean does not
+change, the covariance gets the rank-1 update above) and every candidate is scored
+again, so a batch does not spend K calculations on one question. A pick's
+``benefit`` is its benefit given the picks ranked above it; for ``site`` it can
+exceed an earlier pick's, when two calculations settle a question only together
+(the two competing sites of one element).
+
+Approximations (stated so that they can be judged)
+--------------------------------------------------
+- Hyperparameters and the interval calibration stay fixed; the calibrated covariance
+  (raw covariance scaled by each cell's scenario factor, as ``predict_joint`` does) is
+  conditioned as if it were the exact Gaussian posterior.
+- An expensive-level cell whose cheap level is missing is treated as informative for
+  its neighbours through the joint Gaussian, although the surrogate learns the
+  correction only from cells computed at both levels.
+- ``site`` scores a candidate on its own element's and host's questions only; its
+  weaker effect on other elements' questions (through the shared model) is left out,
+  and after a pick only questions whose covariance moved noticeably are scored again.
+"""
+
+import math
+import numbers
+
+import numpy as np
+import pandas as pd
+from numpy.polynomial.hermite_e import hermegauss
+from scipy.special import ndtr
+
+from dopantgap.errors import DopantgapError
+from dopantgap.sites import site_quantities
+from dopantgap.symbols import normalise_symbol
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+
+__all__ = [
+    "GOALS",
+    "PICK_COLUMNS",
+    "binary_entropy",
+    "condition_on",
+    "expected_site_entropy",
+    "expected_window_entropy",
+    "parse_cost",
+    "parse_window",
+    "pick_next",
+    "site_entropy",
+    "site_probabilities",
+    "summed_variance_reduction",
+    "window_probability",
+]
+
+#: The acquisition rules ``pick_next`` knows (see the module docstring).
+GOALS = ("table", "site", "window")
+
+#: Columns of the frame ``pick_next`` returns, in order.
+PICK_COLUMNS = (
+    "element", "host", "site", "method", "quantity", "rank", "value", "std",
+    "cost", "benefit", "reason", "benefit_unit", "benefit_per_cost", "scenario",
+)
+
+_CELL = ["element", "host", "site"]
+# Variances below this (eV^2) count as settled: the cell is known or nearly so.
+_SETTLED = 1e-12
+# A cell counts as "informed" by a calculation when its variance would drop by at least
+# this share (common practice, no source: a threshold for the reason text only).
+_INFORMED_SHARE = 0.05
+# Gauss-Hermite nodes over a candidate's result; 9 nodes integrate polynomials of
+# degree 17 exactly, ample for the smooth entropies here.
+_NODES, _NODE_WEIGHTS = hermegauss(9)
+_NODE_WEIGHTS = _NODE_WEIGHTS / math.sqrt(2.0 * math.pi)
+# Monte Carlo draws per site question; common random numbers across candidates keep
+# the differences between candidates far more precise than each entropy.
+_SITE_SAMPLES = 1024
+# After a pick, a site question is scored again only if its covariance moved by more
+# than this share of its largest variance.
+_SITE_RESCORE_SHARE = 1e-3
+# Candidate rows scored together in the window goal (memory: rows x nodes x targets).
+_WINDOW_CHUNK = 64
+# Most missing cells of one quantity held in one joint covariance (8 bytes each squared:
+# 6000 cells take 290 MB).
+_MAX_BLOCK_CELLS = 6000
+
+
+# ----------------------------------------------------------------- parsing options
+def parse_cost(text):
+    """Costs per method from text such as ``"gga=1,hyb=30"``.
+
+    Parameters
+    ----------
+    text : str or None
+        Comma-separated ``method=cost`` pairs; each cost a positive number.
+
+    Returns
+    -------
+    dict
+        Method -> cost (float). Methods not named cost 1.
+
+    Raises
+    ------
+    DopantgapError
+        For a pair without ``=``, a cost that is not a positive finite number, or a
+        method named twice.
+
+    Examples
+    --------
+    >>> parse_cost("gga=1, hyb=30")
+    {'gga': 1.0, 'hyb': 30.0}
+    """
+    if text is None or not str(text).strip():
+        return {}
+    costs = {}
+    for pair in str(text).split(","):
+        method, equals, number = pair.partition("=")
+        method = method.strip()
+        if not equals or not method:
+            raise DopantgapError(
+                f"--cost: {pair.strip() or '(blank)'!r} is not METHOD=COST; "
+                f"write pairs separated by commas, e.g. --cost gga=1,hyb=30."
+            )
+        try:
+            cost = float(number)
+        except ValueError:
+            cost = float("nan")
+        if not math.isfinite(cost) or cost <= 0.0:
+            raise DopantgapError(
+                f"--cost: the cost of {method!r} must be a positive number, got "
+                f"{number.strip() or '(blank)'!r}; e.g. --cost gga=1,hyb=30."
+            )
+        if method in costs:
+            raise DopantgapError(f"--cost names {method!r} twice; give each method once.")
+        costs[method] = cost
+    return costs
+
+
+def parse_window(text):
+    """The window goal's ``QUANTITY:LOW:HIGH`` (eV), e.g. ``"E_bind:-1.2:-0.4"``.
+
+    Returns
+    -------
+    tuple
+        (quantity, low, high) with low < high.
+
+    Raises
+    ------
+    DopantgapError
+        For another layout, bounds that are not numbers, or low >= high.
+    """
+    parts = str(text).split(":")
+    example = "e.g. --window E_bind:-1.2:-0.4"
+    if len(parts) != 3 or not parts[0].strip():
+        raise DopantgapError(
+            f"--window: {str(text)!r} is not QUANTITY:LOW:HIGH; {example} (bounds in eV)."
+        )
+    quantity = parts[0].strip()
+    try:
+        low, high = float(parts[1]), float(parts[2])
+    except ValueError:
+        raise DopantgapError(
+            f"--window: the bounds of {str(text)!r} must be numbers in eV; {example}."
+        ) from None
+    if not (math.isfinite(low) and math.isfinite(high)) or low >= high:
+        raise DopantgapError(
+            f"--window: LOW must be below HIGH (both finite, eV), got {parts[1].strip()} "
+            f"and {parts[2].strip()}; {example}."
+        )
+    return quantity, low, high
+
+
+# ------------------------------------------------------------ pure Gaussian helpers
+def condition_on(cov, index):
+    """Covariance after observing cell ``index`` (its mean stays as it was).
+
+    C' = C - C[:, i] C[i, :] / C[i, i] (Rasmussen & Williams 2006, eq. 2.24).
+
+    Parameters
+    ----------
+    cov : ndarray of shape (n, n)
+    index : int
+
+    Returns
+    -------
+    ndarray of shape (n, n)
+        A new array; row and column ``index`` are zero. A cell already settled
+        (variance ~0) leaves the covariance unchanged.
+    """
+    cov = np.array(cov, dtype=float)
+    pivot = cov[index, index]
+    if pivot <= _SETTLED:
+        return cov
+    column = cov[:, index].copy()
+    cov -= np.outer(column, column) / pivot
+    cov[index, :] = 0.0
+    cov[:, index] = 0.0
+    return (cov + cov.T) / 2.0
+
+
+def summed_variance_reduction(cov, targets=None):
+    """Summed variance reduction of the target cells after observing each cell.
+
+    Parameters
+    ----------
+    cov : ndarray of shape (n, n)
+        Joint covariance; its diagonal is what a new calculation would return.
+    targets : array-like of bool or int, optional
+        Cells whose variance counts (mask or indices); None: all.
+
+    Returns
+    -------
+    ndarray of shape (n,)
+        Entry i is sum over targets j of C[j, i]^2 / C[i, i]; zero for settled cells.
+    """
+    cov = np.asarray(cov, dtype=float)
+    rows = cov if targets is None else cov[np.asarray(targets), :]
+    pivots = np.diag(cov)
+    summed = np.sum(rows**2, axis=0)
+    return np.where(pivots > _SETTLED, summed / np.where(pivots > _SETTLED, pivots, 1.0), 0.0)
+
+
+def site_entropy(probabilities):
+    """Shannon entropy, in bits, of a discrete distribution (zeros allowed).
+
+    Parameters
+    ----------
+    probabilities : array-like
+        Non-negative numbers along the last axis, normalised to sum 1.
+
+    Returns
+    -------
+    float or ndarray
+        -sum p log2 p over the last axis.
+    """
+    p = np.asarray(probabilities, dtype=float)
+    p = p / np.sum(p, axis=-1, keepdims=True)
+    logs = np.log2(np.where(p > 0.0, p, 1.0))
+    return -np.sum(p * logs, axis=-1)
+
+
+def binary_entropy(p):
+    """Entropy in bits of a yes/no event of probability ``p`` (elementwise)."""
+    p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
+    q = 1.0 - p
+    return -(p * np.log2(np.where(p > 0.0, p, 1.0)) + q * np.log2(np.where(q > 0.0, q, 1.0)))
+
+
+def window_probability(mean, std, low, high):
+    """Probability that a Gaussian value lies in [low, high]; std 0 gives 0 or 1."""
+    mean = np.asarray(mean, dtype=float)
+    std = np.asarray(std, dtype=float)
+    spread = np.maximum(std, 1e-12)
+    inside = ndtr((high - mean) / spread) - ndtr((low - mean) / spread)
+    return np.clip(inside, 0.0, 1.0)
+
+
+def _root(cov):
+    """A matrix R with R R^T = cov, for a positive semi-definite cov (zero rows allowed)."""
+    eigenvalues, eigenvectors = np.linalg.eigh((cov + cov.T) / 2.0)
+    return eigenvectors * np.sqrt(np.clip(eigenvalues, 0.0, None))
+
+
+def site_probabilities(mean, cov, normals=None):
+    """Probability that each site is the lowest, for energies ~ N(mean, cov).
+
+    Parameters
+    ----------
+    mean : ndarray of shape (..., n_sites)
+        One or several mean vectors sharing ``cov``.
+    cov : ndarray of shape (n_sites, n_sites)
+    normals : ndarray of shape (n_samples, n_sites) or None
+        Standard normal draws for the Monte Carlo estimate (more than two sites);
+        pass the same draws to compare cases with common random numbers. Two sites
+        are computed exactly and ignore them.
+
+    Returns
+    -------
+    ndarray of shape (..., n_sites)
+    """
+    mean = np.asarray(mean, dtype=float)
+    cov = np.asarray(cov, dtype=float)
+    n_sites = mean.shape[-1]
+    if n_sites == 1:
+        return np.ones_like(mean)
+    if n_sites == 2:
+        spread = math.sqrt(max(cov[0, 0] + cov[1, 1] - 2.0 * cov[0, 1], 0.0))
+        gap = mean[..., 1] - mean[..., 0]
+        if spread <= 1e-12:
+            first = np.where(gap > 0, 1.0, np.where(gap < 0, 0.0, 0.5))
+        else:
+            first = ndtr(gap / spread)
+        return np.stack([first, 1.0 - first], axis=-1)
+    if normals is None:
+        normals = np.random.default_rng(0).standard_normal((_SITE_SAMPLES, n_sites))
+    draws = normals[:, :n_sites] @ _root(cov).T  # (n_samples, n_sites)
+    samples = mean[..., None, :] + draws  # (..., n_samples, n_sites)
+    lowest = np.argmin(samples, axis=-1)
+    counts = np.stack([(lowest == site).sum(axis=-1) for site in range(n_sites)], axis=-1)
+    return counts / normals.shape[0]
+
+
+def expected_site_entropy(mean, cov, column, normals=None):
+    """Expected entropy (bits) of the lowest site after one more calculation.
+
+    Parameters
+    ----------
+    mean : ndarray of shape (n_sites,)
+        Site energies' mean.
+    cov : ndarray of shape (n_sites, n_sites)
+        Their covariance.
+    column : ndarray of shape (n_sites + 1,)
+        Covariance of the candidate's result with each site, then its own variance.
+        The candidate may be one of the sites or another cell correlated with them.
+    normals : ndarray or None
+        Draws for ``site_probabilities`` (common random numbers).
+
+    Returns
+    -------
+    float
+        The Gauss-Hermite average over the candidate's result of the posterior entropy.
+    """
+    cross, variance = np.asarray(column[:-1], dtype=float), float(column[-1])
+    if variance <= _SETTLED:
+        return float(site_entropy(site_probabilities(mean, cov, normals)))
+    posterior = cov - np.outer(cross, cross) / variance
+    means = mean[None, :] + np.outer(_NODES, cross) / math.sqrt(variance)
+    entropies = site_entropy(site_probabilities(means, posterior, normals))
+    return float(np.dot(_NODE_WEIGHTS, entropies))
+
+
+def expected_window_entropy(mean, cov, low, high, candidates=None, targets=None):
+    """Expected summed binary entropy (bits) of being in [low, high] after each candidate.
+
+    Parameters
+    ----------
+    mean : ndarray of shape (n,)
+    cov : ndarray of shape (n, n)
+    low, high : float
+    candidates : array-like of int or None
+        Cells whose calculation is considered; None: all.
+    targets : array-like of int or None
+        Cells whose entropy is summed; None: all.
+
+    Returns
+    -------
+    current : float
+        Summed entropy now.
+    expected : ndarray of shape (len(candidates),)
+        Summed entropy expected after calculating each candidate.
+    """
+    mean = np.asarray(mean, dtype=float)
+    cov = np.asarray(cov, dtype=float)
+    n_cells = len(mean)
+    candidates = np.arange(n_cells) if candidates is None else np.asarray(candidates, dtype=int)
+    targets = np.arange(n_cells) if targets is None else np.asarray(targets, dtype=int)
+    target_mean = mean[targets]
+    target_variance = np.clip(np.diag(cov)[targets], 0.0, None)
+    current = float(np.sum(binary_entropy(window_probability(target_mean, np.sqrt(target_variance), low, high))))
+    expected = np.empty(len(candidates))
+    for start in range(0, len(candidates), _WINDOW_CHUNK):
+        chunk = candidates[start:start + _WINDOW_CHUNK]
+        pivots = np.diag(cov)[chunk]
+        safe = np.where(pivots > _SETTLED, pivots, 1.0)
+        cross = cov[np.ix_(chunk, targets)] * (pivots > _SETTLED)[:, None]  # (c, t)
+        variance = np.clip(target_variance[None, :] - cross**2 / safe[:, None], 0.0, None)
+        shift = cross / np.sqrt(safe)[:, None]
+        means = target_mean[None, None, :] + _NODES[None, :, None] * shift[:, None, :]
+        inside = window_probability(means, np.sqrt(variance)[:, None, :], low, high)
+        entropies = binary_entropy(inside)
+        # a calculated cell is settled whatever its result: its own term is exactly 0
+        # (the middle node could put its result on a window edge, where p = 0.5)
+        own = chunk[:, None] == targets[None, :]  # (candidates, targets)
+        entropies = np.where(own[:, None, :], 0.0, entropies)
+        expected[start:start + len(chunk)] = np.einsum("k,ckt->c", _NODE_WEIGHTS, entropies)
+    return current, expected
+
+
+# ------------------------------------------------------------ the surrogate's joint
+class _Block:
+    """The missing target cells of one quantity, their calibrated mean and covariance."""
+
+    def __init__(self, quantity, cells, mean, cov):
+        self.quantity = quantity
+        self.cells = cells  # KEY_COLUMNS + scenario, one row per missing target cell
+        self.mean = mean
+        self.cov = cov
+
+
+def _grid(surrogate, element_symbols):
+    """Every element (table's, then extra ones) times every column of the table."""
+    table = surrogate.table_
+    symbols = list(dict.fromkeys(table["element"]))
+    for symbol in element_symbols or ():
+        canonical = normalise_symbol(symbol)
+        if canonical is None:
+            raise DopantgapError(
+                f"--elements: {symbol!r} is not an element symbol; e.g. --elements Ti,V."
+            )
+        if canonical not in symbols:
+            symbols.append(canonical)
+    columns = table[["host", "site", "method", "quantity"]].drop_duplicates()
+    return pd.DataFrame(
+        [
+            {"element": symbol, "host": host, "site": site, "method": method, "quantity": quantity}
+            for symbol in symbols
+            for host, site, method, quantity in columns.itertuples(index=False, name=None)
+        ],
+        columns=list(KEY_COLUMNS),
+    )
+
+
+def _quantity_block(surrogate, grid, quantity, methods, known):
+    """Calibrated joint of the missing cells of ``quantity`` at ``methods``.
+
+    Every level is written as a sum of independent stage processes: value(level k) at a
+    cell is the user's number where computed, else stage_k + value(level k-1) for a
+    correction stage (stage_k alone for a direct one). The weight of stage s in
+    value(level k) is therefore 0 or 1 per cell, and the covariance of two cells is the
+    sum over stages of their weights times the stage's covariance: the same numbers as
+    ``Surrogate._joint`` within one level, and the chain's covariance across levels.
+    """
+    levels = surrogate.quantity_levels_[quantity]
+    rows = grid[grid["quantity"] == quantity]
+    wanted = [method for method in levels if method in methods and method in set(rows["method"])]
+    if not wanted:
+        return None
+    top = max(levels.index(method) for method in wanted)
+    units = rows[_CELL].drop_duplicates().reset_index(drop=True)
+    n_units = len(units)
+    unit_keys = list(units.itertuples(index=False, name=None))
+    stage_covs, level_means, level_weights, level_computed = [], [], [], []
+    for position, method in enumerate(levels[: top + 1]):
+        stage = surrogate.stages_[(quantity, method)]
+        stage_mean, stage_cov = stage.learner.predict(stage.encoder.transform(units), return_cov=True)
+        stage_covs.append(np.array(stage_cov, dtype=float).reshape(n_units, n_units))
+        values = np.array([known.get(key + (method, quantity), np.nan) for key in unit_keys])
+        computed = ~np.isnan(values)
+        open_ = (~computed).astype(float)
+        mean = np.array(stage_mean, dtype=float)
+        if stage.kind == "correction" and position > 0:
+            weights = [previous * open_ for previous in level_weights[-1]] + [open_]
+            mean = mean + level_means[-1]
+        else:
+            weights = [np.zeros(n_units)] * position + [open_]
+        level_means.append(np.where(computed, values, mean))
+        level_weights.append(weights)
+        level_computed.append(computed)
+    # the missing target cells, in grid order
+    present = set(zip(rows["element"], rows["host"], rows["site"], rows["method"]))
+    unit_index = {key: index for index, key in enumerate(unit_keys)}
+    records, cell_unit, cell_level = [], [], []
+    for method in wanted:
+        position = levels.index(method)
+        for key in unit_keys:
+            if key + (method,) in present and not level_computed[position][unit_index[key]]:
+                records.append(key + (method, quantity))
+                cell_unit.append(unit_index[key])
+                cell_level.append(position)
+    if not records:
+        return None
+    if len(records) > _MAX_BLOCK_CELLS:
+        raise DopantgapError(
+            f"{len(records)} missing {quantity} cells are too many to rank jointly (at most "
+            f"{_MAX_BLOCK_CELLS}); narrow the candidates with --method."
+        )
+    cells = pd.DataFrame(records, columns=list(KEY_COLUMNS))
+    cell_unit, cell_level = np.array(cell_unit), np.array(cell_level)
+    cov = np.zeros((len(cells), len(cells)))
+    for stage_position, stage_cov in enumerate(stage_covs):
+        weight = np.array(
+            [
+                level_weights[level][stage_position][unit] if stage_position <= level else 0.0
+                for unit, level in zip(cell_unit, cell_level)
+            ]
+        )
+        if not weight.any():
+            continue
+        cov += np.outer(weight, weight) * stage_cov[np.ix_(cell_unit, cell_unit)]
+    mean = np.array([level_means[level][unit] for unit, level in zip(cell_unit, cell_level)])
+    core = surrogate.table_[list(REQUIRED_COLUMNS)]
+    scenarios = surrogate._scenarios(core, cells)
+    scale = np.array([surrogate.calibration_.std_scale(s, quantity) for s in scenarios])
+    cov = cov * np.outer(scale, scale)
+    cells["scenario"] = scenarios
+    return _Block(quantity, cells, mean, (cov + cov.T) / 2.0)
+
+
+def _blocks(surrogate, grid, methods, quantities):
+    core = surrogate.table_[list(REQUIRED_COLUMNS)]
+    known = surrogate._known(core)
+    blocks = []
+    for quantity in quantities:
+        block = _quantity_block(surrogate, grid, quantity, methods, known)
+        if block is not None:
+            blocks.append(block)
+    return blocks
+
+
+# ------------------------------------------------------------------------ goals
+class _TableGoal:
+    unit = "eV^2"
+
+    def __init__(self, blocks):
+        self.blocks = blocks
+
+    def scores(self, block_index):
+        return summed_variance_reduction(self.blocks[block_index].cov)
+
+    def picked(self, block_index, cell):
+        block = self.blocks[block_index]
+        block.cov = condition_on(block.cov, cell)
+
+    def reason(self, block_index, cell, benefit):
+        block = self.blocks[block_index]
+        cov = block.cov
+        pivot = cov[cell, cell]
+        reduction = cov[:, cell] ** 2 / pivot
+        variance = np.diag(cov)
+        informed = (reduction >= _INFORMED_SHARE * np.maximum(variance, _SETTLED)) & (variance > _SETTLED)
+        informed[cell] = False
+        methods = block.cells["method"].to_numpy()[informed]
+        counts = pd.Series(methods).value_counts(sort=False) if len(methods) else pd.Series(dtype=int)
+        if len(counts) == 0:
+            reach = "informs no other missing cell noticeably"
+        elif len(counts) == 1:
+            number = int(counts.iloc[0])
+            reach = f"informs {number} other missing {counts.index[0]} cell{'s' * (number != 1)}"
+        else:
+            parts = ", ".join(f"{int(n)} {m}" for m, n in counts.items())
+            reach = f"informs {int(counts.sum())} other missing cells ({parts})"
+        return f"{reach} (summed variance -{benefit:.3f} eV^2; own std {math.sqrt(pivot):.2f} eV)"
+
+
+class _WindowGoal:
+    unit = "bits"
+
+    def __init__(self, blocks, low, high):
+        self.blocks = blocks
+        self.low, self.high = low, high
+
+    def scores(self, block_index):
+        block = self.blocks[block_index]
+        current, expected = expected_window_entropy(block.mean, block.cov, self.low, self.high)
+        return np.clip(current - expected, 0.0, None)
+
+    def picked(self, block_index, cell):
+        block = self.blocks[block_index]
+        block.cov = condition_on(block.cov, cell)
+
+    def reason(self, block_index, cell, benefit):
+        block = self.blocks[block_index]
+        std = math.sqrt(max(block.cov[cell, cell], 0.0))
+        p = float(window_probability(block.mean[cell], std, self.low, self.high))
+        verdict = "undecided" if 0.2 <= p <= 0.8 else ("likely" if p > 0.8 else "unlikely")
+        return (
+            f"{block.quantity} in [{self.low:g}, {self.high:g}] eV {verdict}: P(inside)={p:.2f}; "
+            f"expected entropy -{benefit:.2f} bits summed over {len(block.cells)} missing cells"
+        )
+
+
+class _SiteGoal:
+    """Questions: (element, host, method) of a site quantity; sites' joint from the block."""
+
+    unit = "bits"
+
+    def __init__(self, blocks, grid, known, site_qs, random_state):
+        self.blocks = blocks
+        rng = np.random.default_rng(random_state)
+        self.questions = []  # dicts: block, sites, members (block index or -1), fixed values
+        self.by_cell = []  # per block: cell -> list of question indices
+        max_sites = 2
+        for block_index, block in enumerate(blocks):
+            by_cell = {}
+            self.by_cell.append(by_cell)
+            if block.quantity not in site_qs:
+                continue
+            index = {key: i for i, key in enumerate(block.cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))}
+            rows = grid[grid["quantity"] == block.quantity]
+            methods = set(block.cells["method"])
+            for (element, host, method), part in rows.groupby(["element", "host", "method"], sort=False):
+                if method not in methods:
+                    continue
+                sites = list(dict.fromkeys(part["site"]))
+                if len(sites) < 2:
+                    continue
+                keys = [(element, host, site, method, block.quantity) for site in sites]
+                members = np.array([index.get(key, -1) for key in keys])
+                if (members < 0).all():
+                    continue  # every site computed: nothing to learn here
+                fixed = np.array([known.get(key, np.nan) for key in keys])
+                self.questions.append(
+                    {"block": block_index, "element": element, "host": host, "method": method,
+                     "sites": sites, "members": members, "fixed": fixed}
+                )
+                max_sites = max(max_sites, len(sites))
+        self.normals = rng.standard_normal((_SITE_SAMPLES, max_sites))
+        # candidates of a question: missing cells of the same element and host (any target level)
+        for question_index, question in enumerate(self.questions):
+            block = self.blocks[question["block"]]
+            same = np.flatnonzero(
+                (block.cells["element"].to_numpy() == question["element"])
+                & (block.cells["host"].to_numpy() == question["host"])
+            )
+            question["candidates"] = same
+            for cell in same:
+                self.by_cell[question["block"]].setdefault(int(cell), []).append(question_index)
+        self.reductions = [None] * len(self.questions)
+        self.current = [None] * len(self.questions)
+        for question_index in range(len(self.questions)):
+            self._score_question(question_index)
+
+    def _joint(self, question):
+        block = self.blocks[question["block"]]
+        members = question["members"]
+        open_ = members >= 0
+        mean = question["fixed"].copy()
+        mean[open_] = block.mean[members[open_]]
+        cov = np.zeros((len(members), len(members)))
+        cov[np.ix_(open_, open_)] = block.cov[np.ix_(members[open_], members[open_])]
+        return mean, cov, open_
+
+    def _score_question(self, question_index):
+        question = self.questions[question_index]
+        block = self.blocks[question["block"]]
+        mean, cov, open_ = self._joint(question)
+        probabilities = site_probabilities(mean, cov, self.normals)
+        current = float(site_entropy(probabilities))
+        reductions = {}
+        for cell in question["candidates"]:
+            column = np.zeros(len(mean) + 1)
+            column[:-1][open_] = block.cov[question["members"][open_], cell]
+            column[-1] = block.cov[cell, cell]
+            if column[-1] <= _SETTLED:
+                reductions[int(cell)] = 0.0
+                continue
+            expected = expected_site_entropy(mean, cov, column, self.normals)
+            reductions[int(cell)] = max(current - expected, 0.0)
+        self.reductions[question_index] = reductions
+        self.current[question_index] = (current, probabilities)
+        question["cov_seen"] = cov
+
+    def scores(self, block_index):
+        scores = np.zeros(len(self.blocks[block_index].cells))
+        for cell, question_indices in self.by_cell[block_index].items():
+            scores[cell] = sum(self.reductions[q].get(cell, 0.0) for q in question_indices)
+        return scores
+
+    def candidate_mask(self, block_index):
+        mask = np.zeros(len(self.blocks[block_index].cells), dtype=bool)
+        mask[list(self.by_cell[block_index])] = True
+        return mask
+
+    def picked(self, block_index, cell):
+        block = self.blocks[block_index]
+        block.cov = condition_on(block.cov, cell)
+        for question_index, question in enumerate(self.questions):
+            if question["block"] != block_index:
+                continue
+            _mean, cov, _open = self._joint(question)
+            moved = np.max(np.abs(cov - question["cov_seen"]))
+            if moved > _SITE_RESCORE_SHARE * max(np.max(np.diag(question["cov_seen"])), _SETTLED):
+                self._score_question(question_index)
+
+    def reason(self, block_index, cell, benefit):
+        question_indices = self.by_cell[block_index].get(cell, [])
+        best = max(question_indices, key=lambda q: self.reductions[q].get(cell, 0.0))
+        question = self.questions[best]
+        current, probabilities = self.current[best]
+        order = np.argsort(-probabilities, kind="stable")[:2]
+        shown = ", ".join(f"P({question['sites'][i]})={probabilities[i]:.2f}" for i in order)
+        verdict = "undecided" if probabilities[order[0]] < 0.8 else "nearly decided"
+        reduction = self.reductions[best].get(cell, 0.0)
+        text = (
+            f"{question['method']} site preference in {question['host']} {verdict}: {shown}; "
+            f"entropy {current:.2f} bits, expected -{reduction:.2f}"
+        )
+        others = len([q for q in question_indices if q != best and self.reductions[q].get(cell, 0.0) > 0.005])
+        if others:
+            text += f" (-{benefit:.2f} bits counting the other method's question too)"
+        return text
+
+
+# ------------------------------------------------------------------------ picking
+def _check_count(count):
+    """The number of picks as an int >= 1 (command-line text accepted)."""
+    number = None
+    if isinstance(count, (int, np.integer)) and not isinstance(count, bool):
+        number = int(count)
+    elif isinstance(count, str) and count.strip().isdigit():
+        number = int(count.strip())
+    if number is None or number < 1:
+        raise DopantgapError(
+            f"--count must be a whole number of at least 1, got {count!r}; e.g. --count 10."
+        )
+    return number
+
+
+def pick_next(
+    surrogate,
+    count=5,
+    goal="table",
+    method=None,
+    cost=None,
+    window=None,
+    element_symbols=(),
+    random_state=0,
+):
+    """A ranked batch of missing cells worth calculating next.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        A fitted surrogate (either learner).
+    count : int, default=5
+        Number of picks; fewer come back if fewer cells are missing.
+    goal : {"table", "site", "window"}, default="table"
+        Acquisition rule (module docstring).
+    method : str or None, default=None
+        Propose and count only this method's cells; None: every method's.
+    cost : dict, str or None, default=None
+        Method -> cost (``parse_cost`` text accepted); methods not named cost 1.
+    window : tuple or str or None, default=None
+        (quantity, low, high) in eV, or its ``QUANTITY:LOW:HIGH`` text; needed by
+        the window goal.
+    element_symbols : sequence of str, default=()
+        Elements to add to those of the table (their cells are all missing).
+    random_state : int, default=0
+        Seed of the site goal's Monte Carlo draws.
+
+    Returns
+    -------
+    DataFrame
+        ``PICK_COLUMNS``, one row per pick, ranked 1..K: the cell, its current
+        calibrated ``value`` and ``std`` (eV), the method's ``cost``, ``benefit``
+        (in ``benefit_unit``: eV^2 for table, bits for site and window; given the
+        picks ranked above), ``benefit_per_cost`` (the ranking score), the cell's
+        ``scenario`` and a short ``reason``.
+
+    Raises
+    ------
+    DopantgapError
+        For an unknown goal, method or cost method, a bad count or window, or a
+        site goal on a table without two sites in any host.
+    """
+    count = _check_count(count)
+    if goal not in GOALS:
+        raise DopantgapError(f"--goal: {goal!r} is not a goal; choose one of {', '.join(GOALS)}.")
+    levels = list(surrogate.levels_)
+    if method is not None and method not in levels:
+        raise DopantgapError(
+            f"--method: {method!r} is not a method of the model; choose one of {', '.join(levels)}."
+        )
+    costs = parse_cost(cost) if cost is None or isinstance(cost, str) else dict(cost)
+    unknown = [name for name in costs if name not in levels]
+    if unknown:
+        raise DopantgapError(
+            f"--cost names {', '.join(map(repr, unknown))}, not a method of the model; "
+            f"the methods are {', '.join(levels)}."
+        )
+    for name, value in costs.items():
+        if isinstance(value, bool) or not (isinstance(value, numbers.Real) and math.isfinite(value) and value > 0):
+            raise DopantgapError(f"--cost: the cost of {name!r} must be a positive number, got {value!r}.")
+    table = surrogate.table_
+    quantities = list(dict.fromkeys(table["quantity"]))
+    if goal == "window":
+        if window is None:
+            raise DopantgapError("--goal window needs --window QUANTITY:LOW:HIGH, e.g. --window E_bind:-1.2:-0.4.")
+        window_quantity, low, high = parse_window(window) if isinstance(window, str) else window
+        low, high = float(low), float(high)
+        if window_quantity not in quantities:
+            raise DopantgapError(
+                f"--window: {window_quantity!r} is not a quantity of the model; "
+                f"choose one of {', '.join(quantities)}."
+            )
+        if not low < high:
+            raise DopantgapError(f"--window: LOW must be below HIGH, got {low} and {high}.")
+        quantities = [window_quantity]
+    elif window is not None:
+        raise DopantgapError("--window is used only by --goal window; add --goal window or drop --window.")
+    if goal == "site":
+        site_qs = site_quantities(table)
+        if not site_qs:
+            raise DopantgapError(
+                "--goal site needs a quantity with two or more sites in a host; the table has "
+                "none. Use --goal table or --goal window."
+            )
+        quantities = [quantity for quantity in quantities if quantity in site_qs]
+    methods = levels if method is None else [method]
+    grid = _grid(surrogate, element_symbols)
+    blocks = _blocks(surrogate, grid, methods, quantities)
+    if goal == "table":
+        rule = _TableGoal(blocks)
+    elif goal == "window":
+        rule = _WindowGoal(blocks, low, high)
+    else:
+        known = surrogate._known(table[list(REQUIRED_COLUMNS)])
+        rule = _SiteGoal(blocks, grid, known, set(site_qs), random_state)
+    # a cell's value and std are reported as they were before any pick
+    summaries = [(block.mean.copy(), np.sqrt(np.clip(np.diag(block.cov), 0.0, None))) for block in blocks]
+    allowed = [
+        rule.candidate_mask(b) if isinstance(rule, _SiteGoal) else np.ones(len(block.cells), dtype=bool)
+        for b, block in enumerate(blocks)
+    ]
+    cell_costs = [
+        np.array([float(costs.get(name, 1.0)) for name in block.cells["method"]]) for block in blocks
+    ]
+    scores = [rule.scores(b) for b in range(len(blocks))]
+    records = []
+    for rank in range(1, count + 1):
+        best = None
+        for b in range(len(blocks)):
+            value = np.where(allowed[b], scores[b] / cell_costs[b], -np.inf)
+            if not len(value):
+                continue
+            cell = int(np.argmax(value))  # first of ties: grid order, deterministic
+            if np.isfinite(value[cell]) and (best is None or value[cell] > best[2]):
+                best = (b, cell, float(value[cell]))
+        if best is None:
+            break
+        b, cell, per_cost = best
+        block = blocks[b]
+        benefit = float(scores[b][cell])
+        row = dict(zip(KEY_COLUMNS, block.cells.loc[cell, list(KEY_COLUMNS)]))
+        row.update(
+            rank=rank,
+            value=float(summaries[b][0][cell]),
+            std=float(summaries[b][1][cell]),
+            cost=float(cell_costs[b][cell]),
+            benefit=benefit,
+            reason=rule.reason(b, cell, benefit),
+            benefit_unit=rule.unit,
+            benefit_per_cost=per_cost,
+            scenario=block.cells.at[cell, "scenario"],
+        )
+        records.append(row)
+        allowed[b][cell] = False
+        rule.picked(b, cell)
+        scores[b] = rule.scores(b)
+    return pd.DataFrame(records, columns=list(PICK_COLUMNS))
