@@ -1,0 +1,184 @@
+"""The HTML report (dopantgap.report, ``dopantgap report``), checked in a real browser.
+
+The report is built once from the shipped model of the INVENTED demo table
+(``models/demo``), with an added radioactive element (Tc), synthetic explanation
+files, a picks file and a campaign folder of the schemas other commands write. It is
+opened in headless Chromium (Debian's package); without Chromium the browser tests
+are skipped, unless DOPANTGAP_REQUIRE_BROWSER=1 (set by CI), when they fail.
+"""
+
+import io
+import os
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import matplotlib.image
+import numpy as np
+import pandas as pd
+import pytest
+from threadpoolctl import threadpool_limits
+
+from dopantgap import report
+from dopantgap.cli import main
+from dopantgap.store import load_model
+
+ROOT = Path(__file__).resolve().parents[2]
+MODEL = ROOT / "models" / "demo"
+TARGET = "ZnS/sub_Zn/hyb/E_sol"
+# the page must travel by e-mail and open from a disk (common practice, no source)
+MAX_BYTES = 10 * 1024 * 1024
+
+
+def _explanations(folder):
+    rng = np.random.default_rng(0)
+    features = ["size_misfit", "electronegativity_difference", "covalent_radius", "period"]
+    shap_values = pd.DataFrame([
+        {"target": TARGET, "element": e, "feature": f, "feature_value": rng.normal(), "shap": rng.normal(0, 0.2)}
+        for e in ("Fe", "Ti", "Tc") for f in features
+    ])
+    importance = (shap_values.assign(importance=shap_values["shap"].abs())
+                  .groupby(["target", "feature"], as_index=False)["importance"].mean())
+    sums = shap_values.groupby(["target", "element"], as_index=False)["shap"].sum()
+    base_values = sums.assign(base_value=2.0, prediction=2.0 + sums["shap"]).drop(columns="shap")
+    folder.mkdir()
+    importance.to_csv(folder / "importance.csv", index=False)
+    shap_values.to_csv(folder / "shap_values.csv", index=False)
+    base_values.to_csv(folder / "base_values.csv", index=False)
+    return folder
+
+
+def _campaign(folder):
+    folder.mkdir()
+    pd.DataFrame([
+        {"strategy": s, "seed": seed, "round": r, "cost_spent": 4.0 * r, "error": 0.3 / (1 + r) + 0.01 * seed,
+         "decided": r}
+        for s in ("random", "spread") for seed in range(2) for r in range(4)
+    ]).to_csv(folder / "curves.csv", index=False)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("report")
+    picks = folder / "next.csv"
+    pd.DataFrame({"element": ["Tc", "Fe"], "host": ["ZnS", "C"], "site": ["sub_Zn", "sub_C"],
+                  "method": ["hyb", "hyb"], "quantity": ["E_sol", "E_sol"], "gain": [0.4, 0.2]}
+                 ).to_csv(picks, index=False)
+    history, curves = report.read_campaign_folder(_campaign(folder / "campaign"))
+    surrogate, manifest = load_model(MODEL)
+    steps = []
+    with threadpool_limits(limits=1):
+        path = report.build_report(
+            surrogate, manifest, folder / "report.html", element_symbols=("Tc",),
+            explanation_dir=_explanations(folder / "explain"), picks=picks, history=history,
+            replay_curves=curves, progress=steps.append, model_dir=MODEL,
+        )
+    return {"path": path, "html": path.read_text(encoding="utf-8"), "steps": steps, "folder": folder}
+
+
+def test_report_is_one_small_self_contained_file(built):
+    path, page = built["path"], built["html"]
+    assert path.stat().st_size < MAX_BYTES
+    # nothing fetched from a network: no http(s) address anywhere, no external resource
+    assert not re.search(r"https?://", page)
+    for attribute in re.findall(r'(?:src|href)="([^"]*)"', page):
+        assert attribute.startswith(("data:image/png;base64,", "#"))
+    assert page.count('src="data:image/png;base64,') >= 10
+    assert [p.name for p in path.parent.iterdir() if p.name.startswith(".report")] == []
+    assert built["steps"] == [1] * report.REPORT_STEPS
+
+
+def test_report_carries_cautions_and_marks_flagged_elements(built):
+    page = built["html"]
+    assert report.CAUTION in page
+    # Tc has no stable isotope (mendeleev is_radioactive); it is listed and tinted
+    assert '<li class="radioactive"><b>Tc</b>: radioactive: no stable isotope</li>' in page
+    assert '<li class="toxic"><b>As</b>' in page
+    assert "INVENTED" in page
+
+
+def test_report_sections(built):
+    page = built["html"]
+    for heading in ("What was done", "What the table covers", "Main columns on the periodic table",
+                    "Site preference", "What drives the predictions", "How well the error bars hold",
+                    "Next calculations", "Campaign", "The filled table"):
+        assert f"<h2>{heading}</h2>" in page
+    assert "17d505e651af21a78d4610faf361fafb24b4e7256cf16b5d9be6d4b37a40b21c" in page  # table hash
+    assert page.count("<tr") > 1368  # every filled cell is a row
+
+
+def test_report_without_explanations_says_how_to_make_them(tmp_path):
+    surrogate, manifest = load_model(MODEL)
+    page = report._explanations(None, ())
+    assert "dopantgap explain" in page and "--explanations" in page
+    assert surrogate.levels_ == manifest["levels"]
+
+
+def test_cli_report_errors_are_one_line(tmp_path, capsys):
+    status = main(["report", str(MODEL), "--out", str(tmp_path / "r.html"),
+                   "--explanations", str(tmp_path / "missing"), "--quiet"])
+    error = capsys.readouterr().err
+    assert status == 2
+    assert error.count("\n") == 1 and "--explanations" in error
+    assert not (tmp_path / "r.html").exists()
+    wrong = tmp_path / "explain"
+    wrong.mkdir()
+    for name in ("importance.csv", "shap_values.csv", "base_values.csv"):
+        (wrong / name).write_text("a,b\n1,2\n", encoding="utf-8")
+    assert main(["report", str(MODEL), "--out", str(tmp_path / "r.html"), "--explanations", str(wrong)]) == 2
+    assert "lacks the column(s)" in capsys.readouterr().err
+    assert main(["report", str(MODEL), "--campaign", str(tmp_path), "--out", str(tmp_path / "r.html")]) == 2
+
+
+# ----------------------------------------------------------------------------- browser
+def _chromium():
+    found = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
+    if found is None:
+        if os.environ.get("DOPANTGAP_REQUIRE_BROWSER") == "1":
+            pytest.fail("DOPANTGAP_REQUIRE_BROWSER=1 but chromium is not installed (apt-get install chromium)")
+        pytest.skip("chromium not installed")
+    return found
+
+
+def _run_browser(chromium, profile, *arguments):
+    command = [
+        chromium, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+        "--disable-background-networking", "--disable-component-update", "--disable-sync",
+        "--disable-extensions", f"--user-data-dir={profile}", "--enable-logging=stderr", "--v=0",
+        *arguments,
+    ]
+    return subprocess.run(command, capture_output=True, text=True, timeout=120, check=False)
+
+
+def _console_errors(stderr):
+    lines = [line for line in stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line]
+    return [line for line in lines if re.search(r"Uncaught|Error", line)]
+
+
+def test_report_loads_in_a_browser_without_script_errors(built, tmp_path):
+    chromium = _chromium()
+    done = _run_browser(chromium, tmp_path / "profile", "--virtual-time-budget=5000", "--dump-dom",
+                        built["path"].as_uri())
+    assert done.returncode == 0, done.stderr[-2000:]
+    dom = done.stdout
+    # the inline script ran to its last line, and the page's headings are in the DOM
+    assert 'data-ready="yes"' in dom
+    assert "<h2>The filled table</h2>" in dom and "<h2>Site preference</h2>" in dom
+    assert _console_errors(done.stderr) == []
+
+
+def test_report_screenshot_is_not_blank(built, tmp_path):
+    chromium = _chromium()
+    shot = tmp_path / "shot.png"
+    done = _run_browser(chromium, tmp_path / "profile", f"--screenshot={shot}", "--window-size=1280,2000",
+                        "--hide-scrollbars", built["path"].as_uri())
+    assert done.returncode == 0 and shot.is_file(), done.stderr[-2000:]
+    image = matplotlib.image.imread(io.BytesIO(shot.read_bytes()), format="png")[..., :3]
+    assert image.shape[:2] == (2000, 1280)
+    grey = image.mean(axis=2)
+    # a rendered page: dark header band, light body, text and figures in between
+    assert grey.std() > 0.05
+    assert grey[:40].mean() < 0.4 < grey[300:].mean()
+    assert len(np.unique(np.round(grey, 2))) > 20
