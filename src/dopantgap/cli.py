@@ -78,6 +78,133 @@ def _build_parser():
     )
     fill.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
+    pick = commands.add_parser(
+        "next",
+        help="rank the missing cells worth calculating next",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        description=(
+            "Rank cells not yet computed by what calculating them would teach, per unit\n"
+            "cost. The K picks are chosen as a batch: after each pick its result is taken\n"
+            "as known at the predicted mean and the others are scored again.\n\n"
+            "goals:\n"
+            "  table   expected drop of the predictive variance (eV^2) summed over every\n"
+            "          missing cell of the method(s): sum_j C[j,i]^2 / C[i,i] for the joint\n"
+            "          calibrated covariance C (Rasmussen & Williams 2006, eq. 2.24)\n"
+            "  site    expected drop of the entropy (bits) of which site is lowest, for\n"
+            "          the candidate's element and host\n"
+            "  window  expected drop of the binary entropy (bits) of 'value inside\n"
+            "          LOW..HIGH eV', summed over the missing cells of QUANTITY\n"
+            "benefit / cost ranks; costs per method default to 1."
+        ),
+    )
+    pick.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
+    pick.add_argument("--out", required=True, metavar="NEXT.csv", help="ranked picks to write")
+    pick.add_argument("--count", default="5", metavar="K", help="number of picks (default: 5)")
+    pick.add_argument(
+        "--goal", default=None, metavar="table|site|window",
+        help="acquisition rule (default: table; window when --window is given)",
+    )
+    pick.add_argument(
+        "--method", default=None, metavar="NAME",
+        help="propose and count only this method's cells (default: every method's)",
+    )
+    pick.add_argument(
+        "--cost", default=None, metavar="gga=1,hyb=30",
+        help="cost of one calculation per method (default: 1 each)",
+    )
+    pick.add_argument(
+        "--window", default=None, metavar="QUANTITY:LOW:HIGH",
+        help="window of the window goal in eV, e.g. E_bind:-1.2:-0.4",
+    )
+    pick.add_argument(
+        "--elements", default=None, metavar="Ti,V,Cr",
+        help="elements to add to those of the table, comma-separated",
+    )
+    pick.add_argument("--seed", type=int, default=0, help="seed of the site goal's draws (default: 0)")
+    pick.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    explain = commands.add_parser(
+        "explain", help="SHAP values of the model's columns and site choices in element descriptors"
+    )
+    explain.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
+    explain.add_argument("--out", required=True, metavar="DIR", help="folder for the CSV files and figures")
+    explain.add_argument(
+        "--elements", default=None, metavar="Ti,V,Cr",
+        help="elements to break down (default: the table's first 3); new elements are explained too",
+    )
+    explain.add_argument("--seed", type=int, default=0, help="seed of the background sample (default: 0)")
+    explain.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    add = commands.add_parser(
+        "add", help="merge new results into the table, with provenance; optionally record a campaign round"
+    )
+    add.add_argument("table", metavar="TABLE", help="the table so far (CSV or XLSX)")
+    add.add_argument("results", metavar="RESULTS.csv", help="new computed cells, long layout")
+    add.add_argument("--out", required=True, metavar="NEW_TABLE.csv", help="merged table to write")
+    add.add_argument(
+        "--source", default=None, metavar="LABEL",
+        help="provenance of the new rows (default: the results file's name; 'round K' with --campaign)",
+    )
+    add.add_argument(
+        "--campaign", default=None, metavar="DIR",
+        help="campaign folder: record this round in DIR/round_K (table, results, picks, metrics)",
+    )
+    add.add_argument("--picks", default=None, metavar="NEXT.csv", help="the picks of this round, kept in the round folder")
+    add.add_argument(
+        "--model", default=None, metavar="MODEL_DIR",
+        help="with --campaign: record predicted uncertainty and decided sites of the round (model relearned on it)",
+    )
+    add.add_argument("--cost", default=None, metavar="gga=1,hyb=30", help="cost of one cell per method (default: 1 each)")
+    add.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    history = commands.add_parser("history", help="how uncertainty and decided site preferences evolved per round")
+    history.add_argument("campaign", metavar="CAMPAIGN_DIR", help="campaign folder written by 'add --campaign'")
+    history.add_argument("--out", default=None, metavar="history.png", help="figure to write")
+    history.add_argument(
+        "--model", default=None, metavar="MODEL_DIR",
+        help="compute the figures of rounds recorded without a model",
+    )
+
+    replay = commands.add_parser(
+        "replay",
+        help="on a completed table, replay picks against random ones and write learning curves",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        description=(
+            "Hide part of a completed table (the --method level of all but a seeded\n"
+            "--keep-fraction of the elements that have it), learn the rest, and reveal\n"
+            "hidden cells round by round: the picker's picks, and random picks among the\n"
+            "same hidden cells for several seeds. Writes curves.csv, summary.csv, picks.csv,\n"
+            "hidden.csv, settings.json and learning_curves.png into --out."
+        ),
+    )
+    add_table_options(replay)
+    replay.add_argument("--goal", default="table", metavar="table[,site,window]", help="picker goal(s) (default: table)")
+    replay.add_argument("--rounds", default="4", metavar="R", help="rounds (default: 4)")
+    replay.add_argument("--per-round", default="5", metavar="K", help="cells revealed per round (default: 5)")
+    replay.add_argument("--method", default=None, metavar="NAME", help="level hidden and picked (default: the most expensive)")
+    replay.add_argument("--cost", default=None, metavar="gga=1,hyb=30", help="cost of one cell per method (default: 1 each)")
+    replay.add_argument("--seeds", default="5", metavar="N", help="random-pick seeds (default: 5)")
+    replay.add_argument("--seed", default="0", metavar="N", help="seed of the hiding, fit and picks (default: 0)")
+    replay.add_argument(
+        "--keep-fraction", default="0.2", metavar="F",
+        help="share of elements whose --method cells stay visible (default: 0.2)",
+    )
+    replay.add_argument(
+        "--learner", choices=("auto", "gp", "boost"), default="auto", help="learner of the surrogate (default: auto)"
+    )
+    replay.add_argument("--window", default=None, metavar="QUANTITY:LOW:HIGH", help="window of the window goal, eV")
+    replay.add_argument("--out", default="replay", metavar="DIR", help="folder for the files (default: replay)")
+    replay.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    report = commands.add_parser("report", help="write one self-contained HTML page about a model")
+    report.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
+    report.add_argument("--out", default="report.html", metavar="REPORT.html", help="page to write (default: report.html)")
+    report.add_argument("--elements", default=None, metavar="Ti,V,Cr", help="elements to add to those of the table")
+    report.add_argument("--explanations", default=None, metavar="DIR", help="folder written by 'explain'")
+    report.add_argument("--picks", default=None, metavar="NEXT.csv", help="picks written by 'next'")
+    report.add_argument("--campaign", default=None, metavar="DIR", help="campaign folder or replay folder")
+    report.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
     demo = commands.add_parser("demo", help="run the whole job on an invented table")
     demo.add_argument("--out", default="dopantgap_demo", metavar="DIR", help="folder for the demo's files")
     return parser
@@ -172,6 +299,129 @@ def _command_fill(arguments, say):
     say(_CAUTION)
 
 
+def _command_next(arguments, say):
+    from dopantgap.fill import parse_element_list, unfamiliar_elements
+    from dopantgap.picker import parse_cost, parse_window, pick_next
+    from dopantgap.store import load_model
+    from dopantgap import elements
+    from dopantgap.table import write_table
+
+    extra = parse_element_list(arguments.elements) if arguments.elements else []
+    costs = parse_cost(arguments.cost)
+    window = parse_window(arguments.window) if arguments.window is not None else None
+    goal = arguments.goal if arguments.goal is not None else ("window" if window else "table")
+    surrogate, _manifest = load_model(arguments.model)
+    picks = pick_next(
+        surrogate,
+        count=arguments.count,
+        goal=goal,
+        method=arguments.method,
+        cost=costs,
+        window=window,
+        element_symbols=extra,
+        random_state=arguments.seed,
+    )
+    write_table(picks, arguments.out)
+    if len(picks) == 0:
+        say(f"No missing cell to propose for goal {goal}: every candidate cell is computed -> {arguments.out}")
+    else:
+        unit = picks["benefit_unit"].iat[0]
+        say(f"{len(picks)} picks for goal {goal} (benefit in {unit}, ranked by benefit / cost) -> {arguments.out}")
+        say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
+            f"{'value eV':>9} {'std':>5} {'cost':>5} {'benefit':>8}  reason")
+        for row in picks.itertuples(index=False):
+            say(f"  {row.rank:>2} {row.element:<7} {row.host:<6} {row.site:<12} {row.method:<6} "
+                f"{row.quantity:<8} {row.value:>9.3f} {row.std:>5.2f} {row.cost:>5g} {row.benefit:>8.3f}  {row.reason}")
+    table_elements = set(surrogate.table_["element"])
+    for symbol in extra:
+        if symbol not in table_elements:
+            say(f"note: {symbol} has no computed cell: its values are new-element estimates with wide intervals.")
+    for symbol, block in unfamiliar_elements(surrogate, extra).items():
+        say(
+            f"caution: {symbol} is in the {block} block and the table has no element there: its "
+            f"estimates are extrapolations far outside the training data."
+        )
+    shown = list(dict.fromkeys(list(picks["element"]) + extra))
+    if shown:
+        flags = elements.element_flags(shown)
+        for symbol in shown:
+            if flags.at[symbol, "note"]:
+                say(f"caution: {symbol}: {flags.at[symbol, 'note']}")
+    say(_CAUTION)
+
+
+def _command_explain(arguments, say):
+    from dopantgap import elements
+    from dopantgap.explain import explain_model, write_explanation, write_figures
+    from dopantgap.fill import parse_element_list, unfamiliar_elements
+    from dopantgap.progress import bar
+    from dopantgap.store import load_model
+
+    asked = parse_element_list(arguments.elements) if arguments.elements else []
+    surrogate, _manifest = load_model(arguments.model)
+    table_symbols = list(dict.fromkeys(surrogate.table_["element"]))
+    shown = asked or table_symbols[:3]
+    n_elements = len(dict.fromkeys(table_symbols + asked))
+    started = time.perf_counter()
+    with bar(n_elements, "explain", quiet=arguments.quiet) as progress:
+        explanation = explain_model(
+            surrogate, element_symbols=asked, random_state=arguments.seed, progress=progress
+        )
+    explained = time.perf_counter() - started
+    out = Path(arguments.out)
+    write_explanation(explanation, out)
+    n_targets = len(explanation.targets)
+    with bar(n_targets, "figures", quiet=arguments.quiet) as progress:
+        write_figures(explanation, out, shown, progress=progress)
+    say(
+        f"{n_targets} targets explained for {n_elements} elements in {explained:.0f} s "
+        f"(background: {len(explanation.background)} elements of the table); CSV files, "
+        f"summary_*.png and breakdown_*.png of {', '.join(shown)} -> {out} "
+        f"({time.perf_counter() - started:.0f} s in all)"
+    )
+    choices = explanation.targets[explanation.targets["kind"] == "site-choice"]["target"]
+    listed = list(choices) if len(choices) else list(explanation.targets["target"])
+    say("Largest mean |SHAP| (eV) per target:" if listed else "No target to explain.")
+    for target in listed[:12]:
+        top = explanation.importance[explanation.importance["target"] == target].head(3)
+        say(f"  {target}: " + ", ".join(f"{f} {v:.2f}" for f, v in zip(top["feature"], top["importance"])))
+    if len(listed) > 12:
+        say(f"  ... {len(listed) - 12} more in {out / 'importance.csv'}")
+    for symbol, block in unfamiliar_elements(surrogate, asked).items():
+        say(
+            f"caution: {symbol} is in the {block} block and the table has no element there: its "
+            f"explanation describes an extrapolation far outside the training data."
+        )
+    notes = elements.element_flags(shown)["note"]
+    for symbol, note in notes.items():
+        if note:
+            say(f"caution: {symbol}: {note}")
+    say(_CAUTION)
+
+
+def _command_report(arguments, say):
+    from dopantgap.fill import parse_element_list
+    from dopantgap.progress import bar
+    from dopantgap.report import REPORT_STEPS, build_report, read_campaign_folder
+    from dopantgap.store import load_model
+
+    extra = parse_element_list(arguments.elements) if arguments.elements else []
+    started = time.perf_counter()
+    surrogate, manifest = load_model(arguments.model)
+    history = replay_curves = None
+    if arguments.campaign:
+        history, replay_curves = read_campaign_folder(arguments.campaign, surrogate=surrogate)
+    with bar(REPORT_STEPS, "report", quiet=arguments.quiet) as progress:
+        path = build_report(
+            surrogate, manifest, arguments.out, element_symbols=extra,
+            explanation_dir=arguments.explanations, picks=arguments.picks, history=history,
+            replay_curves=replay_curves, progress=progress, model_dir=arguments.model,
+        )
+    size = path.stat().st_size / 1e6
+    say(f"Report written: {path} ({size:.1f} MB, {time.perf_counter() - started:.1f} s); open it in a browser.")
+    say(_CAUTION)
+
+
 def _command_demo(arguments, say):
     from dopantgap.demo import run_demo
 
@@ -180,11 +430,123 @@ def _command_demo(arguments, say):
     say(f"Demo finished in {time.perf_counter() - started:.0f} s; files in {arguments.out}")
 
 
+def _campaign_number(text, option, minimum, kind=int):
+    """A whole (or real) number option, refused with a one-line message."""
+    try:
+        value = kind(str(text).strip())
+    except ValueError:
+        value = None
+    if value is None or value < minimum:
+        shown = "whole number" if kind is int else "number"
+        raise DopantgapError(f"{option} must be a {shown} of at least {minimum}, got {text!r}.")
+    return value
+
+
+def _command_add(arguments, say):
+    from dopantgap.campaign import add_results, add_to_campaign
+    from dopantgap.picker import parse_cost
+    from dopantgap.table import read_table, write_table
+
+    cost = parse_cost(arguments.cost) if arguments.cost else None
+    if arguments.campaign is None and (arguments.picks or arguments.model):
+        raise DopantgapError("--picks and --model are kept in a campaign folder; add --campaign DIR.")
+    table = read_table(arguments.table)
+    results = read_table(arguments.results)
+    for notice in table.attrs.get("notices", []) + results.attrs.get("notices", []):
+        say(f"note: {notice}")
+    table.attrs["notices"] = []
+    if arguments.campaign is None:
+        merged = add_results(table, results, source=arguments.source)
+        write_table(merged, arguments.out)
+        round_dir = None
+    else:
+        surrogate = None
+        if arguments.model:
+            from dopantgap.store import load_model
+
+            surrogate, _manifest = load_model(arguments.model)
+        merged, round_dir = add_to_campaign(
+            arguments.campaign, table, results, source=arguments.source, picks_path=arguments.picks,
+            surrogate=surrogate, model_label=arguments.model, cost=cost, out_path=arguments.out,
+        )
+    for notice in merged.attrs.get("notices", []):
+        say(f"note: {notice}")
+    label = merged["source"].iat[-1] if merged.attrs["n_added"] else arguments.source or "-"
+    say(
+        f"{merged.attrs['n_added']} new cells added (source {label!r}) to {len(table)} earlier rows, "
+        f"which are unchanged -> {arguments.out}"
+    )
+    if round_dir is not None:
+        say(f"Round recorded: {round_dir}")
+
+
+def _command_history(arguments, say):
+    from dopantgap.campaign import campaign_history, history_costs_are_counts, history_text
+
+    surrogate = None
+    if arguments.model:
+        from dopantgap.store import load_model
+
+        surrogate, _manifest = load_model(arguments.model)
+    history = campaign_history(arguments.campaign, surrogate=surrogate)
+    say(history_text(history).rstrip("\n"))
+    if arguments.out:
+        from dopantgap import plots
+
+        unit = "calculations" if history_costs_are_counts(arguments.campaign) else "cost units"
+        plots.save_png(plots.history_figure(history, cost_unit=unit), arguments.out)
+        say(f"Figure -> {arguments.out}")
+
+
+def _command_replay(arguments, say):
+    from dopantgap.picker import parse_cost
+    from dopantgap.replay import replay, replay_text, write_replay
+    from dopantgap.surrogate import Surrogate
+    from dopantgap.table import read_table
+
+    rounds = _campaign_number(arguments.rounds, "--rounds", 1)
+    per_round = _campaign_number(arguments.per_round, "--per-round", 1)
+    seeds = _campaign_number(arguments.seeds, "--seeds", 1)
+    seed = _campaign_number(arguments.seed, "--seed", 0)
+    keep = _campaign_number(arguments.keep_fraction, "--keep-fraction", 0.0, kind=float)
+    goals = [goal.strip() for goal in arguments.goal.split(",") if goal.strip()]
+    cost = parse_cost(arguments.cost) if arguments.cost else None
+    table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
+    for notice in table.attrs.get("notices", []):
+        say(f"note: {notice}")
+    estimator = Surrogate(learner=arguments.learner, random_state=seed)
+    total = 1 + rounds * (len(goals) + seeds)
+    try:
+        from dopantgap.progress import bar
+    except ImportError:
+        bar = None
+    say(f"Replaying {rounds} rounds of {per_round} picks on {len(table)} cells ...")
+    if bar is None:
+        result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
+                        cost=cost, n_random_seeds=seeds, random_state=seed, keep_fraction=keep,
+                        window=arguments.window, estimator=estimator)
+    else:
+        with bar(total, "replay", quiet=arguments.quiet) as progress:
+            result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
+                            cost=cost, n_random_seeds=seeds, random_state=seed, progress=progress,
+                            keep_fraction=keep, window=arguments.window, estimator=estimator)
+    paths = write_replay(result, arguments.out)
+    say(replay_text(result).rstrip("\n"))
+    say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths.values())}")
+    say("A replay measures the picker on this one table; other tables may gain more or less.")
+
+
 _COMMANDS = {
     "check": _command_check,
     "fit": _command_fit,
     "fill": _command_fill,
+    "next": _command_next,
+    "explain": _command_explain,
     "demo": _command_demo,
+    "add": _command_add,
+    "history": _command_history,
+    "replay": _command_replay,
+    "report": _command_report,
 }
 
 

@@ -1,0 +1,518 @@
+"""Replay a finished campaign: would the picker have found the answers sooner than chance?
+
+On a table the user has already completed, part of it is hidden, a surrogate learns
+the rest, and calculations are "run" round by round by revealing hidden values: once
+with the cells the picker (:func:`dopantgap.picker.pick_next`) proposes, and with
+cells drawn at random among the same candidates, for several seeds. The learning
+curves show how fast each strategy brings the hidden cells within reach.
+
+Hiding rule
+-----------
+It mimics a real campaign: the cheap level is known everywhere, the expensive level
+for a few elements. With ``method`` the level replayed (default the most costly in ``cost``;
+without costs the last of :func:`dopantgap.surrogate.order_levels`): a seeded ``keep_fraction``
+(default 20 %, at least 2 and at most all but one) of the elements that have cells of
+``method`` keep them visible; the ``method`` cells of every other element are hidden.
+Cells of every other method stay visible. The candidates of both strategies are the
+hidden cells (and only those: a cell the completed table lacks cannot be revealed);
+the picker sees only the visible table, plus the names of elements whose every cell is
+hidden (``element_symbols``), and its picks are filtered to revealable cells.
+
+Rounds
+------
+The surrogate is fitted once on the visible table; after each round it is relearned
+with :meth:`Surrogate.refreshed` on the grown table (hyperparameters and calibration
+kept), for the picker's next round and for the figures.
+
+Figures per strategy, seed and round (``curves``)
+--------------------------------------------------
+``n_revealed`` and ``cost_spent`` (cost per cell of ``method``, default 1);
+``error``: mean absolute error (eV) of the predicted values of the hidden cells not
+yet revealed, against the completed table; ``rmse`` likewise; ``mean_std``: their mean
+calibrated predicted std; ``decided``: number of site questions (element, host,
+quantity with two or more sites, at ``method``, all sites in the completed table)
+whose most probable lowest site has ``p_lowest > 0.9`` and is the completed table's
+lowest; ``decided_wrong``: those above 0.9 that name another site. Round 0 is the
+start, the same for every strategy. The picker's rows have ``seed`` 0; the random
+rows have the seed number ``s`` of their generator ``numpy.random.default_rng((random_state, s))``.
+
+Summary
+-------
+For each picker goal and figure (``error``: lower is better, ``decided``: higher is
+better): the picker's final figure, the median over random seeds after the same
+number of picks, their ratio, and "calculations saved": the number of picks the
+random median curve needs to reach the picker's final figure (linear interpolation
+between rounds, first crossing) minus the picker's number of picks. When random never
+reaches it within the replay the saving is not known (NaN, at least 0; see ``note``).
+"""
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from sklearn.base import clone
+
+from dopantgap.atomic import write_text_atomic
+from dopantgap.campaign import DECIDED_PROBABILITY
+from dopantgap.errors import DopantgapError
+from dopantgap.sites import site_preference, site_quantities
+from dopantgap.surrogate import Surrogate, order_levels
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
+
+__all__ = [
+    "CURVE_COLUMNS",
+    "SUMMARY_COLUMNS",
+    "ReplayResult",
+    "hide_cells",
+    "random_picks",
+    "replay",
+    "replay_text",
+    "savings",
+    "write_replay",
+]
+
+CURVE_COLUMNS = (
+    "strategy", "seed", "round", "n_revealed", "cost_spent", "error", "rmse", "mean_std",
+    "decided", "decided_wrong", "n_site_questions", "n_hidden_left",
+)
+SUMMARY_COLUMNS = (
+    "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
+    "ratio", "random_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "note",
+)
+RANDOM = "random"
+_KEEP_MIN_ELEMENTS = 2
+
+
+@dataclass
+class ReplayResult:
+    """What :func:`replay` found.
+
+    Attributes
+    ----------
+    curves : DataFrame
+        ``CURVE_COLUMNS``, one row per strategy, seed and round (module docstring).
+    summary : DataFrame
+        ``SUMMARY_COLUMNS``, one row per picker goal and figure.
+    picks : DataFrame
+        Every revealed cell: strategy, seed, round, the cell and its value.
+    hidden : DataFrame
+        The cells hidden at the start (cell and value).
+    settings : dict
+        The arguments, and the counts of visible and hidden cells.
+    """
+
+    curves: pd.DataFrame
+    summary: pd.DataFrame
+    picks: pd.DataFrame
+    hidden: pd.DataFrame
+    settings: dict = field(default_factory=dict)
+
+
+def _whole(value, name, minimum):
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
+        raise DopantgapError(f"{name} must be a whole number of at least {minimum}, got {value!r}.")
+    return int(value)
+
+
+def hide_cells(table, method=None, keep_fraction=0.2, random_state=0, levels=None):
+    """Split a completed table into what the replay starts from and what it hides.
+
+    Parameters
+    ----------
+    table : DataFrame
+        The completed long table.
+    method : str or None, default=None
+        Level replayed; None: the most expensive (``order_levels(table, levels)``).
+    keep_fraction : float, default=0.2
+        Share of the elements with ``method`` cells that keep them visible.
+    random_state : int, default=0
+    levels : sequence of str or None, default=None
+        Methods cheapest first, as for ``Surrogate(levels=...)``.
+
+    Returns
+    -------
+    visible : DataFrame
+        Rows of ``table`` left visible (all columns, in table order).
+    hidden : DataFrame
+        The hidden rows (all columns, in table order).
+    method : str
+    """
+    methods = order_levels(table, levels)
+    if method is None:
+        method = methods[-1]
+    if method not in methods:
+        raise DopantgapError(f"--method: {method!r} is not a method of the table; choose one of {', '.join(methods)}.")
+    if not 0.0 < float(keep_fraction) < 1.0:
+        raise DopantgapError(f"--keep-fraction must lie strictly between 0 and 1 (e.g. 0.2), got {keep_fraction}.")
+    with_method = sorted(set(table.loc[table["method"] == method, "element"]))
+    if len(with_method) < _KEEP_MIN_ELEMENTS + 1:
+        raise DopantgapError(
+            f"the table has {method!r} cells for {len(with_method)} element(s); a replay needs at least "
+            f"{_KEEP_MIN_ELEMENTS + 1} (some kept to learn from, some hidden to reveal)."
+        )
+    n_keep = int(round(float(keep_fraction) * len(with_method)))
+    n_keep = min(max(n_keep, _KEEP_MIN_ELEMENTS), len(with_method) - 1)
+    rng = np.random.default_rng(random_state)
+    kept = set(rng.choice(with_method, size=n_keep, replace=False).tolist())
+    is_hidden = ((table["method"] == method) & ~table["element"].isin(kept)).to_numpy()
+    return table[~is_hidden], table[is_hidden], method
+
+
+def _site_truth(completed, method, quantities):
+    """(element, host, quantity) -> lowest site of the completed table at ``method``,
+    for the questions whose every site of the host is in the completed table."""
+    rows = completed[(completed["method"] == method) & completed["quantity"].isin(quantities)]
+    truth = {}
+    for quantity in quantities:
+        part = rows[rows["quantity"] == quantity]
+        for host, host_rows in part.groupby("host", sort=False):
+            sites = set(host_rows["site"])
+            if len(sites) < 2:
+                continue
+            for element, cells in host_rows.groupby("element", sort=False):
+                if set(cells["site"]) == sites:
+                    truth[(element, host, quantity)] = cells["site"].iat[int(np.argmin(cells["value"].to_numpy()))]
+    return truth
+
+
+class _Scorer:
+    """The figures of one round, for a surrogate and the hidden cells still hidden."""
+
+    def __init__(self, completed, method, random_state):
+        self.method = method
+        self.random_state = random_state
+        self.symbols = list(dict.fromkeys(completed["element"]))
+        self.quantities = site_quantities(completed)
+        self.truth = _site_truth(completed, method, self.quantities)
+
+    def __call__(self, surrogate, remaining):
+        figures = {"error": np.nan, "rmse": np.nan, "mean_std": np.nan}
+        if len(remaining):
+            predicted = surrogate.predict(remaining[list(KEY_COLUMNS)])
+            difference = predicted["value"].to_numpy() - remaining["value"].to_numpy()
+            figures["error"] = float(np.mean(np.abs(difference)))
+            figures["rmse"] = float(np.sqrt(np.mean(difference**2)))
+            figures["mean_std"] = float(predicted["std"].mean())
+        decided = wrong = 0
+        if self.truth:
+            quantities = sorted({quantity for _e, _h, quantity in self.truth})
+            preference = site_preference(
+                surrogate, element_symbols=self.symbols, quantities=quantities, random_state=self.random_state
+            )
+            best = preference[(preference["rank"] == 1) & (preference["method"] == self.method)]
+            for element, host, quantity, site, p_lowest in best[
+                ["element", "host", "quantity", "site", "p_lowest"]
+            ].itertuples(index=False, name=None):
+                key = (element, host, quantity)
+                if key in self.truth and p_lowest > DECIDED_PROBABILITY:
+                    if site == self.truth[key]:
+                        decided += 1
+                    else:
+                        wrong += 1
+        figures.update(decided=decided, decided_wrong=wrong, n_site_questions=len(self.truth))
+        return figures
+
+
+def _tick(progress):
+    if progress is None:
+        return
+    update = getattr(progress, "update", None)
+    (update if callable(update) else progress)(1)
+
+
+def random_picks(n_candidates, count, rng):
+    """Positions of ``count`` of ``n_candidates`` candidates, drawn uniformly without
+    replacement (every subset equally likely), in increasing order.
+
+    Parameters
+    ----------
+    n_candidates, count : int
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    list of int
+    """
+    return sorted(rng.choice(n_candidates, size=count, replace=False).tolist())
+
+
+def _picker_choice(surrogate, remaining, count, goal, method, cost, window, element_symbols, random_state):
+    """Positions in ``remaining`` of the picker's first ``count`` revealable picks."""
+    from dopantgap.picker import pick_next
+
+    position = {key: i for i, key in enumerate(remaining[list(KEY_COLUMNS)].itertuples(index=False, name=None))}
+    computed = set(surrogate.table_[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+    asked = count
+    while True:
+        picks = pick_next(
+            surrogate, count=asked, goal=goal, method=method, cost=cost, window=window,
+            element_symbols=element_symbols, random_state=random_state,
+        )
+        keys = list(picks[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+        if any(key in computed for key in keys):
+            # the picker's contract: never a computed cell; a breach would reveal a visible cell
+            raise RuntimeError("pick_next proposed a computed cell")
+        chosen = [position[key] for key in keys if key in position][:count]
+        # fewer picks than asked: the picker has no candidate left
+        if len(chosen) == count or len(picks) < asked:
+            return chosen
+        asked *= 2
+
+
+def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, method, cost_per_cell,
+                  cost, window, element_symbols, scorer, random_state, progress):
+    curves, revealed = [], []
+    grown = visible
+    remaining = hidden.reset_index(drop=True)
+    surrogate = base
+    rng = np.random.default_rng((random_state, seed))
+    figures = scorer(surrogate, remaining)
+    n_revealed = 0
+    curves.append({"strategy": strategy, "seed": seed, "round": 0, "n_revealed": 0, "cost_spent": 0.0,
+                   **figures, "n_hidden_left": len(remaining)})
+    for round_number in range(1, rounds + 1):
+        count = min(per_round, len(remaining))
+        if count == 0:
+            _tick(progress)
+            continue
+        if strategy == RANDOM:
+            chosen = random_picks(len(remaining), count, rng)
+        else:
+            symbols = [s for s in element_symbols if s not in set(grown["element"])]
+            chosen = _picker_choice(surrogate, remaining, count, strategy, method, cost, window,
+                                    symbols, random_state)
+        if not chosen:
+            _tick(progress)
+            continue
+        picked = remaining.iloc[chosen]
+        part = picked[list(REQUIRED_COLUMNS)].copy()
+        part.insert(0, "round", round_number)
+        part.insert(0, "seed", seed)
+        part.insert(0, "strategy", strategy)
+        revealed.append(part)
+        grown = pd.concat([grown, picked], ignore_index=True)
+        remaining = remaining.drop(index=remaining.index[chosen]).reset_index(drop=True)
+        n_revealed += len(chosen)
+        surrogate = base.refreshed(grown)
+        figures = scorer(surrogate, remaining)
+        curves.append({"strategy": strategy, "seed": seed, "round": round_number, "n_revealed": n_revealed,
+                       "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
+        _tick(progress)
+    return curves, revealed
+
+
+def _crossing(n_picks, figures, target, higher_is_better):
+    """Picks at which a curve first reaches ``target`` (linear interpolation), or NaN."""
+    reached = figures >= target if higher_is_better else figures <= target
+    if not reached.any():
+        return math.nan
+    first = int(np.argmax(reached))
+    if first == 0:
+        return float(n_picks[0])
+    x0, x1 = float(n_picks[first - 1]), float(n_picks[first])
+    y0, y1 = float(figures[first - 1]), float(figures[first])
+    if y1 == y0:
+        return x1
+    return x0 + (target - y0) * (x1 - x0) / (y1 - y0)
+
+
+def savings(curves, goal, metric, cost_per_cell=1.0):
+    """Calculations saved by a picker goal against the random median, for one figure.
+
+    Parameters
+    ----------
+    curves : DataFrame
+        ``ReplayResult.curves``.
+    goal : str
+        Picker strategy (a goal name).
+    metric : {"error", "decided"}
+    cost_per_cell : float, default=1.0
+
+    Returns
+    -------
+    dict
+        One ``SUMMARY_COLUMNS`` row (``method`` left blank).
+    """
+    higher = metric == "decided"
+    picker = curves[curves["strategy"] == goal].sort_values("round")
+    randoms = curves[curves["strategy"] == RANDOM]
+    median = randoms.groupby("round")[[metric, "n_revealed"]].median().sort_index()
+    final = picker.iloc[-1]
+    picks = int(final["n_revealed"])
+    random_final = float(median.loc[final["round"], metric]) if final["round"] in median.index else math.nan
+    picker_final = float(final[metric])
+    ratio = picker_final / random_final if random_final not in (0.0,) and not math.isnan(random_final) else math.nan
+    needed = _crossing(median["n_revealed"].to_numpy(float), median[metric].to_numpy(float), picker_final, higher)
+    note = ""
+    if math.isnan(needed):
+        note = f"random did not reach the picker's final {metric} within {int(median['n_revealed'].max())} picks: saving unknown, at least 0"
+    saved = needed - picks
+    return {
+        "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
+        "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
+        "random_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
+        "n_random_seeds": int(randoms["seed"].nunique()), "note": note,
+    }
+
+
+def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,
+           random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None):
+    """Replay a completed table: the picker's rounds against random picks.
+
+    Parameters
+    ----------
+    table : DataFrame
+        The completed long table (``read_table`` output).
+    goal : str or sequence of str, default="table"
+        Picker goal(s) (``picker.GOALS``); each is replayed as a strategy of its own.
+    rounds : int, default=4
+    per_round : int, default=5
+        Cells revealed per round by every strategy.
+    method : str or None, default=None
+        Level replayed (hidden and picked); None: the most costly in ``cost``, or
+        without ``cost`` the last of ``order_levels`` (the least computed; on a
+        completed table with equal counts, the last by name: give ``method`` or ``cost``).
+    cost : dict or None, default=None
+        Method -> cost of one cell (``picker.parse_cost`` output); None: 1 each. The
+        picker sees it; ``cost_spent`` uses the cost of ``method``.
+    n_random_seeds : int, default=5
+    random_state : int, default=0
+        Seed of the hiding, the fit, the picker and the random draws.
+    progress : object or None, default=None
+        Told ``update(1)`` after the fit and after each strategy round (``progress.bar``).
+    keep_fraction : float, default=0.2
+        See ``hide_cells``.
+    window : tuple or str or None, default=None
+        For the window goal (``picker.parse_window``).
+    estimator : Surrogate or None, default=None
+        Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+
+    Returns
+    -------
+    ReplayResult
+    """
+    goals = [goal] if isinstance(goal, str) else list(goal)
+    from dopantgap.picker import GOALS
+
+    for name in goals:
+        if name not in GOALS:
+            raise DopantgapError(f"--goal: {name!r} is not a goal; choose from {', '.join(GOALS)}.")
+    if not goals or len(set(goals)) != len(goals):
+        raise DopantgapError("--goal: give one or more different goals, e.g. --goal table,site.")
+    rounds = _whole(rounds, "--rounds", 1)
+    per_round = _whole(per_round, "--per-round", 1)
+    n_random_seeds = _whole(n_random_seeds, "--seeds", 1)
+    cost = {} if cost is None else dict(cost)
+    estimator = Surrogate(random_state=random_state) if estimator is None else clone(estimator)
+    unknown = [name for name in cost if name not in set(table["method"])]
+    if unknown:
+        raise DopantgapError(f"--cost names {', '.join(map(repr, unknown))}, not a method of the table.")
+    if method is None and cost:
+        # a completed table has as many cells at every level: its counts cannot tell the
+        # expensive one, the costs can
+        ordered = order_levels(table, estimator.levels)
+        method = max(ordered, key=lambda name: (float(cost.get(name, 1.0)), ordered.index(name)))
+    visible, hidden, method = hide_cells(table, method, keep_fraction, random_state, levels=estimator.levels)
+    cost_per_cell = float(cost.get(method, 1.0))
+    element_symbols = [s for s in dict.fromkeys(table["element"]) if s not in set(visible["element"])]
+    base = estimator.fit(visible.reset_index(drop=True))
+    _tick(progress)
+    scorer = _Scorer(table, method, random_state)
+    strategies = [(name, 0) for name in goals] + [(RANDOM, seed) for seed in range(n_random_seeds)]
+    curves, revealed = [], []
+    for strategy, seed in strategies:
+        part_curves, part_revealed = _run_strategy(
+            strategy, seed, base, visible.reset_index(drop=True), hidden, rounds, per_round, method,
+            cost_per_cell, cost, window, element_symbols, scorer, random_state, progress,
+        )
+        curves += part_curves
+        revealed += part_revealed
+    curves = pd.DataFrame(curves, columns=list(CURVE_COLUMNS))
+    picks_columns = ["strategy", "seed", "round"] + list(REQUIRED_COLUMNS)
+    picks = pd.concat(revealed, ignore_index=True) if revealed else pd.DataFrame(columns=picks_columns)
+    rows = []
+    for name in goals:
+        for metric in ("error", "decided"):
+            row = savings(curves, name, metric, cost_per_cell)
+            row["method"] = method
+            rows.append(row)
+    summary = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
+    settings = {
+        "goals": goals, "rounds": rounds, "per_round": per_round, "method": method,
+        "cost": {str(k): float(v) for k, v in cost.items()}, "n_random_seeds": n_random_seeds,
+        "random_state": int(random_state), "keep_fraction": float(keep_fraction),
+        "window": None if window is None else list(window) if not isinstance(window, str) else window,
+        "n_visible": int(len(visible)), "n_hidden": int(len(hidden)),
+        "elements_all_hidden": element_symbols, "learner": base.learner_,
+        "hiding_rule": (f"{method} cells hidden for all but a seeded {keep_fraction:.0%} of the elements "
+                        f"that have them; every other method visible"),
+    }
+    hidden_cells = hidden[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+    return ReplayResult(curves=curves, summary=summary, picks=picks[picks_columns], hidden=hidden_cells,
+                        settings=settings)
+
+
+def replay_text(result):
+    """Plain-text summary of a replay, lines ending ``\\n``."""
+    settings = result.settings
+    lines = [
+        f"Replay of {settings['method']}: {settings['n_hidden']} cells hidden, {settings['n_visible']} visible "
+        f"({settings['hiding_rule']}).",
+        f"{settings['rounds']} rounds of {settings['per_round']} picks; random picks over "
+        f"{settings['n_random_seeds']} seeds among the same hidden cells (median shown).",
+        "",
+        f"  {'goal':<8} {'figure':<8} {'picks':>5} {'picker':>9} {'random':>9} {'ratio':>6} "
+        f"{'random needs':>13} {'saved':>7}",
+    ]
+    for row in result.summary.itertuples(index=False):
+        digits = 3 if row.metric == "error" else 1
+        needs = "n/a" if math.isnan(row.random_picks_to_match) else f"{row.random_picks_to_match:.1f}"
+        saved = "?" if math.isnan(row.picks_saved) else f"{row.picks_saved:+.1f}"
+        label = "MAE eV" if row.metric == "error" else "decided"
+        lines.append(
+            f"  {row.goal:<8} {label:<8} {row.picks:>5} {row.picker_final:>9.{digits}f} "
+            f"{row.random_median_final:>9.{digits}f} {row.ratio:>6.2f} {needs:>13} {saved:>7}"
+        )
+    lines.append("")
+    lines.append("saved: picks random needs (median curve, interpolated) to reach the picker's final "
+                 "figure, minus the picker's picks")
+    for row in result.summary.itertuples(index=False):
+        if row.note:
+            lines.append(f"note: {row.goal}/{row.metric}: {row.note}")
+    return "\n".join(lines) + "\n"
+
+
+def write_replay(result, out_dir):
+    """Write a replay's files into ``out_dir`` (created if needed).
+
+    Files: ``curves.csv``, ``summary.csv``, ``picks.csv`` (revealed cells),
+    ``hidden.csv`` (cells hidden at the start), ``settings.json`` and
+    ``learning_curves.png`` (``plots.learning_curve_figure``).
+
+    Returns
+    -------
+    dict
+        Name -> path written.
+    """
+    out_dir = Path(out_dir)
+    paths = {
+        "curves": out_dir / "curves.csv",
+        "summary": out_dir / "summary.csv",
+        "picks": out_dir / "picks.csv",
+        "hidden": out_dir / "hidden.csv",
+        "settings": out_dir / "settings.json",
+    }
+    write_table(result.curves, paths["curves"])
+    write_table(result.summary, paths["summary"])
+    write_table(result.picks, paths["picks"])
+    write_table(result.hidden, paths["hidden"])
+    write_text_atomic(paths["settings"], json.dumps(result.settings, indent=2, sort_keys=True) + "\n")
+    from dopantgap import plots  # matplotlib only when files are written
+
+    unit = "cost units" if result.settings.get("cost") else "calculations"
+    paths["png"] = out_dir / "learning_curves.png"
+    plots.save_png(plots.learning_curve_figure(result.curves, cost_unit=unit), paths["png"])
+    return paths

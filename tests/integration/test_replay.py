@@ -1,0 +1,200 @@
+"""Replay: hiding rule, candidates, learning curves, savings, reproducibility, CLI."""
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from dopantgap.cli import main
+from dopantgap.errors import DopantgapError
+from dopantgap.replay import (
+    CURVE_COLUMNS,
+    SUMMARY_COLUMNS,
+    hide_cells,
+    random_picks,
+    replay,
+    savings,
+    write_replay,
+)
+from dopantgap.surrogate import Surrogate
+from dopantgap.table import KEY_COLUMNS, write_table
+from dopantgap.world import invent_world
+
+pytestmark = pytest.mark.slow
+
+ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As", "Sn", "Sb", "Ba", "W", "Pb")
+ROUNDS, PER_ROUND, SEEDS = 2, 3, 2
+COST = {"gga": 1.0, "hyb": 30.0}
+
+
+def _keys(frame):
+    return set(frame[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+
+
+@pytest.fixture(scope="module")
+def completed():
+    """An invented completed table (not DFT data); one element has only hyb cells,
+    so that hiding leaves it with no visible cell at all."""
+    world = invent_world(element_symbols=ELEMENTS, seed=3).drop(columns="truth")
+    return world[~((world["element"] == "W") & (world["method"] == "gga"))].reset_index(drop=True)
+
+
+@pytest.fixture(scope="module")
+def result(completed):
+    # no method given: the most costly one is replayed
+    return replay(completed, goal=("table", "site"), rounds=ROUNDS, per_round=PER_ROUND, cost=COST,
+                  n_random_seeds=SEEDS, random_state=4, keep_fraction=0.25,
+                  estimator=Surrogate(learner="gp", n_folds=2))
+
+
+def test_hiding_rule_keeps_the_cheap_level_and_a_few_expensive_elements(completed):
+    visible, hidden, method = hide_cells(completed, method="hyb", keep_fraction=0.25, random_state=4)
+    assert method == "hyb"
+    assert set(hidden["method"]) == {"hyb"}
+    assert _keys(visible[visible["method"] == "gga"]) == _keys(completed[completed["method"] == "gga"])
+    kept = set(visible.loc[visible["method"] == "hyb", "element"])
+    assert len(kept) == round(0.25 * len(ELEMENTS))
+    assert not kept & set(hidden["element"])
+    assert len(visible) + len(hidden) == len(completed)
+    assert _keys(visible).isdisjoint(_keys(hidden))
+
+
+def test_replay_never_reveals_a_visible_cell_and_picks_only_hidden_cells(completed, result):
+    hidden = _keys(result.hidden)
+    visible = _keys(completed) - hidden
+    picked = _keys(result.picks)
+    assert picked <= hidden
+    assert picked.isdisjoint(visible)
+    assert set(result.picks["method"]) == {"hyb"}
+    # no strategy reveals a cell twice, and the revealed values are the completed table's
+    for _, part in result.picks.groupby(["strategy", "seed"]):
+        assert len(_keys(part)) == len(part) == ROUNDS * PER_ROUND
+    merged = result.picks.merge(completed, on=list(KEY_COLUMNS), suffixes=("", "_completed"))
+    assert len(merged) == len(result.picks)
+    assert (merged["value"].to_numpy() == merged["value_completed"].to_numpy()).all()
+    # W has no visible cell: it is a candidate only through element_symbols
+    assert "W" in result.settings["elements_all_hidden"]
+
+
+def test_curves_have_the_documented_columns_and_rounds(result):
+    curves = result.curves
+    assert tuple(curves.columns) == CURVE_COLUMNS
+    assert sorted(set(curves["strategy"])) == ["random", "site", "table"]
+    for (strategy, seed), part in curves.groupby(["strategy", "seed"]):
+        assert part["round"].tolist() == list(range(ROUNDS + 1))
+        assert part["n_revealed"].tolist() == [PER_ROUND * r for r in range(ROUNDS + 1)]
+        assert (part["n_hidden_left"] == result.settings["n_hidden"] - part["n_revealed"]).all()
+        assert (part["cost_spent"] == COST["hyb"] * part["n_revealed"]).all()
+    start = curves[curves["round"] == 0]
+    # round 0 is the same model for every strategy
+    assert start["error"].nunique() == 1 and start["decided"].nunique() == 1
+    assert (curves["error"] > 0).all() and (curves["decided"] <= curves["n_site_questions"]).all()
+    assert sorted(set(curves.loc[curves["strategy"] == "random", "seed"])) == list(range(SEEDS))
+    assert tuple(result.summary.columns) == SUMMARY_COLUMNS
+    assert len(result.summary) == 4
+
+
+def test_random_strategy_with_a_fixed_seed_is_reproducible(completed, result):
+    again = replay(completed, goal="table", rounds=ROUNDS, per_round=PER_ROUND, n_random_seeds=SEEDS, cost=COST,
+                   random_state=4, keep_fraction=0.25, estimator=Surrogate(learner="gp", n_folds=2))
+    for frame_a, frame_b in ((result.picks, again.picks), (result.curves, again.curves)):
+        kept_a = frame_a[frame_a["strategy"].isin(["random", "table"])].reset_index(drop=True)
+        kept_b = frame_b.reset_index(drop=True)
+        pd.testing.assert_frame_equal(kept_a, kept_b)
+    other_seed = random_picks(100, 5, np.random.default_rng((4, 0)))
+    assert other_seed == random_picks(100, 5, np.random.default_rng((4, 0)))
+
+
+def test_random_picks_are_uniform_over_candidates():
+    """Outside check: Pearson's chi-square goodness-of-fit test (K. Pearson 1900, Phil. Mag.
+    50:157; scipy.stats.chisquare). Drawing 4 of 12 candidates without replacement, each
+    candidate is included with probability 4/12; over 6000 draws the inclusion counts must
+    fit the uniform expectation (p > 0.001; a fixed seed, so the test is deterministic)."""
+    rng = np.random.default_rng(2024)
+    counts = np.zeros(12)
+    for _ in range(6000):
+        chosen = random_picks(12, 4, rng)
+        assert len(set(chosen)) == 4 and chosen == sorted(chosen)
+        counts[chosen] += 1
+    assert stats.chisquare(counts).pvalue > 1e-3
+    # and a deliberately biased draw is caught by the same test
+    biased = counts.copy()
+    biased[0] *= 1.2
+    assert stats.chisquare(biased, f_exp=np.full(12, biased.sum() / 12)).pvalue < 1e-3
+
+
+def test_savings_interpolate_the_random_median_curve():
+    rows = []
+    for seed, errors in enumerate([[1.0, 0.8, 0.6, 0.4], [1.0, 0.9, 0.7, 0.5], [1.0, 0.7, 0.5, 0.3]]):
+        for number, error in enumerate(errors):
+            rows.append({"strategy": "random", "seed": seed, "round": number, "n_revealed": 10 * number,
+                         "error": error, "decided": number})
+    for number, error in enumerate([1.0, 0.6, 0.5, 0.45]):
+        rows.append({"strategy": "table", "seed": 0, "round": number, "n_revealed": 10 * number,
+                     "error": error, "decided": 2 * number})
+    curves = pd.DataFrame(rows)
+    error = savings(curves, "table", "error", cost_per_cell=30.0)
+    # random median 1.0, 0.8, 0.6, 0.4: reaches 0.45 between 20 and 30 picks;
+    # reference: numpy.interp on the decreasing curve (reversed to increasing x for interp)
+    expected = float(np.interp(0.45, [0.4, 0.6], [30.0, 20.0]))
+    assert math.isclose(error["random_picks_to_match"], expected)
+    assert math.isclose(error["picks_saved"], expected - 30.0)
+    assert math.isclose(error["cost_saved"], 30.0 * (expected - 30.0))
+    assert math.isclose(error["ratio"], 0.45 / 0.4)
+    decided = savings(curves, "table", "decided")
+    assert math.isnan(decided["random_picks_to_match"]) and decided["note"]
+
+
+def test_write_replay_files(result, tmp_path):
+    paths = write_replay(result, tmp_path / "out")
+    for name in ("curves", "summary", "picks", "hidden", "settings"):
+        assert paths[name].is_file()
+    curves = pd.read_csv(paths["curves"])
+    assert tuple(curves.columns) == CURVE_COLUMNS and len(curves) == len(result.curves)
+    assert json.loads(paths["settings"].read_text())["method"] == "hyb"
+
+
+@pytest.mark.parametrize(
+    "options, word",
+    [
+        (["--rounds", "two"], "--rounds"),
+        (["--per-round", "0"], "--per-round"),
+        (["--goal", "fastest"], "--goal"),
+        (["--method", "ccsd"], "--method"),
+        (["--cost", "hyb"], "--cost"),
+        (["--keep-fraction", "1.5"], "--keep-fraction"),
+    ],
+)
+def test_cli_bad_input_is_one_line_and_status_2(completed, tmp_path, capsys, options, word):
+    table_path = tmp_path / "completed.csv"
+    write_table(completed, table_path)
+    status = main(["replay", str(table_path), "--out", str(tmp_path / "out"), "--learner", "gp", *options])
+    assert status == 2
+    error = capsys.readouterr().err
+    assert error.count("\n") == 1 and word in error
+
+
+def test_cli_replay_end_to_end(tmp_path, capsys):
+    world = invent_world(element_symbols=ELEMENTS[:10], seed=5).drop(columns="truth")
+    table_path = tmp_path / "completed.csv"
+    write_table(world, table_path)
+    out = tmp_path / "replay"
+    status = main(["replay", str(table_path), "--goal", "table", "--rounds", "1", "--per-round", "2",
+                   "--seeds", "1", "--method", "hyb", "--learner", "gp", "--out", str(out)])
+    assert status == 0
+    printed = capsys.readouterr().out
+    assert "saved" in printed and "MAE eV" in printed
+    assert sorted(p.name for p in out.iterdir()) == [
+        "curves.csv", "hidden.csv", "learning_curves.png", "picks.csv", "settings.json", "summary.csv"
+    ]
+    summary = pd.read_csv(out / "summary.csv")
+    assert summary["metric"].tolist() == ["error", "decided"] and (summary["picks"] == 2).all()
+
+
+def test_replay_refuses_too_few_elements():
+    world = invent_world(element_symbols=("Li", "B"), seed=1).drop(columns="truth")
+    with pytest.raises(DopantgapError, match="at least 3"):
+        hide_cells(world)
