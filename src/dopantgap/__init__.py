@@ -7,6 +7,8 @@ The Python API mirrors the command line::
     model = dg.Surrogate(random_state=0).fit(table)
     filled = dg.fill_table(model, element_symbols=["Ti", "V"])
     sites = dg.site_preference(model)
+    picks = dg.pick_next(model, count=5, method="hyb", cost={"gga": 1, "hyb": 30})
+    explained = dg.explain_model(model)
     dg.save_model(model, "models/mine")
 """
 
@@ -16,6 +18,7 @@ from dopantgap.calibration import SCENARIOS
 from dopantgap.elements import DESCRIPTORS, descriptor_table, element_flags
 from dopantgap.errors import DopantgapError, ModelFolderError, TableError
 from dopantgap.fill import fill_table
+from dopantgap.picker import pick_next
 from dopantgap.sites import site_preference
 from dopantgap.store import load_model, save_model
 from dopantgap.surrogate import Surrogate
@@ -29,14 +32,31 @@ __all__ = [
     "Surrogate",
     "TableError",
     "__version__",
+    "build_report",
     "coverage",
     "descriptor_table",
     "element_flags",
+    "explain_model",
     "fill_table",
     "load_model",
+    "pick_next",
     "read_table",
     "save_model",
     "site_preference",
     "to_wide",
     "write_table",
 ]
+
+# the heavier consumers (shap, matplotlib) load on first use, so the command line starts fast
+_LAZY = {
+    "build_report": "dopantgap.report",
+    "explain_model": "dopantgap.explain",
+}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'dopantgap' has no attribute {name!r}")

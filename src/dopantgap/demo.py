@@ -13,9 +13,12 @@ from pathlib import Path
 import numpy as np
 
 from dopantgap.atomic import write_text_atomic
+from dopantgap.explain import explain_model, write_explanation
 from dopantgap.fill import fill_table
+from dopantgap.picker import pick_next
+from dopantgap.report import build_report
 from dopantgap.sites import site_preference
-from dopantgap.store import save_model
+from dopantgap.store import read_manifest, save_model
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import write_table
 from dopantgap.world import invent_world, observe
@@ -59,6 +62,9 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     model_dir = out_dir / "model"
     filled_path = out_dir / "filled.csv"
     sites_path = out_dir / "site_preference.csv"
+    picks_path = out_dir / "next_hybrid.csv"
+    explain_dir = out_dir / "explained"
+    report_path = out_dir / "report.html"
     table = demo_table()
     write_table(table, table_path)
     report(f"Invented demo table (not DFT data): {len(table)} computed cells -> {table_path}")
@@ -87,6 +93,29 @@ def run_demo(out_dir="dopantgap_demo", report=print):
         report(f"  {scenario:<12} {len(part):>6} {error:>16.3f} {inside:>15.0%}")
     report("  (noise of the invented world: 0.05 eV; element term no descriptor explains: 0.15 eV)")
     report("")
+    picks = pick_next(surrogate, count=5, goal="table", method="hyb", cost={"gga": 1.0, "hyb": 30.0})
+    write_table(picks, picks_path)
+    report("The next five hybrid calculations worth their cost (goal: the whole table's variance):")
+    for row in picks.itertuples(index=False):
+        report(f"  {row.rank}. {row.element} {row.host} {row.site} {row.quantity}: {row.reason}")
+    explanation = explain_model(surrogate, random_state=0)
+    write_explanation(explanation, explain_dir)
+    site_choice = explanation.importance[
+        explanation.importance["target"].isin(
+            explanation.targets.loc[explanation.targets["kind"] == "site-choice", "target"]
+        )
+    ]
+    if len(site_choice):
+        top = site_choice.groupby("feature")["importance"].mean().sort_values(ascending=False)
+        report(f"What drives the choice of site (mean |SHAP|, eV): "
+               + ", ".join(f"{name} {value:.2f}" for name, value in top.head(3).items()))
+    report(f"Explanations: {explain_dir}")
+    page = build_report(
+        surrogate, read_manifest(model_dir), report_path, element_symbols=DEMO_ABSENT,
+        explanation_dir=explain_dir, picks=picks, model_dir=model_dir,
+    )
+    report(f"Report (open in a browser): {page}")
+    report("")
     report("Estimates guide which calculations to run; they do not replace calculation,")
     report("experiment or local safety rules.")
     summary_lines = [f"{s},{v['n']},{v['mae']:.4f},{v['coverage']:.4f}" for s, v in figures.items()]
@@ -96,5 +125,8 @@ def run_demo(out_dir="dopantgap_demo", report=print):
         "model": model_dir,
         "filled": filled_path,
         "site_preference": sites_path,
+        "next": picks_path,
+        "explained": explain_dir,
+        "report": report_path,
         "figures": figures,
     }

@@ -48,7 +48,7 @@ _MIN_ROWS_FOR_CORRECTION = 3
 _MAX_ROWS_REOPTIMISED = 60
 # Folds of the upgrade loop: at most this many, over the elements computed at both
 # levels (leave-one-element-out when there are fewer).
-_UPGRADE_FOLDS = 6
+_UPGRADE_FOLDS = 12
 # Cells predicted together (their joint covariance is formed in memory).
 _CHUNK_CELLS = 1500
 
