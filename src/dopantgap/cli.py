@@ -232,12 +232,16 @@ def _command_fit(arguments, say):
     hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
     started = time.perf_counter()
     say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    surrogate = Surrogate(
-        learner=arguments.learner,
-        levels=arguments.levels,
-        host_compositions=hosts,
-        random_state=arguments.seed,
-    ).fit(table)
+    from dopantgap.progress import bar
+
+    n_candidates = 2 if arguments.learner == "auto" else 1
+    with bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet) as progress:
+        surrogate = Surrogate(
+            learner=arguments.learner,
+            levels=arguments.levels,
+            host_compositions=hosts,
+            random_state=arguments.seed,
+        ).fit(table, progress=progress)
     save_model(surrogate, arguments.out, source=arguments.table)
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")

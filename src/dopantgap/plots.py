@@ -546,7 +546,7 @@ def learning_curve_figure(curves, cost_unit="cost units"):
     -------
     Figure
         Left: median error per round against median cost spent, band from the 25th
-        to the 75th percentile over seeds. Right: elements decided, the same way.
+        to the 75th percentile over seeds. Right: site questions decided, the same way.
     """
     _require(curves, ["strategy", "seed", "round", "cost_spent", "error", "decided"], "The replay curves")
     figure = _figure(9.5, 4.0)
@@ -564,10 +564,10 @@ def learning_curve_figure(curves, cost_unit="cost units"):
             axes.plot(cost.to_numpy(), middle.to_numpy(), color=colour, marker=marker, markersize=3.5,
                       linewidth=1.4, label=f"{strategy} ({rows['seed'].nunique()} seeds)")
     error_axes.set_xlabel(f"cost spent ({cost_unit})")
-    error_axes.set_ylabel("error against the truth (eV)")
+    error_axes.set_ylabel("mean |error| of cells not yet revealed (eV)")
     error_axes.set_title("Error as calculations are added", fontsize=9)
     decided_axes.set_xlabel(f"cost spent ({cost_unit})")
-    decided_axes.set_ylabel("elements decided (count)")
+    decided_axes.set_ylabel("site questions decided (count)")
     decided_axes.set_title("Decisions reached", fontsize=9)
     error_axes.legend(fontsize=7)
     figure.suptitle("Replay: median over seeds, band 25th-75th percentile", fontsize=10)
@@ -593,7 +593,7 @@ def history_figure(history, cost_unit="cost units"):
     panels = figure.subplots(1, 3)
     for axes, column, label, colour in (
         (panels[0], "mean_std", "mean predicted std (eV)", CATEGORY_COLOURS[4]),
-        (panels[1], "decided", "elements decided (count)", CATEGORY_COLOURS[5]),
+        (panels[1], "decided", "site questions decided (count)", CATEGORY_COLOURS[5]),
         (panels[2], "cost_spent", f"cost spent ({cost_unit})", CATEGORY_COLOURS[2]),
     ):
         axes.plot(history["round"].to_numpy(), history[column].astype(float).to_numpy(), marker="o",
@@ -693,7 +693,8 @@ def breakdown_figure(shap_values, base_values, target, element, top_n=10):
     rows = rows.assign(size=rows["shap"].astype(float).abs()).sort_values("size", ascending=False)
     shown = rows.head(top_n)
     steps = [
-        (f"{feature} = {_short(value)}", float(shift))
+        # the element's own offset has no descriptor value to show
+        (feature if pd.isna(value) else f"{feature} = {_short(value)}", float(shift))
         for feature, value, shift in zip(shown["feature"], shown["feature_value"], shown["shap"])
     ]
     rest = rows.iloc[top_n:]

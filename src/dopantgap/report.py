@@ -510,7 +510,7 @@ def _campaign(history, replay_curves):
     if history is not None:
         parts.append(_figure_html(
             plots.history_figure(history),
-            "Mean predicted standard deviation (eV), elements decided and cost spent after each round.",
+            "Mean predicted standard deviation (eV), site questions decided (P > 0.9) and cost spent after each round.",
             "campaign history",
         ))
     if replay_curves is not None:

@@ -189,7 +189,7 @@ class Surrogate(BaseEstimator):
         self.random_state = random_state
 
     # ------------------------------------------------------------------ fitting
-    def fit(self, table):
+    def fit(self, table, progress=None):
         """Fit every stage, cross-validate, choose the learner and calibrate.
 
         Parameters
@@ -197,6 +197,9 @@ class Surrogate(BaseEstimator):
         table : DataFrame
             Long table with columns element, host, site, method, quantity, value
             (as returned by ``table.read_table``); other columns are kept, unused.
+        progress : object or None, default=None
+            Anything with ``update(n=1)`` (``dopantgap.progress.bar``), told when each
+            candidate learner has been fitted and cross-validated.
 
         Returns
         -------
@@ -232,9 +235,13 @@ class Surrogate(BaseEstimator):
         candidates = LEARNERS if self.learner == "auto" else (self.learner,)
         # the candidates are independent: on two cores they fit side by side, each
         # worker held to one BLAS/OpenMP thread so that they do not fight for cores
-        outcomes = Parallel(n_jobs=min(len(candidates), 2))(
+        outcomes = []
+        for outcome in Parallel(n_jobs=min(len(candidates), 2), return_as="generator")(
             delayed(self._fit_candidate)(core, name) for name in candidates
-        )
+        ):
+            outcomes.append(outcome)
+            if progress is not None:
+                progress.update(1)
         fitted = {name: stages for name, (stages, _) in zip(candidates, outcomes)}
         residuals = {name: found for name, (_, found) in zip(candidates, outcomes)}
         mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}

@@ -159,3 +159,32 @@ def test_prediction_outside_the_table_is_refused(rough):
     cells = pd.DataFrame([{"element": "Fe", "host": "ZnS", "site": "sub_Zn", "method": "gga", "quantity": "E_mig"}])
     with pytest.raises(DopantgapError, match="no data for quantity 'E_mig'"):
         model.predict(cells)
+
+
+def test_upgrade_residuals_come_from_elements_computed_at_both_levels(rough):
+    """The upgrade loop predicts an expensive cell from its own computed cheap level."""
+    _world, table, model, _scores = rough
+    upgrade = model.cv_residuals_[model.cv_residuals_["scenario"] == "upgrade"]
+    cheap = table[table["method"] == "gga"].set_index(["element", "host", "site", "quantity"])["value"]
+    both = set(table.loc[table["method"] == "hyb", "element"]) & set(cheap.index.get_level_values(0))
+    assert len(upgrade) > 20
+    assert set(upgrade["element"]) <= both
+    keys = list(zip(upgrade["element"], upgrade["host"], upgrade["site"], upgrade["quantity"]))
+    assert all(key in cheap.index for key in keys)
+    # every element computed at both levels is held out once, and only once per cell
+    assert not upgrade.duplicated(["element", "host", "site", "quantity"]).any()
+
+
+def test_fit_reports_progress_once_per_candidate_learner():
+    world = invent_world(ELEMENTS[:14], hosts=ONE_HOST, seed=3)
+    table = observe(world, expensive_fraction=0.3, absent=(), seed=3)
+
+    class Counter:
+        steps = 0
+
+        def update(self, n=1):
+            self.steps += n
+
+    counter = Counter()
+    Surrogate(learner="auto", n_folds=2, random_state=0).fit(table, progress=counter)
+    assert counter.steps == 2
