@@ -172,8 +172,21 @@ def read_explanations(folder):
 
 
 def read_picks(path):
-    """A next-picks CSV as a DataFrame (any columns; shown as given)."""
-    return _read_csv(path, "next-picks CSV", "--picks")
+    """A next-picks CSV (as written by ``dopantgap next``) as a DataFrame.
+
+    Raises
+    ------
+    DopantgapError
+        When the file lacks the cell columns element, host, site, method, quantity.
+    """
+    picks = _read_csv(path, "next-picks CSV", "--picks")
+    missing = [c for c in ("element", "host", "site", "method", "quantity") if c not in picks.columns]
+    if missing:
+        raise DopantgapError(
+            f"--picks {path}:1: no column(s) {', '.join(missing)}; give the CSV that "
+            f"'dopantgap next MODEL_DIR --out NEXT.csv' wrote."
+        )
+    return picks
 
 
 def read_campaign_folder(folder, surrogate=None):

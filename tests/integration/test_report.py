@@ -130,6 +130,12 @@ def test_cli_report_errors_are_one_line(tmp_path, capsys):
     assert main(["report", str(MODEL), "--out", str(tmp_path / "r.html"), "--explanations", str(wrong)]) == 2
     assert "lacks the column(s)" in capsys.readouterr().err
     assert main(["report", str(MODEL), "--campaign", str(tmp_path), "--out", str(tmp_path / "r.html")]) == 2
+    capsys.readouterr()
+    not_picks = tmp_path / "not_picks.csv"
+    not_picks.write_text("element,host\nTi,ZnS\n", encoding="utf-8")
+    assert main(["report", str(MODEL), "--picks", str(not_picks), "--out", str(tmp_path / "r.html")]) == 2
+    error = capsys.readouterr().err
+    assert error.count("\n") == 1 and "not_picks.csv:1" in error and "site" in error
 
 
 # ----------------------------------------------------------------------------- browser
