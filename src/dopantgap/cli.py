@@ -379,7 +379,8 @@ def _command_explain(arguments, say):
         write_figures(explanation, out, shown, progress=progress)
     say(
         f"{n_targets} targets explained for {n_elements} elements in {explained:.0f} s "
-        f"(background: {len(explanation.background)} elements of the table); CSV files, "
+        f"(SHAP by {explanation.shap_method}, background: {len(explanation.background)} elements "
+        f"of the table); CSV files, "
         f"summary_*.png and breakdown_*.png of {', '.join(shown)} -> {out} "
         f"({time.perf_counter() - started:.0f} s in all)"
     )

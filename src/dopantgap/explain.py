@@ -54,14 +54,19 @@ subset is enumerated (``shap.explainers.Exact``: exact for that background); wit
 
     base_value + sum of descriptor SHAP values + offset = prediction,
 
-with ``base_value`` the mean of ``F`` over the background. The same model-agnostic
-enumeration serves the Gaussian process and the boosted trees: a tree explainer works on
-the encoded inputs, in which one descriptor enters through several columns (the
-covalent radius and the size misfit), and cannot give one value per descriptor; the
-enumeration gives the same interventional Shapley values a tree explainer would give
-for the same background and inputs. Site-choice and chained targets are explained as
-they are, one function each (Shapley values are linear in the model, so they also
-equal the differences and sums of the columns' values).
+with ``base_value`` the mean of ``F`` over the background.
+
+For boosted trees, shap's exact tree explainer is used instead (interventional Tree
+SHAP, Lundberg et al. 2020): the trees split encoded inputs, but for a fixed host/site
+column every encoded input is an increasing or decreasing affine function of one
+descriptor, so each tree is rewritten as a tree over the descriptors (thresholds mapped
+back, children swapped where the slope is negative, splits on the constant column
+indicators decided outright). A target, chain of stages or site difference included,
+is then one sum of trees, and Tree SHAP gives its exact interventional Shapley values
+per descriptor for the same background, the values the enumeration gives (checked in
+the tests to 1e-6 eV), in a fraction of the time. Site-choice and chained targets are
+explained as they are, one function each (Shapley values are linear in the model, so
+they also equal the differences and sums of the columns' values).
 
 For the Gaussian process the mean is evaluated directly from its kernel parts (the
 descriptor part of the covariance is shared by every column whose host-relative terms
@@ -95,7 +100,7 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, Produc
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
-from dopantgap.learners import BoostLearner, GPLearner, OnColumns
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns
 from dopantgap.symbols import atomic_number, normalise_symbol
 from dopantgap.table import write_table
 
@@ -108,6 +113,7 @@ __all__ = [
     "explain_model",
     "explanation_features",
     "shapley_values",
+    "tree_shapley_values",
     "target_slug",
     "target_slugs",
     "write_explanation",
@@ -177,6 +183,10 @@ class Explanation:
         Descriptor names in the order used, then :data:`OFFSET_FEATURE`.
     background : tuple of str
         The background elements.
+    shap_method : str
+        How the values were computed: ``"tree"`` (interventional Tree SHAP on the
+        boosted trees rewritten over the descriptors), ``"exact enumeration"`` or
+        ``"sampled orderings"`` (model-agnostic).
     """
 
     targets: pd.DataFrame
@@ -185,6 +195,7 @@ class Explanation:
     base_values: pd.DataFrame
     features: tuple
     background: tuple
+    shap_method: str = "exact enumeration"
 
 
 # --------------------------------------------------------------------------- features
@@ -641,6 +652,166 @@ class _TargetFunction:
         return out @ self.matrix.T
 
 
+# --------------------------------------------------------------------------- trees
+
+
+def _descriptor_tree(predictor, encoding, tree_columns, weight):
+    """One histogram-gradient-boosting tree rewritten as a tree over the descriptors.
+
+    The tree splits encoded inputs; for a fixed host/site column each encoded input
+    is ``slope * descriptor + intercept`` (``_ColumnEncoding``), so a split
+    ``input <= t`` is the split ``descriptor <= (t - intercept) / slope`` when the slope
+    is positive and ``descriptor >= ...`` (children swapped) when it is negative;
+    a split on a column indicator, constant for the column, is decided outright.
+    Returns shap's dictionary form of a tree, leaf values times ``weight``.
+    """
+    nodes = predictor.nodes
+    n_physical = len(encoding.index)
+    constants = np.concatenate([encoding.indicators, [_UNSEEN_LABEL, encoding.column_index]])
+    out = {"left": [], "right": [], "feature": [], "threshold": [], "value": [], "weight": []}
+
+    def add(node_id):
+        # follow decided splits down to the next real one
+        node = nodes[node_id]
+        while not node["is_leaf"]:
+            column = int(tree_columns[int(node["feature_idx"])])
+            if column < n_physical:
+                break
+            goes_left = constants[column - n_physical] <= node["num_threshold"]
+            node_id = int(node["left"] if goes_left else node["right"])
+            node = nodes[node_id]
+        position = len(out["left"])
+        for key in out:
+            out[key].append(0)
+        out["value"][position] = float(node["value"]) * weight
+        out["weight"][position] = float(max(node["count"], 1))
+        if node["is_leaf"]:
+            out["left"][position] = out["right"][position] = -1
+            out["feature"][position] = -2
+            out["threshold"][position] = 0.0
+            return position
+        column = int(tree_columns[int(node["feature_idx"])])
+        slope, intercept = encoding.slope[column], encoding.intercept[column]
+        cut = (float(node["num_threshold"]) - intercept) / slope
+        low, high = int(node["left"]), int(node["right"])
+        if slope < 0:
+            # input <= t  <=>  descriptor >= cut: the lower side is the original right
+            low, high = high, low
+            cut = float(np.nextafter(cut, -np.inf))
+        out["feature"][position] = int(encoding.index[column])
+        out["threshold"][position] = cut
+        out["left"][position] = add(low)
+        out["right"][position] = add(high)
+        return position
+
+    add(0)
+    left = np.array(out["left"], dtype=np.int32)
+    return {
+        "children_left": left,
+        "children_right": np.array(out["right"], dtype=np.int32),
+        "children_default": left.copy(),
+        "features": np.array(out["feature"], dtype=np.int32),
+        "thresholds": np.array(out["threshold"], dtype=np.float64),
+        "values": np.array(out["value"], dtype=np.float64)[:, None],
+        "node_sample_weight": np.array(out["weight"], dtype=np.float64),
+    }
+
+
+def _tree_ensembles(function, n_features):
+    """Per target, the whole target as one sum of trees over the descriptors, or None.
+
+    Possible when every stage of every target is boosted trees (or a column mean,
+    constant for a column): the target's chain of stages and, for a site choice, the
+    difference of two columns are sums of trees with signed weights.
+    """
+    for _positions, evaluator in function.stages:
+        if not isinstance(evaluator.stage.learner, (BoostLearner, ColumnMeanLearner)):
+            return None
+    if not any(isinstance(e.stage.learner, BoostLearner) for _p, e in function.stages):
+        return None
+    probe = np.zeros((1, n_features))
+    trees_per_unit, offset_per_unit = {}, {}
+    for positions, evaluator in function.stages:
+        learner = evaluator.stage.learner
+        if isinstance(learner, ColumnMeanLearner):
+            constant = evaluator.predict_rows(probe, _UNSEEN_LABEL)[0]
+            for position, value in zip(positions, constant):
+                trees_per_unit[position], offset_per_unit[position] = [], float(value)
+            continue
+        n_columns = evaluator.encodings[0].rows(probe, _UNSEEN_LABEL).shape[1]
+        tree_columns = np.array(learner._tree_columns(n_columns))
+        share = 1.0 / len(learner.members_)
+        for position, encoding in zip(positions, evaluator.encodings):
+            trees, offset = [], 0.0
+            for member in learner.members_:
+                offset += share * float(np.ravel(member._baseline_prediction)[0])
+                for iteration in member._predictors:
+                    trees.append((iteration[0], encoding, tree_columns, share))
+            trees_per_unit[position], offset_per_unit[position] = trees, offset
+    ensembles = []
+    for row in function.matrix:
+        trees, offset = [], 0.0
+        for position in np.flatnonzero(row):
+            sign = float(row[position])
+            offset += sign * offset_per_unit[position]
+            trees += [
+                _descriptor_tree(predictor, encoding, columns, sign * share)
+                for predictor, encoding, columns, share in trees_per_unit[position]
+            ]
+        if not trees:
+            # a constant target: one leaf, no split
+            trees = [{
+                "children_left": np.array([-1], dtype=np.int32),
+                "children_right": np.array([-1], dtype=np.int32),
+                "children_default": np.array([-1], dtype=np.int32),
+                "features": np.array([-2], dtype=np.int32),
+                "thresholds": np.zeros(1),
+                "values": np.zeros((1, 1)),
+                "node_sample_weight": np.ones(1),
+            }]
+        ensembles.append({"trees": trees, "base_offset": offset, "tree_output": "raw_value",
+                          "input_dtype": np.float64, "internal_dtype": np.float64})
+    return ensembles
+
+
+def tree_shapley_values(ensembles, X, background, progress=None):
+    """Interventional Tree SHAP values of tree ensembles over the descriptors.
+
+    ``shap.TreeExplainer`` with ``feature_perturbation="interventional"``: exact
+    interventional Shapley values for the background given (Lundberg et al. 2020,
+    "From local explanations to global understanding with explainable AI for trees",
+    Nature Machine Intelligence 2, 56-67), the same values ``shapley_values`` enumerates.
+
+    Parameters
+    ----------
+    ensembles : list of dict
+        One shap tree-ensemble dictionary per output (``_tree_ensembles``).
+    X : ndarray of shape (n_samples, n_features)
+    background : ndarray of shape (n_background, n_features)
+    progress : object with ``update(n)`` or None
+        Told once per row of ``X`` (after the last output).
+
+    Returns
+    -------
+    values : ndarray of shape (n_samples, n_features, n_outputs)
+    base_values : ndarray of shape (n_samples, n_outputs)
+    """
+    shap = _import_shap()
+    X = np.asarray(X, dtype=float)
+    background = np.asarray(background, dtype=float)
+    values = np.empty((len(X), X.shape[1], len(ensembles)))
+    base_values = np.empty((len(X), len(ensembles)))
+    for output, ensemble in enumerate(ensembles):
+        explainer = shap.TreeExplainer(
+            ensemble, data=background, feature_perturbation="interventional", model_output="raw"
+        )
+        values[:, :, output] = np.asarray(explainer.shap_values(X, check_additivity=False), dtype=float)
+        base_values[:, output] = float(np.ravel(explainer.expected_value)[0])
+    if progress is not None:
+        progress.update(len(X))
+    return values, base_values
+
+
 # --------------------------------------------------------------------------- Shapley
 
 
@@ -761,7 +932,13 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
 
     function = _TargetFunction(surrogate, target_table, features)
     function.check(background)
-    values, base_values = shapley_values(function, descriptors, background, random_state, progress)
+    ensembles = _tree_ensembles(function, len(features))
+    if ensembles is None:
+        values, base_values = shapley_values(function, descriptors, background, random_state, progress)
+        method = "exact enumeration" if len(features) <= _MAX_EXACT_FEATURES else "sampled orderings"
+    else:
+        values, base_values = tree_shapley_values(ensembles, descriptors, background, progress)
+        method = "tree"
     offsets = function.offsets(descriptors, symbols)
     predictions = function(descriptors) + offsets
 
@@ -805,6 +982,7 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
         base_values=base,
         features=tuple(all_features),
         background=tuple(background_symbols),
+        shap_method=method,
     )
 
 

@@ -28,11 +28,13 @@ Figures per strategy, seed and round (``curves``)
 --------------------------------------------------
 ``n_revealed`` and ``cost_spent`` (cost per cell of ``method``, default 1);
 ``error``: mean absolute error (eV) of the predicted values of the hidden cells not
-yet revealed, against the completed table; ``rmse`` likewise; ``mean_std``: their mean
+yet revealed, against the completed table (or against ``reference`` values when given:
+an invented world's noise-free truth, so that the figure measures the model and not
+the noise of the numbers it is compared with); ``rmse`` likewise; ``mean_std``: their mean
 calibrated predicted std; ``decided``: number of site questions (element, host,
 quantity with two or more sites, at ``method``, all sites in the completed table)
 whose most probable lowest site has ``p_lowest > 0.9`` and is the completed table's
-lowest; ``decided_wrong``: those above 0.9 that name another site. Round 0 is the
+(or the reference's) lowest; ``decided_wrong``: those above 0.9 that name another site. Round 0 is the
 start, the same for every strategy. The picker's rows have ``seed`` 0; the random
 rows have the seed number ``s`` of their generator ``numpy.random.default_rng((random_state, s))``.
 
@@ -181,18 +183,29 @@ def _site_truth(completed, method, quantities):
 class _Scorer:
     """The figures of one round, for a surrogate and the hidden cells still hidden."""
 
-    def __init__(self, completed, method, random_state):
+    def __init__(self, completed, method, random_state, reference=None):
         self.method = method
         self.random_state = random_state
         self.symbols = list(dict.fromkeys(completed["element"]))
         self.quantities = site_quantities(completed)
-        self.truth = _site_truth(completed, method, self.quantities)
+        scored = completed if reference is None else reference
+        self.truth = _site_truth(scored, method, self.quantities)
+        self.reference = None
+        if reference is not None:
+            keys = reference[list(KEY_COLUMNS)].itertuples(index=False, name=None)
+            self.reference = dict(zip(keys, reference["value"].to_numpy(dtype=float)))
+
+    def _scored_values(self, remaining):
+        if self.reference is None:
+            return remaining["value"].to_numpy(dtype=float)
+        keys = remaining[list(KEY_COLUMNS)].itertuples(index=False, name=None)
+        return np.array([self.reference[key] for key in keys], dtype=float)
 
     def __call__(self, surrogate, remaining):
         figures = {"error": np.nan, "rmse": np.nan, "mean_std": np.nan}
         if len(remaining):
             predicted = surrogate.predict(remaining[list(KEY_COLUMNS)])
-            difference = predicted["value"].to_numpy() - remaining["value"].to_numpy()
+            difference = predicted["value"].to_numpy() - self._scored_values(remaining)
             figures["error"] = float(np.mean(np.abs(difference)))
             figures["rmse"] = float(np.sqrt(np.mean(difference**2)))
             figures["mean_std"] = float(predicted["std"].mean())
@@ -359,7 +372,7 @@ def savings(curves, goal, metric, cost_per_cell=1.0):
 
 
 def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,
-           random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None):
+           random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None, reference=None):
     """Replay a completed table: the picker's rounds against random picks.
 
     Parameters
@@ -389,6 +402,10 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         For the window goal (``picker.parse_window``).
     estimator : Surrogate or None, default=None
         Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+    reference : DataFrame or None, default=None
+        Values the figures are scored against instead of the completed table's (cell
+        columns and ``value``, covering every cell of ``table``): for benchmarks on an
+        invented world, its noise-free truth. The picker only ever sees ``table``.
 
     Returns
     -------
@@ -420,7 +437,14 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     element_symbols = [s for s in dict.fromkeys(table["element"]) if s not in set(visible["element"])]
     base = estimator.fit(visible.reset_index(drop=True))
     _tick(progress)
-    scorer = _Scorer(table, method, random_state)
+    if reference is not None:
+        missing = [column for column in REQUIRED_COLUMNS if column not in reference.columns]
+        if missing:
+            raise DopantgapError(f"reference lacks the column(s) {', '.join(missing)}.")
+        covered = set(reference[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+        if any(key not in covered for key in table[list(KEY_COLUMNS)].itertuples(index=False, name=None)):
+            raise DopantgapError("reference must give a value for every cell of the completed table.")
+    scorer = _Scorer(table, method, random_state, reference)
     strategies = [(name, 0) for name in goals] + [(RANDOM, seed) for seed in range(n_random_seeds)]
     curves, revealed = [], []
     for strategy, seed in strategies:
@@ -445,6 +469,7 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         "cost": {str(k): float(v) for k, v in cost.items()}, "n_random_seeds": n_random_seeds,
         "random_state": int(random_state), "keep_fraction": float(keep_fraction),
         "window": None if window is None else list(window) if not isinstance(window, str) else window,
+        "scored_against": "completed table" if reference is None else "reference values",
         "n_visible": int(len(visible)), "n_hidden": int(len(hidden)),
         "elements_all_hidden": element_symbols, "learner": base.learner_,
         "hiding_rule": (f"{method} cells hidden for all but a seeded {keep_fraction:.0%} of the elements "
@@ -463,6 +488,7 @@ def replay_text(result):
         f"({settings['hiding_rule']}).",
         f"{settings['rounds']} rounds of {settings['per_round']} picks; random picks over "
         f"{settings['n_random_seeds']} seeds among the same hidden cells (median shown).",
+        f"Figures scored against the {settings.get('scored_against', 'completed table')}.",
         "",
         f"  {'goal':<8} {'figure':<8} {'picks':>5} {'picker':>9} {'random':>9} {'ratio':>6} "
         f"{'random needs':>13} {'saved':>7}",

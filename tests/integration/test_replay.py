@@ -198,3 +198,18 @@ def test_replay_refuses_too_few_elements():
     world = invent_world(element_symbols=("Li", "B"), seed=1).drop(columns="truth")
     with pytest.raises(DopantgapError, match="at least 3"):
         hide_cells(world)
+
+
+def test_reference_values_change_the_score_and_nothing_the_picker_sees(completed, result):
+    """Scored against reference values shifted by a constant 0.3 eV, the error of every
+    round of every strategy moves (the picks do not: the picker sees only the table)."""
+    shifted = completed.copy()
+    shifted["value"] = shifted["value"] + 0.3
+    again = replay(completed, goal=("table", "site"), rounds=ROUNDS, per_round=PER_ROUND, cost=COST,
+                   n_random_seeds=SEEDS, random_state=4, keep_fraction=0.25,
+                   estimator=Surrogate(learner="gp", n_folds=2), reference=shifted)
+    pd.testing.assert_frame_equal(again.picks, result.picks)
+    assert again.settings["scored_against"] == "reference values"
+    assert (again.curves["error"] > result.curves["error"]).all()
+    with pytest.raises(DopantgapError, match="every cell"):
+        replay(completed, rounds=1, per_round=1, n_random_seeds=1, cost=COST, reference=shifted.iloc[:5])
