@@ -32,16 +32,15 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from sklearn.ensemble import HistGradientBoostingRegressor
-from sklearn.model_selection import KFold, cross_val_predict
+from sklearn.model_selection import KFold
 from threadpoolctl import threadpool_info
 
+from dopantgap.baselines import predict_baseline
 from dopantgap.calibration import SCENARIOS
 from dopantgap.demo import DEMO_ABSENT, demo_table
 from dopantgap.fill import fill_table
 from dopantgap.sites import site_preference
 from dopantgap.surrogate import Surrogate
-from dopantgap.symbols import atomic_number
 from dopantgap.table import KEY_COLUMNS, write_table
 from dopantgap.world import DEMO_ELEMENTS, invent_world, observe
 
@@ -243,7 +242,7 @@ def label_scenarios(observed, cells):
 
 # -------------------------------------------------------------------- baselines
 def column_mean_baseline(observed, cells):
-    """Each host/site/method/quantity column's mean of computed cells.
+    """Means of ``dopantgap.baselines``' column-mean rule.
 
     Interval: +/- 1.645 x the column's standard deviation around its mean (a Gaussian
     90 % interval). A column with fewer than two computed cells takes the pooled
@@ -251,40 +250,32 @@ def column_mean_baseline(observed, cells):
     """
     columns = ["host", "site", "method", "quantity"]
     grouped = observed.groupby(columns)["value"]
-    summary = grouped.agg(column_mean="mean", column_std="std").reset_index()
+    summary = grouped.agg(column_std="std").reset_index()
     pooled = float(np.sqrt(np.mean((observed["value"] - grouped.transform("mean")) ** 2)))
     merged = cells[list(KEY_COLUMNS)].merge(summary, on=columns, how="left")
     spread = merged["column_std"].fillna(pooled).to_numpy()
-    mean = merged["column_mean"].to_numpy()
+    mean = predict_baseline("column-mean baseline", observed, cells, [CHEAP, EXPENSIVE])
     return mean, mean - Z_90 * spread, mean + Z_90 * spread
 
 
-def _tree_features(frame, categories):
-    parts = [np.array([atomic_number(symbol) for symbol in frame["element"]], dtype=float)[:, None]]
-    for column in ("host", "site", "method", "quantity"):
-        codes = pd.Categorical(frame[column], categories=categories[column]).codes
-        one_hot = np.zeros((len(frame), len(categories[column])))
-        known = codes >= 0
-        one_hot[np.flatnonzero(known), codes[known]] = 1.0
-        parts.append(one_hot)
-    return np.hstack(parts)
-
-
 def boosted_trees_baseline(observed, cells, seed):
-    """Plain HistGradientBoostingRegressor on atomic number + one-hot column labels.
+    """Means of ``dopantgap.baselines``' boosted-trees rule (atomic number + one-hot labels).
 
     Interval: +/- 1.645 x the standard deviation of its 5-fold cross-validated
     residuals on the observed cells.
     """
-    categories = {column: sorted(observed[column].unique()) for column in ("host", "site", "method", "quantity")}
-    features = _tree_features(observed, categories)
+    observed = observed.reset_index(drop=True)
+    levels = [CHEAP, EXPENSIVE]
     target = observed["value"].to_numpy()
-    model = HistGradientBoostingRegressor(random_state=seed)
+    out_of_fold = np.empty(len(observed))
     folds = KFold(n_splits=5, shuffle=True, random_state=seed)
-    out_of_fold = cross_val_predict(model, features, target, cv=folds)
+    for kept, held_out in folds.split(observed):
+        out_of_fold[held_out] = predict_baseline(
+            "boosted-trees baseline", observed.iloc[kept], observed.iloc[held_out][list(KEY_COLUMNS)], levels,
+            random_state=seed,
+        )
     residual_std = float(np.std(target - out_of_fold, ddof=1))
-    model.fit(features, target)
-    mean = model.predict(_tree_features(cells, categories))
+    mean = predict_baseline("boosted-trees baseline", observed, cells, levels, random_state=seed)
     return mean, mean - Z_90 * residual_std, mean + Z_90 * residual_std
 
 

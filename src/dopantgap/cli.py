@@ -61,6 +61,27 @@ def _build_parser():
     )
     fit.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
+    check_model = commands.add_parser(
+        "validate",
+        help="out-of-fold error and interval coverage of every learner and baseline, per scenario",
+    )
+    add_table_options(check_model)
+    check_model.add_argument("--out", required=True, metavar="DIR", help="folder for metrics.csv and figures")
+    check_model.add_argument("--seed", type=int, default=0, help="random seed (default: 0)")
+    check_model.add_argument(
+        "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
+        help="methods from cheapest to most expensive (default: most computed first)",
+    )
+    check_model.add_argument(
+        "--learner", choices=("auto", "gp", "boost"), default="auto",
+        help="learners to validate (default: auto = both)",
+    )
+    check_model.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="CSV with columns host,formula for host labels that are not formulas",
+    )
+    check_model.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
     fill = commands.add_parser("fill", help="estimate every missing cell with an interval")
     fill.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
     fill.add_argument("--out", required=True, metavar="FILLED.csv", help="filled table to write")
@@ -242,16 +263,15 @@ def _command_fit(arguments, say):
             host_compositions=hosts,
             random_state=arguments.seed,
         ).fit(table, progress=progress)
-    save_model(surrogate, arguments.out, source=arguments.table)
+    from dopantgap.validate import validation_metrics, validation_text
+
+    metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
+    save_model(surrogate, arguments.out, source=arguments.table, validation=metrics)
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
     say(f"Learner kept: {surrogate.learner_} (lowest cross-validated error, whole elements held out)")
-    pooled = surrogate.cv_metrics_[surrogate.cv_metrics_["quantity"] == "all"]
-    say("Cross-validated error of each learner (eV), by kind of missing cell:")
-    say(f"  {'learner':<8} {'scenario':<12} {'cells':>6} {'mean |error|':>13} {'rms error':>10}")
-    for row in pooled.itertuples(index=False):
-        mark = " <- kept" if row.chosen else ""
-        say(f"  {row.learner:<8} {row.scenario:<12} {row.n:>6} {row.mae:>13.3f} {row.rmse:>10.3f}{mark}")
+    pooled = metrics[metrics["quantity"] == "all"]
+    say(validation_text(metrics).rstrip("\n"))
     for scenario in sorted(surrogate.calibration_.borrowed_):
         if scenario in set(pooled["scenario"]):
             say(
@@ -259,6 +279,35 @@ def _command_fit(arguments, say):
                 f"of all scenarios pooled. Compute more cells to calibrate it on its own."
             )
     say(f"Model folder written: {arguments.out} ({elapsed:.1f} s)")
+
+
+def _command_validate(arguments, say):
+    from dopantgap import elements
+    from dopantgap.progress import bar
+    from dopantgap.surrogate import Surrogate
+    from dopantgap.table import read_table
+    from dopantgap.validate import validate, validation_text, write_validation
+
+    table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
+    for notice in table.attrs.get("notices", []):
+        say(f"note: {notice}")
+    hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
+    started = time.perf_counter()
+    say(f"Validating on {len(table)} computed cells of {table['element'].nunique()} elements ...")
+    estimator = Surrogate(
+        learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
+        random_state=arguments.seed,
+    )
+    n_candidates = 2 if arguments.learner == "auto" else 1
+    with bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet) as progress:
+        result = validate(table, estimator=estimator, random_state=arguments.seed, progress=progress)
+    paths = write_validation(result, arguments.out)
+    say(validation_text(result.metrics).rstrip("\n"))
+    say("new-element: all cells of an element hidden together; new-cell: single cells of computed "
+        "elements; upgrade: expensive cells whose cheap level is computed.")
+    say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
+    say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths)} "
+        f"({time.perf_counter() - started:.0f} s)")
 
 
 def _command_fill(arguments, say):
@@ -292,10 +341,10 @@ def _command_fill(arguments, say):
         say(f"Site preferences -> {sites_out}")
     else:
         say(f"No quantity has two or more sites in a host: {sites_out} lists no site preference.")
-    for symbol, block in unfamiliar_elements(surrogate, extra).items():
+    for symbol, reason in unfamiliar_elements(surrogate, extra).items():
         say(
-            f"caution: {symbol} is in the {block} block and the table has no element there: its "
-            f"estimates are extrapolations far outside the training data."
+            f"caution: {symbol} lies outside the training data ({reason}): its estimates are "
+            f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
     flagged = filled.loc[filled["caution"] != "", ["element", "caution"]].drop_duplicates()
     for row in flagged.itertuples(index=False):
@@ -340,10 +389,10 @@ def _command_next(arguments, say):
     for symbol in extra:
         if symbol not in table_elements:
             say(f"note: {symbol} has no computed cell: its values are new-element estimates with wide intervals.")
-    for symbol, block in unfamiliar_elements(surrogate, extra).items():
+    for symbol, reason in unfamiliar_elements(surrogate, extra).items():
         say(
-            f"caution: {symbol} is in the {block} block and the table has no element there: its "
-            f"estimates are extrapolations far outside the training data."
+            f"caution: {symbol} lies outside the training data ({reason}): its estimates are "
+            f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
     shown = list(dict.fromkeys(list(picks["element"]) + extra))
     if shown:
@@ -392,10 +441,10 @@ def _command_explain(arguments, say):
         say(f"  {target}: " + ", ".join(f"{f} {v:.2f}" for f, v in zip(top["feature"], top["importance"])))
     if len(listed) > 12:
         say(f"  ... {len(listed) - 12} more in {out / 'importance.csv'}")
-    for symbol, block in unfamiliar_elements(surrogate, asked).items():
+    for symbol, reason in unfamiliar_elements(surrogate, asked).items():
         say(
-            f"caution: {symbol} is in the {block} block and the table has no element there: its "
-            f"explanation describes an extrapolation far outside the training data."
+            f"caution: {symbol} lies outside the training data ({reason}): its "
+            f"explanation describes an extrapolation."
         )
     notes = elements.element_flags(shown)["note"]
     for symbol, note in notes.items():
@@ -544,6 +593,7 @@ def _command_replay(arguments, say):
 _COMMANDS = {
     "check": _command_check,
     "fit": _command_fit,
+    "validate": _command_validate,
     "fill": _command_fill,
     "next": _command_next,
     "explain": _command_explain,

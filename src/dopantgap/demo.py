@@ -21,6 +21,7 @@ from dopantgap.sites import site_preference
 from dopantgap.store import read_manifest, save_model
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import write_table
+from dopantgap.validate import validation_metrics, validation_text
 from dopantgap.world import invent_world, observe
 
 __all__ = ["DEMO_ABSENT", "DEMO_SEED", "demo_table", "demo_world", "run_demo"]
@@ -69,8 +70,15 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     write_table(table, table_path)
     report(f"Invented demo table (not DFT data): {len(table)} computed cells -> {table_path}")
     surrogate = Surrogate(random_state=0).fit(table)
-    save_model(surrogate, model_dir, source=table_path)
+    validation, _predictions = validation_metrics(surrogate, random_state=0)
+    save_model(surrogate, model_dir, source=table_path, validation=validation)
     report(f"Model folder: {model_dir} (learner kept: {surrogate.learner_})")
+    report("")
+    pooled = validation[validation["quantity"] == "all"]
+    shown = pooled[pooled["chosen"] | pooled["model"].str.contains("baseline")]
+    for line in validation_text(shown).rstrip("\n").splitlines():
+        report(line)
+    report("")
     filled = fill_table(surrogate, element_symbols=DEMO_ABSENT)
     write_table(filled, filled_path)
     preference = site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))

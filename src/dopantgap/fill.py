@@ -16,7 +16,7 @@ _BLOCK_NAMES = {0: "s", 1: "p", 2: "d", 3: "f"}
 #: The leading columns of a filled table, in order; the table's own extra columns follow.
 FILLED_COLUMNS = (
     "element", "host", "site", "method", "quantity",
-    "value", "std", "lo", "hi", "status", "scenario", "caution",
+    "value", "std", "lo", "hi", "status", "scenario", "domain_distance", "outside_domain", "caution",
 )
 
 
@@ -99,16 +99,40 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
 
 
 def unfamiliar_elements(surrogate, element_symbols):
-    """Elements from a periodic-table block that the table has no element of.
+    """Elements outside the model's domain of applicability, with the reason.
 
-    Their estimates are extrapolations (for example a lanthanide when the table holds
-    none) and deserve a warning, whatever their interval says.
+    The rule is ``domain.ElementDomain``'s (fitted on the table's elements): a block of
+    the periodic table that no table element belongs to (for example a lanthanide when
+    the table holds none), or a distance from every table element in standardised
+    descriptors larger than 95 % of the table's elements are from their nearest
+    neighbour. Their estimates are extrapolations and deserve a warning, whatever
+    their interval says.
 
     Returns
     -------
     dict
-        Symbol -> block letter, for the unfamiliar ones.
+        Symbol -> reason (a short phrase), for the elements outside.
     """
-    known = set(elements.descriptor_table(list(set(surrogate.table_["element"])))["block_index"])
-    asked = elements.descriptor_table(list(element_symbols))["block_index"]
-    return {symbol: _BLOCK_NAMES[int(block)] for symbol, block in asked.items() if block not in known}
+    symbols = list(dict.fromkeys(element_symbols))
+    if not symbols:
+        return {}
+    domain = surrogate.element_domain()
+    outside = domain.outside(symbols)
+    new_block = domain.new_block(symbols)
+    distance = domain.distance(symbols)
+    nearest = domain.nearest(symbols)
+    blocks = elements.descriptor_table(symbols)["block_index"]
+    reasons = {}
+    for position, symbol in enumerate(symbols):
+        if not outside[position]:
+            continue
+        if new_block[position]:
+            reasons[symbol] = (
+                f"in the {_BLOCK_NAMES[int(blocks.iat[position])]} block, and the table has no element there"
+            )
+        else:
+            reasons[symbol] = (
+                f"{distance[position]:.2f} from the nearest table element ({nearest[position]}) in "
+                f"standardised descriptors, beyond the domain limit {domain.threshold_:.2f}"
+            )
+    return reasons

@@ -27,7 +27,7 @@ from scipy.stats import norm  # noqa: E402
 
 from dopantgap import elements  # noqa: E402
 from dopantgap.atomic import write_bytes_atomic  # noqa: E402
-from dopantgap.calibration import SCENARIOS  # noqa: E402
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered  # noqa: E402
 from dopantgap.errors import DopantgapError  # noqa: E402
 from dopantgap.symbols import SYMBOLS  # noqa: E402
 
@@ -478,7 +478,7 @@ def parity_figure(cv_residuals, scenario=None, calibration=None):
 _DEFAULT_LEVELS = np.round(np.concatenate([np.arange(0.1, 0.95, 0.05), [0.95, 0.975, 0.99]]), 3)
 
 
-def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True):
+def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True, out_of_fold=False):
     """Share of hidden cells inside their central interval, against the interval's level.
 
     Parameters
@@ -492,12 +492,15 @@ def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True):
         Nominal levels; None: 0.10 to 0.99.
     show_raw : bool, default=True
         Also draw the uncalibrated Gaussian interval mean +/- z_L * raw_std (dotted).
+    out_of_fold : bool, default=False
+        Judge each fold's cells by the widths the other folds give
+        (``calibration.cross_conformal_covered``; needs a ``fold`` column): a test of
+        the calibration. Otherwise the curves are in-sample (the widths come from the
+        same residuals) and show how well split-conformal widths fit.
 
     Returns
     -------
     Figure
-        The calibrated curves are in-sample (the widths come from the same
-        residuals), so they show how well split-conformal widths fit, not a test.
     """
     _require(cv_residuals, ["value", "mean", "raw_std", "scenario", "quantity"], "The cross-validated residuals")
     levels = _DEFAULT_LEVELS if levels is None else np.asarray(levels, dtype=float)
@@ -511,13 +514,19 @@ def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True):
         rows = scenarios == name
         colour, marker = _SCENARIO_STYLE[name]
         observed, observed_raw = [], []
+        if out_of_fold:
+            scored = cv_residuals[rows].assign(z=error[rows] / np.maximum(raw[rows], 1e-12))
         for level in levels:
-            widths = {q: calibration.half_width(name, level, q) for q in set(quantities[rows])}
-            half = np.array([widths[q] for q in quantities[rows]]) * raw[rows]
-            observed.append(float(np.mean(error[rows] <= half)))
+            if out_of_fold:
+                observed.append(float(np.mean(cross_conformal_covered(scored, "z", float(level)))))
+            else:
+                widths = {q: calibration.half_width(name, level, q) for q in set(quantities[rows])}
+                half = np.array([widths[q] for q in quantities[rows]]) * raw[rows]
+                observed.append(float(np.mean(error[rows] <= half)))
             observed_raw.append(float(np.mean(error[rows] <= norm.ppf(0.5 + level / 2.0) * raw[rows])))
+        kind = "calibrated, out of fold" if out_of_fold else "calibrated"
         ax.plot(levels, observed, marker=marker, markersize=3.5, color=colour, linewidth=1.3,
-                label=f"{name}, calibrated ({rows.sum()} cells)")
+                label=f"{name}, {kind} ({rows.sum()} cells)")
         if show_raw:
             ax.plot(levels, observed_raw, color=colour, linewidth=1.0, linestyle=":",
                     label=f"{name}, raw Gaussian")

@@ -321,8 +321,8 @@ def _tags(flags, extrapolated):
 
 
 _TAG_CAPTION = (
-    "Corner letters: R radioactive, T toxic, X extrapolated (no element of its block in the "
-    "table). Colour maps cividis (values) and viridis (uncertainty) keep their order in grey."
+    "Corner letters: R radioactive, T toxic, X outside the training data (no element of its "
+    "block in the table, or farther from every table element than the domain limit). Colour maps cividis (values) and viridis (uncertainty) keep their order in grey."
 )
 
 
@@ -364,11 +364,10 @@ def _cautions(surrogate, flags, extrapolated, level):
         if row["note"]:
             kind = "radioactive" if row["radioactive"] else "toxic"
             items.append(f'<li class="{kind}"><b>{_text(symbol)}</b>: {_text(row["note"])}</li>')
-    for symbol, block in extrapolated.items():
+    for symbol, reason in extrapolated.items():
         items.append(
-            f'<li class="extrapolated"><b>{_text(symbol)}</b>: extrapolated: the table has no '
-            f"{_text(block)}-block element, so its estimates lie far outside the training data, "
-            f"whatever their interval says.</li>"
+            f'<li class="extrapolated"><b>{_text(symbol)}</b>: outside the training data '
+            f"({_text(reason)}): its estimates are extrapolations, whatever their interval says.</li>"
         )
     for scenario in SCENARIOS:
         n_residuals = surrogate.calibration_.n_residuals(scenario)
@@ -493,7 +492,8 @@ def _validation(surrogate):
         "<p>In each of the folds a group of elements was hidden entirely (new-element), the "
         "expensive cells of another group were hidden (upgrade) and single cells of the others "
         "(new-cell); the model was refitted on the rest and predicted what was hidden. The "
-        "calibrated coverage is in-sample (the widths come from these same residuals).</p>",
+        "calibrated coverage is cross-conformal: each fold's cells are judged by the interval "
+        "widths the other folds' residuals give.</p>",
         _table(metrics, digits=3),
         '<div class="pair">',
         _figure_html(
@@ -539,9 +539,9 @@ def _campaign(history, replay_curves):
 def _filled_table(filled, extrapolated):
     shown = filled.copy()
     shown["caution"] = shown["caution"].astype(str)
-    for symbol, block in extrapolated.items():
+    for symbol, reason in extrapolated.items():
         rows = shown["element"] == symbol
-        note = f"extrapolated: no {block}-block element in the table"
+        note = f"outside the training data: {reason}"
         shown.loc[rows, "caution"] = [f"{text}; {note}" if text else note for text in shown.loc[rows, "caution"]]
     classes = [
         " ".join(filter(None, ["flagged" if caution else "", "computed" if status == "computed" else ""]))

@@ -56,7 +56,7 @@ def _plain(value):
     return value
 
 
-def save_model(surrogate, folder, source=None):
+def save_model(surrogate, folder, source=None, validation=None):
     """Write a fitted surrogate and its manifest to ``folder`` (created if needed).
 
     Parameters
@@ -66,6 +66,9 @@ def save_model(surrogate, folder, source=None):
     folder : str or Path
     source : str or None, default=None
         Where the table came from (a path), recorded in the manifest.
+    validation : DataFrame or None, default=None
+        ``validate.validation_metrics`` output (learners and baselines, out of fold),
+        recorded in the manifest under ``validation``.
 
     Returns
     -------
@@ -101,6 +104,8 @@ def save_model(surrogate, folder, source=None):
         "cross_validation": _plain(surrogate.cv_metrics_.to_dict(orient="records")),
         "calibration_borrowed": sorted(surrogate.calibration_.borrowed_),
     }
+    if validation is not None:
+        manifest["validation"] = _plain(validation.to_dict(orient="records"))
     write_bytes_atomic(folder / MODEL_FILE_NAME, model_bytes)
     # the manifest last: a folder with a manifest is a complete folder
     write_text_atomic(folder / MANIFEST_NAME, json.dumps(manifest, indent=2, sort_keys=True) + "\n")

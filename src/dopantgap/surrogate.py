@@ -26,7 +26,8 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
 from dopantgap import elements
-from dopantgap.calibration import SCENARIOS, ScenarioCalibration
+from dopantgap.calibration import SCENARIOS, ScenarioCalibration, cross_conformal_covered
+from dopantgap.domain import ElementDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS, CellEncoder
 from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner
@@ -159,10 +160,16 @@ class Surrogate(BaseEstimator):
     cv_residuals_ : DataFrame
         Out-of-fold predictions of the kept learner: the cell, truth, mean, raw std,
         standardised residual and scenario.
+    cv_residuals_by_learner_ : dict
+        Learner name -> its out-of-fold predictions (as ``cv_residuals_``); every
+        residual carries its ``fold`` (main folds first, then the upgrade loop's).
     cv_metrics_ : DataFrame
         Per learner, scenario and quantity: n, mae, rmse, the out-of-fold coverage of
-        the raw 90 % Gaussian interval, and of the calibrated one (in-sample, ~0.9 by
-        construction).
+        the raw 90 % Gaussian interval (``coverage_raw``), and of the calibrated one
+        (``coverage_calibrated``, cross-conformal: each fold's cells judged by the
+        widths the other folds' residuals give, ``calibration.cross_conformal_covered``).
+    domain_ : ElementDomain
+        Distance of any element from the table's elements (``domain.ElementDomain``).
 
     Examples
     --------
@@ -249,7 +256,9 @@ class Surrogate(BaseEstimator):
         self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
         self.stages_ = fitted[self.learner_]
         self.cv_residuals_ = residuals[self.learner_]
+        self.cv_residuals_by_learner_ = residuals
         self.calibration_ = _calibration(self.cv_residuals_)
+        self.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
         self.cv_metrics_ = pd.concat(
             [self._metrics(name, residuals[name]) for name in candidates], ignore_index=True
         )
@@ -304,6 +313,8 @@ class Surrogate(BaseEstimator):
         fresh.calibration_ = self.calibration_
         fresh.cv_residuals_ = self.cv_residuals_
         fresh.cv_metrics_ = self.cv_metrics_
+        fresh.cv_residuals_by_learner_ = getattr(self, "cv_residuals_by_learner_", {})
+        fresh.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
         return fresh
 
     def _fit_candidate(self, core, name):
@@ -491,8 +502,10 @@ class Surrogate(BaseEstimator):
         DataFrame
             The cell columns plus ``value``, ``std``, ``lo``, ``hi``, ``status``
             (``computed``: the table's own value, passed through unchanged, with
-            std 0 and lo = hi = value; ``predicted`` otherwise) and ``scenario``
-            (empty for computed cells).
+            std 0 and lo = hi = value; ``predicted`` otherwise), ``scenario``
+            (empty for computed cells), ``domain_distance`` (distance of the element
+            from the table's elements in standardised descriptors, 0 for a table
+            element) and ``outside_domain`` (``domain.ElementDomain`` rule).
         """
         cells = self._check_cells(cells)
         core = self.table_[list(REQUIRED_COLUMNS)]
@@ -520,7 +533,21 @@ class Surrogate(BaseEstimator):
         result["hi"] = values + half
         result["status"] = np.where(is_computed, "computed", "predicted")
         result["scenario"] = scenarios
+        domain = self.element_domain()
+        unique, inverse = np.unique(cells["element"].to_numpy(dtype=object).astype(str), return_inverse=True)
+        result["domain_distance"] = domain.distance(list(unique))[inverse] if len(unique) else 0.0
+        result["outside_domain"] = domain.outside(list(unique))[inverse] if len(unique) else False
         return result
+
+    def element_domain(self):
+        """The model's domain of applicability over elements (``domain.ElementDomain``),
+        fitted on the table's elements (rebuilt for a model saved without one)."""
+        check_is_fitted(self)
+        domain = getattr(self, "domain_", None)
+        if domain is None:
+            domain = ElementDomain(descriptors=self.descriptors_).fit(list(self.table_["element"]))
+            self.domain_ = domain
+        return domain
 
     def predict_joint(self, cells):
         """Calibrated mean and covariance of cells of one quantity and method.
@@ -600,7 +627,7 @@ class Surrogate(BaseEstimator):
     def _cross_validate(self, core, name, template):
         """Out-of-fold predictions of every hidden cell, with its scenario."""
         records = []
-        for test in self._fold_masks(core):
+        for fold, test in enumerate(self._fold_masks(core)):
             if not test.any():
                 continue
             training, held_out = core[~test], core[test].reset_index(drop=True)
@@ -616,6 +643,7 @@ class Surrogate(BaseEstimator):
             part["mean"] = mean
             part["raw_std"] = std
             part["scenario"] = self._scenarios(training, held_out)
+            part["fold"] = fold
             records.append(part)
         if not records:
             raise DopantgapError(
@@ -632,6 +660,8 @@ class Surrogate(BaseEstimator):
         their computed cheap level (the only part of the chain an upgrade needs)."""
         records = []
         rng = np.random.default_rng(self.random_state + 1)
+        # fold numbers continue after the main loop's, so that every fold id is unique
+        fold = int(min(max(self.n_folds, 2), core["element"].nunique()))
         for quantity, methods in self.quantity_levels_.items():
             for position in range(1, len(methods)):
                 cells, target, kind = self._stage_rows(core, quantity, position)
@@ -657,11 +687,13 @@ class Surrogate(BaseEstimator):
                     part["mean"] = np.asarray(correction, dtype=float) + cheap.to_numpy()
                     part["raw_std"] = np.asarray(std, dtype=float)
                     part["scenario"] = "upgrade"
+                    part["fold"] = fold
+                    fold += 1
                     records.append(part)
         if not records:
             return pd.DataFrame()
         residuals = pd.concat(records, ignore_index=True)[
-            list(REQUIRED_COLUMNS) + ["mean", "raw_std", "scenario"]
+            list(REQUIRED_COLUMNS) + ["mean", "raw_std", "scenario", "fold"]
         ]
         residuals["error"] = residuals["value"] - residuals["mean"]
         residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
@@ -669,13 +701,12 @@ class Surrogate(BaseEstimator):
 
     def _metrics(self, name, residuals):
         rows = []
-        calibration = _calibration(residuals)
+        residuals = residuals.assign(covered=cross_conformal_covered(residuals, "z", 0.9))
         for scenario in SCENARIOS:
             part = residuals[residuals["scenario"] == scenario]
             for quantity, sub in [("all", part)] + list(part.groupby("quantity")):
                 if len(sub) == 0:
                     continue
-                scale = calibration.half_width(scenario, 0.9, None if quantity == "all" else quantity)
                 rows.append(
                     {
                         "learner": name,
@@ -685,7 +716,7 @@ class Surrogate(BaseEstimator):
                         "mae": float(np.mean(np.abs(sub["error"]))),
                         "rmse": float(np.sqrt(np.mean(sub["error"] ** 2))),
                         "coverage_raw": float(np.mean(np.abs(sub["z"]) <= 1.6448536269514722)),
-                        "coverage_calibrated": float(np.mean(np.abs(sub["z"]) <= scale)),
+                        "coverage_calibrated": float(np.mean(sub["covered"])),
                     }
                 )
         return pd.DataFrame(rows)

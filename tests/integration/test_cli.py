@@ -46,6 +46,12 @@ def test_fit_writes_manifest_with_metrics(workspace):
     assert manifest["levels"] == ["gga", "hyb"]
     scenarios = {row["scenario"] for row in manifest["cross_validation"]}
     assert scenarios == {"new-cell", "new-element", "upgrade"}
+    # validation metrics of the learner and the baselines, out of fold
+    validation = manifest["validation"]
+    assert {row["scenario"] for row in validation} == scenarios
+    assert {row["model"] for row in validation if row["chosen"]} == {"gp"}
+    assert any("baseline" in row["model"] for row in validation)
+    assert all(0.0 <= row["coverage"] <= 1.0 for row in validation)
 
 
 def test_fill_outputs(workspace, capsys):
@@ -57,9 +63,9 @@ def test_fill_outputs(workspace, capsys):
     # As is toxic, Ba is not: the caution names the flagged element
     assert re.search(r"caution: As: toxic", output)
     filled = pd.read_csv(filled_path, keep_default_na=False)
-    assert list(filled.columns[:12]) == [
+    assert list(filled.columns[:14]) == [
         "element", "host", "site", "method", "quantity",
-        "value", "std", "lo", "hi", "status", "scenario", "caution",
+        "value", "std", "lo", "hi", "status", "scenario", "domain_distance", "outside_domain", "caution",
     ]
     table = pd.read_csv(workspace["table"])
     n_columns = table[["host", "site", "method", "quantity"]].drop_duplicates().shape[0]
@@ -146,7 +152,7 @@ def test_radioactive_and_extrapolated_elements_get_cautions(workspace, capsys, t
     assert main(["fill", str(workspace["model"]), "--out", str(tmp_path / "u.csv"), "--elements", "U"]) == 0
     output = capsys.readouterr().out
     assert "caution: U: radioactive" in output
-    assert "caution: U is in the f block" in output and "extrapolation" in output
+    assert "caution: U lies outside the training data (in the f block" in output and "extrapolation" in output
     filled = pd.read_csv(tmp_path / "u.csv", keep_default_na=False)
     assert set(filled.loc[filled["element"] == "U", "caution"]) == {"radioactive: no stable isotope"}
 

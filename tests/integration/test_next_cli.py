@@ -45,7 +45,7 @@ def test_next_window_implies_its_goal_and_cautions_new_elements(tmp_path, capsys
     assert "picks for goal window" in printed
     assert "caution: Pu: radioactive" in printed
     assert "caution: Hg: toxic" in printed
-    assert "Pu is in the f block" in printed
+    assert "Pu lies outside the training data (in the f block" in printed
     picks = pd.read_csv(out, keep_default_na=False)
     assert (picks["quantity"] == "E_bind").all() and (picks["benefit_unit"] == "bits").all()
 

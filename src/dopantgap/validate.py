@@ -1,0 +1,255 @@
+"""How far to trust the estimates: grouped cross-validation of every learner and baseline.
+
+A researcher acts on an estimate only when the tool tells the truth about its error, and
+most of all for elements it has never seen. :func:`validate` fits a surrogate (which
+cross-validates each candidate learner while choosing one, see ``surrogate``) and
+scores, on exactly the same folds, the reference predictors of ``baselines``. Every
+figure is out of fold:
+
+* the scenarios are those of ``calibration.SCENARIOS``: ``new-element`` (all cells of an
+  element hidden together; the element is absent from the fold's training table, its
+  descriptors and scalers included), ``new-cell`` (single cells of elements otherwise
+  computed) and ``upgrade`` (expensive-level cells whose cheap level is computed: their
+  own loop, leaving out the elements computed at both levels a few at a time);
+* ``coverage`` is the share of hidden values inside the 90 % interval, judged
+  cross-conformally: each fold's cells against the widths the *other* folds' residuals
+  give (``calibration.cross_conformal_covered``). A learner's interval is its
+  calibrated one (standardised residuals); a baseline, having no spread of its own,
+  gets ``mean +/- q`` with q the conformal quantile of the other folds' absolute errors.
+
+Baselines are trained, for each fold, on the table minus that fold's hidden cells: the
+same training cells the learners saw.
+
+Outputs of :func:`write_validation`: ``metrics.csv`` (``METRIC_COLUMNS``; one row per
+scenario, model and quantity plus a pooled row with quantity ``all``),
+``predictions.csv`` (every out-of-fold prediction of every model), and per scenario
+``parity_<scenario>.png`` and ``calibration_<scenario>.png`` of the learner ``fit``
+keeps.
+"""
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from sklearn.base import clone
+
+from dopantgap import plots
+from dopantgap.baselines import BASELINES, predict_baseline
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered
+from dopantgap.surrogate import Surrogate
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
+
+__all__ = [
+    "METRIC_COLUMNS",
+    "ValidationResult",
+    "baseline_residuals",
+    "validate",
+    "validation_metrics",
+    "validation_text",
+    "write_validation",
+]
+
+#: Columns of ``metrics.csv``, in order.
+METRIC_COLUMNS = ("scenario", "model", "quantity", "mae", "rmse", "coverage", "n", "chosen")
+#: Level of the intervals whose coverage is reported.
+LEVEL = 0.9
+
+_PREDICTION_COLUMNS = list(REQUIRED_COLUMNS) + ["scenario", "fold", "model", "mean", "error"]
+
+
+@dataclass
+class ValidationResult:
+    """What :func:`validate` found.
+
+    Attributes
+    ----------
+    metrics : DataFrame
+        ``METRIC_COLUMNS``.
+    predictions : DataFrame
+        Every out-of-fold prediction: the cell, its computed ``value``, ``scenario``,
+        ``fold``, ``model``, ``mean`` and ``error`` (value - mean), plus ``covered``.
+    surrogate : Surrogate
+        The fitted model (the one ``fit`` would write).
+    """
+
+    metrics: pd.DataFrame
+    predictions: pd.DataFrame
+    surrogate: Surrogate = field(repr=False, default=None)
+
+
+def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
+    """Out-of-fold predictions of the baselines on the surrogate's own folds.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        Fitted; its ``cv_residuals_`` give the folds (cells hidden together).
+    baselines : sequence of str, default=BASELINES
+    random_state : int, default=0
+
+    Returns
+    -------
+    DataFrame
+        Columns of ``predictions`` (``_PREDICTION_COLUMNS``), one row per baseline and
+        hidden cell.
+    """
+    core = surrogate.table_[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+    core_keys = pd.MultiIndex.from_frame(core[list(KEY_COLUMNS)])
+    residuals = surrogate.cv_residuals_
+    parts = []
+    for fold, hidden in residuals.groupby("fold", sort=True):
+        hidden = hidden.reset_index(drop=True)
+        is_hidden = core_keys.isin(pd.MultiIndex.from_frame(hidden[list(KEY_COLUMNS)]))
+        training = core[~is_hidden]
+        for name in baselines:
+            mean = predict_baseline(name, training, hidden[list(KEY_COLUMNS)], surrogate.levels_,
+                                    random_state=random_state)
+            part = hidden[list(REQUIRED_COLUMNS) + ["scenario"]].copy()
+            part["fold"] = fold
+            part["model"] = name
+            part["mean"] = np.asarray(mean, dtype=float)
+            parts.append(part)
+    if not parts:
+        return pd.DataFrame(columns=_PREDICTION_COLUMNS)
+    out = pd.concat(parts, ignore_index=True)
+    out["error"] = out["value"] - out["mean"]
+    return out[_PREDICTION_COLUMNS]
+
+
+def _learner_predictions(surrogate):
+    by_learner = getattr(surrogate, "cv_residuals_by_learner_", None) or {
+        surrogate.learner_: surrogate.cv_residuals_
+    }
+    parts = []
+    for name, residuals in by_learner.items():
+        part = residuals.copy()
+        part["model"] = name
+        part["covered"] = cross_conformal_covered(part, "z", LEVEL)
+        parts.append(part)
+    return pd.concat(parts, ignore_index=True)
+
+
+def validation_metrics(surrogate, baselines=BASELINES, random_state=0):
+    """Out-of-fold error and coverage of every learner and baseline, per scenario.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        A fitted surrogate.
+    baselines : sequence of str, default=BASELINES
+        Baselines to score (``baselines.BASELINES``); empty: learners only.
+    random_state : int, default=0
+
+    Returns
+    -------
+    metrics : DataFrame
+        ``METRIC_COLUMNS``: scenario, model, quantity (``all`` for the pooled row),
+        mae and rmse (eV), coverage of the 90 % interval, n cells, chosen (the learner
+        ``fit`` keeps).
+    predictions : DataFrame
+        Every out-of-fold prediction (``ValidationResult.predictions``).
+    """
+    learners = _learner_predictions(surrogate)
+    frames = [learners]
+    if baselines:
+        reference = baseline_residuals(surrogate, baselines, random_state)
+        covered = np.zeros(len(reference), dtype=bool)
+        for _name, rows in reference.groupby("model", sort=False):
+            covered[rows.index.to_numpy()] = cross_conformal_covered(rows, "error", LEVEL)
+        frames.append(reference.assign(covered=covered))
+    predictions = pd.concat(frames, ignore_index=True)
+    predictions = predictions[_PREDICTION_COLUMNS + ["covered"] + [c for c in ("raw_std", "z") if c in predictions]]
+    rows = []
+    models = list(dict.fromkeys(predictions["model"]))
+    for scenario in SCENARIOS:
+        for model in models:
+            part = predictions[(predictions["scenario"] == scenario) & (predictions["model"] == model)]
+            for quantity, sub in [("all", part)] + list(part.groupby("quantity")):
+                if len(sub) == 0:
+                    continue
+                error = sub["error"].to_numpy(dtype=float)
+                rows.append({
+                    "scenario": scenario, "model": model, "quantity": quantity,
+                    "mae": float(np.mean(np.abs(error))), "rmse": float(np.sqrt(np.mean(error**2))),
+                    "coverage": float(np.mean(sub["covered"])), "n": int(len(sub)),
+                    "chosen": bool(model == surrogate.learner_),
+                })
+    return pd.DataFrame(rows, columns=list(METRIC_COLUMNS)), predictions
+
+
+def validate(table, estimator=None, baselines=BASELINES, random_state=0, progress=None):
+    """Fit a surrogate and score it, and the baselines, in every scenario.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Long table (``table.read_table``).
+    estimator : Surrogate or None, default=None
+        Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+    baselines : sequence of str, default=BASELINES
+    random_state : int, default=0
+    progress : object with ``update(n)`` or None
+        Passed to ``Surrogate.fit``.
+
+    Returns
+    -------
+    ValidationResult
+    """
+    estimator = Surrogate(random_state=random_state) if estimator is None else clone(estimator)
+    surrogate = estimator.fit(table, progress=progress)
+    metrics, predictions = validation_metrics(surrogate, baselines, random_state)
+    return ValidationResult(metrics=metrics, predictions=predictions, surrogate=surrogate)
+
+
+def write_validation(result, out_dir):
+    """Write ``metrics.csv``, ``predictions.csv`` and the figures per scenario.
+
+    Parameters
+    ----------
+    result : ValidationResult
+    out_dir : str or Path
+        Created if needed.
+
+    Returns
+    -------
+    list of Path
+    """
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, frame in (("metrics.csv", result.metrics), ("predictions.csv", result.predictions)):
+        write_table(frame, out_dir / name)
+        written.append(out_dir / name)
+    surrogate = result.surrogate
+    kept = result.predictions[result.predictions["model"] == surrogate.learner_]
+    for scenario in SCENARIOS:
+        rows = kept[kept["scenario"] == scenario]
+        if len(rows) == 0:
+            continue
+        figures = {
+            f"parity_{scenario}.png": plots.parity_figure(rows, scenario=scenario, calibration=surrogate.calibration_),
+            f"calibration_{scenario}.png": plots.calibration_figure(
+                rows, surrogate.calibration_, out_of_fold=True
+            ),
+        }
+        for name, figure in figures.items():
+            plots.save_png(figure, out_dir / name)
+            written.append(out_dir / name)
+    return written
+
+
+def validation_text(metrics, level=LEVEL):
+    """Plain-text table of the pooled rows, learners then baselines, per scenario."""
+    pooled = metrics[metrics["quantity"] == "all"]
+    lines = [
+        f"Out-of-fold error (eV) and share of hidden values inside the {level:.0%} interval:",
+        f"  {'scenario':<12} {'model':<26} {'cells':>6} {'mean |error|':>13} {'rms error':>10} {'coverage':>9}",
+    ]
+    for row in pooled.itertuples(index=False):
+        mark = "  <- kept" if row.chosen else ""
+        lines.append(
+            f"  {row.scenario:<12} {row.model:<26} {row.n:>6} {row.mae:>13.3f} {row.rmse:>10.3f} "
+            f"{row.coverage:>8.0%}{mark}"
+        )
+    return "\n".join(lines) + "\n"
