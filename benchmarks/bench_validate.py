@@ -72,12 +72,14 @@ def run_world(world_name, element_sd, seed):
 
     filled = fill_table(result.surrogate, element_symbols=list(absent))
     hidden = filled[filled["element"].isin(absent) & (filled["status"] != "computed")]
-    truth = hidden[list(KEY_COLUMNS)].merge(world, on=list(KEY_COLUMNS), how="left")["truth"].to_numpy()
-    real_error = float(np.mean(np.abs(hidden["value"].to_numpy() - truth)))
+    revealed = hidden[list(KEY_COLUMNS)].merge(world, on=list(KEY_COLUMNS), how="left")
+    estimate = hidden["value"].to_numpy()
+    real_error = float(np.mean(np.abs(estimate - revealed["value"].to_numpy())))
+    truth_error = float(np.mean(np.abs(estimate - revealed["truth"].to_numpy())))
     kept = pooled[pooled["chosen"] & (pooled["scenario"] == "new-element")]
     honesty = {
         "world": world_name, "seed": seed, "learner": result.surrogate.learner_,
-        "reported": float(kept["mae"].iloc[0]), "real": real_error,
+        "reported": float(kept["mae"].iloc[0]), "real": real_error, "truth": truth_error,
     }
     return pooled, honesty
 
@@ -128,11 +130,15 @@ def report_honesty(honesty):
     rows = []
     for row in frame.itertuples(index=False):
         ratio = row.reported / row.real
-        rows.append([row.world, row.seed, row.learner, f"{row.reported:.3f}", f"{row.real:.3f}", f"{ratio:.2f}"])
+        rows.append([
+            row.world, row.seed, row.learner, f"{row.reported:.3f}", f"{row.real:.3f}", f"{ratio:.2f}",
+            f"{row.truth:.3f}",
+        ])
     print_block(
         f"2. new-element error: reported by validate against the real error on {N_ABSENT} elements "
-        "left out of the table (eV; real = against the noise-free truth)",
-        ["world", "seed", "learner", "reported", "real", "ratio"], rows,
+        "left out of the table (eV; real = against their noisy values, as validate scores; "
+        "vs truth = against the noise-free truth)",
+        ["world", "seed", "learner", "reported", "real", "ratio", "vs truth"], rows,
     )
     ratios = frame["reported"] / frame["real"]
     return bool(((ratios <= TARGET_HONESTY_FACTOR) & (ratios >= 1.0 / TARGET_HONESTY_FACTOR)).all())

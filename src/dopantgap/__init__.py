@@ -9,6 +9,7 @@ The Python API mirrors the command line::
     sites = dg.site_preference(model)
     picks = dg.pick_next(model, count=5, method="hyb", cost={"gga": 1, "hyb": 30})
     explained = dg.explain_model(model)
+    checked = dg.validate_table(table)       # out-of-fold error per scenario, with baselines
     dg.save_model(model, "models/mine")
 """
 
@@ -44,13 +45,16 @@ __all__ = [
     "save_model",
     "site_preference",
     "to_wide",
+    "validate_table",
     "write_table",
 ]
 
 # the heavier consumers (shap, matplotlib) load on first use, so the command line starts fast
 _LAZY = {
-    "build_report": "dopantgap.report",
-    "explain_model": "dopantgap.explain",
+    "build_report": ("dopantgap.report", "build_report"),
+    "explain_model": ("dopantgap.explain", "explain_model"),
+    # not "validate": importing the submodule dopantgap.validate would shadow the name
+    "validate_table": ("dopantgap.validate", "validate"),
 }
 
 
@@ -58,5 +62,6 @@ def __getattr__(name):
     if name in _LAZY:
         import importlib
 
-        return getattr(importlib.import_module(_LAZY[name]), name)
+        module, attribute = _LAZY[name]
+        return getattr(importlib.import_module(module), attribute)
     raise AttributeError(f"module 'dopantgap' has no attribute {name!r}")

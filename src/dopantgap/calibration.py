@@ -138,7 +138,10 @@ def cross_conformal_covered(residuals, score_column="z", level=0.9):
         calibration = ScenarioCalibration(
             {key: part[score_column].to_numpy(dtype=float) for key, part in others.groupby(["scenario", "quantity"])}
         )
+        widths = {}
         for position in np.flatnonzero(inside):
-            half = calibration.half_width(scenarios[position], level, quantities[position])
-            covered[position] = scores[position] <= half
+            key = (scenarios[position], quantities[position])
+            if key not in widths:
+                widths[key] = calibration.half_width(key[0], level, key[1])
+            covered[position] = scores[position] <= widths[key]
     return covered
