@@ -1,6 +1,7 @@
 """Command line: argument parsing only; the work is done by the library."""
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
@@ -305,6 +306,8 @@ def _command_validate(arguments, say):
     say(validation_text(result.metrics).rstrip("\n"))
     say("new-element: all cells of an element hidden together; new-cell: single cells of computed "
         "elements; upgrade: expensive cells whose cheap level is computed.")
+    say("gp, boost: the learners ('fit' keeps the marked one). Baselines are rules one could follow "
+        "by hand, for comparison; level-shift takes the column mean where no cheaper level is computed.")
     say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
     say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths)} "
         f"({time.perf_counter() - started:.0f} s)")
@@ -620,6 +623,12 @@ def main(argv=None):
     except DopantgapError as error:
         print(f"dopantgap {arguments.command}: {error}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        # output piped into `head` or a pager that closed early: nothing more to say; point
+        # stdout at devnull so the interpreter's final flush does not complain either
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except OSError as error:
         # a folder where a file should go, a full disk, no permission: the user's to fix
         target = error.filename or ""
