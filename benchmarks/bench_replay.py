@@ -37,7 +37,7 @@ import time
 import numpy as np
 
 from dopantgap.demo import demo_world
-from dopantgap.replay import replay, replay_text
+from dopantgap.replay import replay, replay_text, write_replay
 from dopantgap.surrogate import Surrogate
 
 TARGET_TABLE_RATIO = 0.85
@@ -68,6 +68,8 @@ def main(argv=None):
     parser.add_argument("--quick", action="store_true", help="2 rounds of 5 picks, 2 random seeds")
     parser.add_argument("--against", choices=("truth", "table"), default="truth",
                         help="score against the noise-free truth (default) or the noisy completed table")
+    parser.add_argument("--out", metavar="DIR", default=None,
+                        help="also write the replay's files (curves, learning_curves.png) into DIR")
     arguments = parser.parse_args(argv)
     if arguments.quick:
         arguments.rounds, arguments.per_round, arguments.seeds = 2, 5, 2
@@ -99,6 +101,9 @@ def main(argv=None):
     round_seconds = (steps[-1] - steps[0]) / max(len(steps) - 1, 1)
     print(f"wall time {elapsed:.0f} s: initial fit {fit_seconds:.1f} s, then {round_seconds:.1f} s per "
           f"strategy round on average ({len(steps) - 1} strategy rounds)")
+    if arguments.out:
+        written = write_replay(result, arguments.out)
+        print(f"files written: {', '.join(str(path) for path in written.values())}")
     print()
     print(replay_text(result))
     curves = result.curves

@@ -23,6 +23,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.colors import Normalize, to_rgb  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
 from scipy.stats import norm  # noqa: E402
 
 from dopantgap import elements  # noqa: E402
@@ -542,6 +543,10 @@ def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True, ou
 
 
 # ----------------------------------------------------------------------------- campaigns
+def _strategy_label(strategy, n_seeds):
+    return f"{strategy} ({n_seeds} seed{'s' if n_seeds != 1 else ''})"
+
+
 def learning_curve_figure(curves, cost_unit="cost units"):
     """Error against cost spent for each picking strategy, over replayed seeds.
 
@@ -571,13 +576,14 @@ def learning_curve_figure(curves, cost_unit="cost units"):
             high = by_round[column].quantile(0.75)
             axes.fill_between(cost.to_numpy(), low.to_numpy(), high.to_numpy(), color=colour, alpha=0.2, linewidth=0)
             axes.plot(cost.to_numpy(), middle.to_numpy(), color=colour, marker=marker, markersize=3.5,
-                      linewidth=1.4, label=f"{strategy} ({rows['seed'].nunique()} seeds)")
+                      linewidth=1.4, label=_strategy_label(strategy, rows["seed"].nunique()))
     error_axes.set_xlabel(f"cost spent ({cost_unit})")
     error_axes.set_ylabel("mean |error| of cells not yet revealed (eV)")
     error_axes.set_title("Error as calculations are added", fontsize=9)
     decided_axes.set_xlabel(f"cost spent ({cost_unit})")
     decided_axes.set_ylabel("site questions decided (count)")
     decided_axes.set_title("Decisions reached", fontsize=9)
+    decided_axes.yaxis.set_major_locator(MaxNLocator(integer=True))
     error_axes.legend(fontsize=7)
     figure.suptitle("Replay: median over seeds, band 25th-75th percentile", fontsize=10)
     return figure
