@@ -109,6 +109,18 @@ def test_report_sections(built):
     assert page.count("<tr") > 1368  # every filled cell is a row
 
 
+def test_report_compares_learners_with_the_baselines_fit_stored(built):
+    page = built["html"]
+    _, manifest = load_model(MODEL)
+    stored = [row for row in manifest["validation"] if row["quantity"] == "all"]
+    assert stored, "the demo model folder should carry fit's validation metrics"
+    section = page[page.index("The same folds"):]
+    for row in stored:
+        assert f"<td>{row['model']}</td>" in section
+    kept = next(row for row in stored if row["chosen"] and row["scenario"] == "new-element")
+    assert f'<td class="num">{kept["mae"]:.3f}</td>' in section
+
+
 def test_report_without_explanations_says_how_to_make_them(tmp_path):
     surrogate, manifest = load_model(MODEL)
     page = report._explanations(None, ())
