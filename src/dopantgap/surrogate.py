@@ -47,6 +47,12 @@ _MIN_ROWS_FOR_CORRECTION = 3
 # Stages with at most this many training rows re-optimise their hyperparameters in
 # each cross-validation fold; larger ones reuse the full fit's.
 _MAX_ROWS_REOPTIMISED = 60
+# A refreshed model (campaign rounds, replay) re-optimises a stage's hyperparameters once
+# it has this many times the rows they were optimised on (common practice, no source:
+# hyperparameters fitted on a handful of elements go stale as the stage grows; measured
+# on the invented demo world, a replay that never re-optimised learned the expensive level
+# half as fast).
+_REOPTIMISE_GROWTH = 1.25
 # Folds of the upgrade loop: at most this many, over the elements computed at both
 # levels (leave-one-element-out when there are fewer).
 _UPGRADE_FOLDS = 12
@@ -117,12 +123,23 @@ def _calibration(residuals):
 class _Stage:
     """A fitted model of one quantity at one level: its encoder, learner and kind."""
 
-    def __init__(self, quantity, method, kind, encoder, learner):
+    def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None):
         self.quantity = quantity
         self.method = method
         self.kind = kind  # "direct" or "correction"
         self.encoder = encoder
         self.learner = learner
+        # training rows when the learner's hyperparameters were last optimised
+        self.tuned_rows = tuned_rows
+
+
+def _tuned_rows(stage):
+    """Rows a stage's hyperparameters were optimised on (its rows, for older model folders)."""
+    tuned = getattr(stage, "tuned_rows", None)
+    if tuned is not None:
+        return tuned
+    regressor = getattr(stage.learner, "regressor_", None)
+    return len(regressor.X_train_) if regressor is not None else 0
 
 
 class Surrogate(BaseEstimator):
@@ -309,7 +326,7 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         fresh.learner_ = self.learner_
-        fresh.stages_ = fresh._fit_stages(core, self.learner_, template=self.stages_, always_reuse=True)
+        fresh.stages_ = fresh._fit_stages(core, self.learner_, template=self.stages_, always_reuse="grown")
         fresh.calibration_ = self.calibration_
         fresh.cv_residuals_ = self.cv_residuals_
         fresh.cv_metrics_ = self.cv_metrics_
@@ -346,12 +363,13 @@ class Surrogate(BaseEstimator):
             fixed = None
             # folds reuse the full fit's hyperparameters only where optimising them is
             # costly; small stages (corrections learned from few elements) re-optimise in
-            # every fold, so that their cross-validated spread is honest
-            if (
-                template is not None
-                and isinstance(template.learner, GPLearner)
-                and (always_reuse or n_rows > _MAX_ROWS_REOPTIMISED)
-            ):
+            # every fold, so that their cross-validated spread is honest. A refreshed
+            # model ("grown") reuses them until the stage has outgrown them.
+            if always_reuse == "grown":
+                reuse = template is not None and n_rows <= _REOPTIMISE_GROWTH * _tuned_rows(template)
+            else:
+                reuse = always_reuse or n_rows > _MAX_ROWS_REOPTIMISED
+            if template is not None and isinstance(template.learner, GPLearner) and reuse:
                 fixed = template.learner.kernel_
             element_label, column_label = encoder.label_columns_
             # the column indicators already give each column its own behaviour; a
@@ -368,7 +386,9 @@ class Surrogate(BaseEstimator):
 
     def _fit_stages(self, core, name, template, always_reuse=False):
         """Fit one stage per quantity and level; ``template`` reuses fitted hyperparameters
-        (of stages above ``_MAX_ROWS_REOPTIMISED`` rows, or of all with ``always_reuse``)."""
+        (of stages above ``_MAX_ROWS_REOPTIMISED`` rows, of all with ``always_reuse=True``,
+        of those not grown past ``_REOPTIMISE_GROWTH`` times their tuning rows with
+        ``always_reuse="grown"``)."""
         stages = {}
         for quantity, methods in self.quantity_levels_.items():
             for position, method in enumerate(methods):
@@ -386,7 +406,9 @@ class Surrogate(BaseEstimator):
                     name, encoder, len(cells), model_template, always_reuse=always_reuse
                 )
                 learner.fit(encoder.transform(cells), target)
-                stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner)
+                reused = isinstance(learner, GPLearner) and learner.fixed_kernel is not None
+                tuned = _tuned_rows(model_template) if reused else len(cells)
+                stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner, tuned)
         return stages
 
     # ------------------------------------------------------------ predicting

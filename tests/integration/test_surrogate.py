@@ -188,3 +188,36 @@ def test_fit_reports_progress_once_per_candidate_learner():
     counter = Counter()
     Surrogate(learner="auto", n_folds=2, random_state=0).fit(table, progress=counter)
     assert counter.steps == 2
+
+
+def test_refreshed_model_reoptimises_only_stages_that_outgrew_their_hyperparameters(rough):
+    """Campaign rounds and replay relearn with the fitted kernels; a stage grown past
+    ``_REOPTIMISE_GROWTH`` times the rows its kernel was tuned on gets a new one."""
+    world, table, model, _ = rough
+    stage_key = ("E_sol", "hyb")
+    before = model.stages_[stage_key]
+    tuned = before.tuned_rows
+    assert tuned == len(model._stage_rows(table[["element", "host", "site", "method", "quantity", "value"]],
+                                          "E_sol", 1)[0])
+    computed = set(table["element"])
+    hyb_computed = set(table.loc[table["method"] == "hyb", "element"])
+    fresh_elements = [e for e in dict.fromkeys(world["element"]) if e in computed and e not in hyb_computed]
+    hyb = world[(world["method"] == "hyb") & (world["quantity"] == "E_sol")]
+
+    def grown_by(n_elements):
+        added = hyb[hyb["element"].isin(fresh_elements[:n_elements])]
+        return pd.concat([table, added[table.columns.intersection(added.columns)]], ignore_index=True)
+
+    one = model.refreshed(grown_by(1))
+    assert one.stages_[stage_key].learner.fixed_kernel is not None  # a few cells: kernel kept
+    assert one.stages_[stage_key].tuned_rows == tuned
+    many = grown_by(len(fresh_elements))
+    grown_rows = len(model._stage_rows(many[["element", "host", "site", "method", "quantity", "value"]], "E_sol", 1)[0])
+    assert grown_rows > 1.25 * tuned
+    refreshed = model.refreshed(many)
+    assert refreshed.stages_[stage_key].learner.fixed_kernel is None  # re-optimised
+    assert refreshed.stages_[stage_key].tuned_rows == grown_rows
+    # the cheap stage did not grow: its kernel is reused untouched
+    cheap = refreshed.stages_[("E_sol", "gga")]
+    assert cheap.learner.fixed_kernel is not None
+    assert cheap.tuned_rows == model.stages_[("E_sol", "gga")].tuned_rows
