@@ -41,7 +41,7 @@ def _build_parser():
         )
         command.add_argument("--sheet", default=None, help="worksheet name of an XLSX file")
 
-    check = commands.add_parser("check", help="validate a table and show what it covers")
+    check = commands.add_parser("check", help="read a table, name any problem in it and show what it covers")
     add_table_options(check)
 
     fit = commands.add_parser("fit", help="learn a table and save a model folder")
