@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from dopantgap.atomic import write_text_atomic
+from dopantgap.elements import element_flags
 from dopantgap.explain import explain_model, write_explanation
 from dopantgap.fill import fill_table
 from dopantgap.picker import pick_next
@@ -106,6 +107,11 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     report("The next five hybrid calculations worth their cost (goal: the whole table's variance):")
     for row in picks.itertuples(index=False):
         report(f"  {row.rank}. {row.element} {row.host} {row.site} {row.quantity}: {row.reason}")
+    picked = list(dict.fromkeys(picks["element"]))
+    flags = element_flags(picked)
+    for symbol in picked:
+        if flags.at[symbol, "note"]:
+            report(f"  caution: {symbol}: {flags.at[symbol, 'note']}")
     explanation = explain_model(surrogate, random_state=0)
     write_explanation(explanation, explain_dir)
     site_choice = explanation.importance[
