@@ -45,6 +45,7 @@ __all__ = [
     "METRIC_COLUMNS",
     "ValidationResult",
     "baseline_residuals",
+    "baselines_ahead",
     "validate",
     "validation_metrics",
     "validation_text",
@@ -246,8 +247,38 @@ def write_validation(result, out_dir):
     return written
 
 
+def baselines_ahead(metrics):
+    """Scenarios where a baseline's pooled error is below the kept learner's.
+
+    Parameters
+    ----------
+    metrics : DataFrame
+        ``METRIC_COLUMNS`` (``validation_metrics``).
+
+    Returns
+    -------
+    list of tuple
+        ``(scenario, baseline, baseline_mae, learner, learner_mae)``, best baseline first
+        within each scenario, scenarios in ``SCENARIOS`` order.
+    """
+    pooled = metrics[metrics["quantity"] == "all"]
+    ahead = []
+    for scenario in SCENARIOS:
+        rows = pooled[pooled["scenario"] == scenario]
+        kept = rows[rows["chosen"]]
+        if len(kept) == 0:
+            continue
+        learner, learner_mae = kept["model"].iloc[0], float(kept["mae"].iloc[0])
+        reference = rows[rows["model"].isin(BASELINES) & (rows["mae"] < learner_mae)].sort_values("mae")
+        ahead.extend(
+            (scenario, row.model, float(row.mae), learner, learner_mae) for row in reference.itertuples(index=False)
+        )
+    return ahead
+
+
 def validation_text(metrics, level=LEVEL):
-    """Plain-text table of the pooled rows, learners then baselines, per scenario."""
+    """Plain-text table of the pooled rows, learners then baselines, per scenario,
+    followed by a warning for every scenario where a baseline beats the kept learner."""
     pooled = metrics[metrics["quantity"] == "all"]
     lines = [
         f"Out-of-fold error (eV) and share of hidden values inside the {level:.0%} interval:",
@@ -258,5 +289,16 @@ def validation_text(metrics, level=LEVEL):
         lines.append(
             f"  {row.scenario:<12} {row.model:<26} {row.n:>6} {row.mae:>13.3f} {row.rmse:>10.3f} "
             f"{row.coverage:>8.0%}{mark}"
+        )
+    warned = set()
+    for scenario, baseline, baseline_mae, learner, learner_mae in baselines_ahead(metrics):
+        if scenario in warned:
+            continue
+        warned.add(scenario)
+        lines.append(
+            f"warning: in {scenario}, the {baseline} ({baseline_mae:.3f} eV) beats the kept learner "
+            f"{learner} ({learner_mae:.3f} eV): the model does no better there than a rule one could "
+            f"follow by hand; "
+            f"compute more elements before trusting its {scenario} estimates."
         )
     return "\n".join(lines) + "\n"

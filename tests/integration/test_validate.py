@@ -13,7 +13,14 @@ from dopantgap.cli import main
 from dopantgap.fill import fill_table
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS, write_table
-from dopantgap.validate import METRIC_COLUMNS, validate, validation_metrics, write_validation
+from dopantgap.validate import (
+    METRIC_COLUMNS,
+    baselines_ahead,
+    validate,
+    validation_metrics,
+    validation_text,
+    write_validation,
+)
 from dopantgap.world import DEMO_ELEMENTS, invent_world, observe
 
 SMALL_ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As", "Sn", "Sb", "Ba", "Pb", "Zr",
@@ -245,3 +252,23 @@ def test_validate_command_writes_metrics_and_refuses_bad_input(tmp_path, capsys)
     assert main(["validate", str(tmp_path / "bad.csv"), "--out", str(tmp_path / "w")]) == 2
     error = capsys.readouterr().err
     assert error.count("\n") == 1 and "bad.csv" in error
+
+
+def test_a_baseline_that_beats_the_kept_learner_is_named_in_a_warning():
+    rows = [
+        # new-element: the column mean beats the kept learner, the group neighbour does not
+        ("new-element", "gp", "all", 1.9, 2.5, 0.9, 30, True),
+        ("new-element", "boost", "all", 2.2, 2.9, 0.9, 30, False),
+        ("new-element", "column-mean baseline", "all", 1.4, 1.9, 0.9, 30, False),
+        ("new-element", "group-neighbour baseline", "all", 2.1, 2.6, 0.9, 30, False),
+        ("new-element", "column-mean baseline", "E_sol", 0.1, 0.1, 0.9, 20, False),  # not pooled
+        # new-cell: the learner is ahead; a learner that is not kept never triggers it
+        ("new-cell", "gp", "all", 0.08, 0.1, 0.9, 40, True),
+        ("new-cell", "boost", "all", 0.05, 0.1, 0.9, 40, False),
+        ("new-cell", "column-mean baseline", "all", 2.4, 3.0, 0.9, 40, False),
+    ]
+    metrics = pd.DataFrame(rows, columns=list(METRIC_COLUMNS))
+    assert baselines_ahead(metrics) == [("new-element", "column-mean baseline", 1.4, "gp", 1.9)]
+    text = validation_text(metrics)
+    assert "warning: in new-element, the column-mean baseline (1.400 eV) beats the kept learner gp (1.900 eV)" in text
+    assert text.count("warning:") == 1
