@@ -200,3 +200,16 @@ def test_report_screenshot_is_not_blank(built, tmp_path):
     assert grey.std() > 0.05
     assert grey[:40].mean() < 0.4 < grey[300:].mean()
     assert len(np.unique(np.round(grey, 2))) > 20
+
+
+def test_report_marks_an_element_outside_the_training_data(tmp_path):
+    """Nd (f block) against the demo table, which has no f-block element: the domain rule's
+    new-block clause flags it, and the report lists it and tints its rows."""
+    surrogate, manifest = load_model(MODEL)
+    assert surrogate.domain_.outside(["Nd"])[0]
+    with threadpool_limits(limits=1):
+        path = report.build_report(surrogate, manifest, tmp_path / "r.html", element_symbols=("Nd",))
+    page = path.read_text(encoding="utf-8")
+    assert '<li class="extrapolated"><b>Nd</b>: outside the training data' in page
+    nd_rows = re.findall(r'<tr class="flagged[^"]*"><td>Nd</td>.*?</tr>', page)
+    assert nd_rows and all("outside the training data" in row for row in nd_rows)
