@@ -244,9 +244,11 @@ def _command_check(arguments, say):
 
 def _command_fit(arguments, say):
     from dopantgap import elements
+    from dopantgap.progress import bar
     from dopantgap.store import save_model
     from dopantgap.surrogate import Surrogate
     from dopantgap.table import read_table
+    from dopantgap.validate import validation_metrics, validation_text
 
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
@@ -254,8 +256,6 @@ def _command_fit(arguments, say):
     hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
     started = time.perf_counter()
     say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    from dopantgap.progress import bar
-
     n_candidates = 2 if arguments.learner == "auto" else 1
     with bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet) as progress:
         surrogate = Surrogate(
@@ -264,8 +264,6 @@ def _command_fit(arguments, say):
             host_compositions=hosts,
             random_state=arguments.seed,
         ).fit(table, progress=progress)
-    from dopantgap.validate import validation_metrics, validation_text
-
     metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
     save_model(surrogate, arguments.out, source=arguments.table, validation=metrics)
     elapsed = time.perf_counter() - started
