@@ -287,7 +287,8 @@ class Surrogate(BaseEstimator):
 
         The learner kept, the Gaussian processes' hyperparameters and the interval
         calibration are carried over; every stage is conditioned on the new table's
-        cells. Seconds instead of a full ``fit``: meant for campaign rounds and
+        cells. A stage that has grown past ``_REOPTIMISE_GROWTH`` (1.25) times the rows
+        its hyperparameters were optimised on gets them optimised anew. Seconds instead of a full ``fit``: meant for campaign rounds and
         replays, where a table grows by a few cells at a time. Refit in full when the
         table has changed much (the calibration describes the old one).
 
