@@ -44,44 +44,33 @@ def _build_parser():
     check = commands.add_parser("check", help="read a table, name any problem in it and show what it covers")
     add_table_options(check)
 
+    def add_learning_options(command, learner_help):
+        command.add_argument("--seed", type=int, default=0, help="random seed (default: 0)")
+        command.add_argument(
+            "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
+            help="methods from cheapest to most expensive (default: most computed first)",
+        )
+        command.add_argument("--learner", choices=("auto", "gp", "boost"), default="auto", help=learner_help)
+        command.add_argument(
+            "--hosts", default=None, metavar="HOST_FILE",
+            help="CSV with columns host,formula for host labels that are not formulas",
+        )
+        command.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
     fit = commands.add_parser("fit", help="learn a table and save a model folder")
     add_table_options(fit)
     fit.add_argument("--out", required=True, metavar="MODEL_DIR", help="model folder to write")
-    fit.add_argument("--seed", type=int, default=0, help="random seed (default: 0)")
-    fit.add_argument(
-        "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
-        help="methods from cheapest to most expensive (default: most computed first)",
+    add_learning_options(
+        fit, "gp: Gaussian process; boost: boosted trees; auto: the better in cross-validation"
     )
-    fit.add_argument(
-        "--learner", choices=("auto", "gp", "boost"), default="auto",
-        help="gp: Gaussian process; boost: boosted trees; auto: the better in cross-validation",
-    )
-    fit.add_argument(
-        "--hosts", default=None, metavar="HOST_FILE",
-        help="CSV with columns host,formula for host labels that are not formulas",
-    )
-    fit.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
-    check_model = commands.add_parser(
+    validate_command = commands.add_parser(
         "validate",
         help="out-of-fold error and interval coverage of every learner and baseline, per scenario",
     )
-    add_table_options(check_model)
-    check_model.add_argument("--out", required=True, metavar="DIR", help="folder for metrics.csv and figures")
-    check_model.add_argument("--seed", type=int, default=0, help="random seed (default: 0)")
-    check_model.add_argument(
-        "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
-        help="methods from cheapest to most expensive (default: most computed first)",
-    )
-    check_model.add_argument(
-        "--learner", choices=("auto", "gp", "boost"), default="auto",
-        help="learners to validate (default: auto = both)",
-    )
-    check_model.add_argument(
-        "--hosts", default=None, metavar="HOST_FILE",
-        help="CSV with columns host,formula for host labels that are not formulas",
-    )
-    check_model.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    add_table_options(validate_command)
+    validate_command.add_argument("--out", required=True, metavar="DIR", help="folder for metrics.csv and figures")
+    add_learning_options(validate_command, "learners to validate (default: auto = both)")
 
     fill = commands.add_parser("fill", help="estimate every missing cell with an interval")
     fill.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
@@ -242,28 +231,39 @@ def _command_check(arguments, say):
     say(coverage_text(table))
 
 
-def _command_fit(arguments, say):
+def _table_and_estimator(arguments, say):
+    """The table named on the command line and an unfitted surrogate with its options."""
     from dopantgap import elements
-    from dopantgap.progress import bar
-    from dopantgap.store import save_model
     from dopantgap.surrogate import Surrogate
     from dopantgap.table import read_table
-    from dopantgap.validate import validation_metrics, validation_text
 
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
     hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
+    estimator = Surrogate(
+        learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
+        random_state=arguments.seed,
+    )
+    return table, estimator
+
+
+def _learner_bar(arguments):
+    from dopantgap.progress import bar
+
+    n_candidates = 2 if arguments.learner == "auto" else 1
+    return bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet)
+
+
+def _command_fit(arguments, say):
+    from dopantgap.store import save_model
+    from dopantgap.validate import validation_metrics, validation_text
+
+    table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
     say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    n_candidates = 2 if arguments.learner == "auto" else 1
-    with bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet) as progress:
-        surrogate = Surrogate(
-            learner=arguments.learner,
-            levels=arguments.levels,
-            host_compositions=hosts,
-            random_state=arguments.seed,
-        ).fit(table, progress=progress)
+    with _learner_bar(arguments) as progress:
+        surrogate = estimator.fit(table, progress=progress)
     metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
     save_model(surrogate, arguments.out, source=arguments.table, validation=metrics)
     elapsed = time.perf_counter() - started
@@ -281,24 +281,12 @@ def _command_fit(arguments, say):
 
 
 def _command_validate(arguments, say):
-    from dopantgap import elements
-    from dopantgap.progress import bar
-    from dopantgap.surrogate import Surrogate
-    from dopantgap.table import read_table
     from dopantgap.validate import validate, validation_text, write_validation
 
-    table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
-    for notice in table.attrs.get("notices", []):
-        say(f"note: {notice}")
-    hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
+    table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
     say(f"Validating on {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    estimator = Surrogate(
-        learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
-        random_state=arguments.seed,
-    )
-    n_candidates = 2 if arguments.learner == "auto" else 1
-    with bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet) as progress:
+    with _learner_bar(arguments) as progress:
         result = validate(table, estimator=estimator, random_state=arguments.seed, progress=progress)
     paths = write_validation(result, arguments.out)
     say(validation_text(result.metrics).rstrip("\n"))

@@ -322,7 +322,8 @@ def _tags(flags, extrapolated):
 
 _TAG_CAPTION = (
     "Corner letters: R radioactive, T toxic, X outside the training data (no element of its "
-    "block in the table, or farther from every table element than the domain limit). Colour maps cividis (values) and viridis (uncertainty) keep their order in grey."
+    "block in the table, or farther from every table element than the domain limit). Colour "
+    "maps cividis (values) and viridis (uncertainty) keep their order in grey."
 )
 
 

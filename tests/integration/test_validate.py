@@ -3,7 +3,7 @@
 import numpy as np
 import pandas as pd
 import pytest
-from sklearn.model_selection import GroupKFold
+from sklearn.model_selection import GroupKFold, KFold
 
 from dopantgap import features as features_module
 from dopantgap import surrogate as surrogate_module
@@ -91,32 +91,43 @@ def test_write_validation_files(result, tmp_path):
     assert (tmp_path / "out" / "parity_upgrade.png").read_bytes()[:4] == b"\x89PNG"
 
 
+def _groups_whole(elements, test_masks):
+    """Every element hidden whole in exactly one fold, never straddling train and test."""
+    elements = np.asarray(elements)
+    hidden_whole = []
+    for test in test_masks:
+        training = set(elements[~test])
+        whole = {e for e in set(elements[test]) if e not in training}
+        for element in whole:
+            if not test[elements == element].all():
+                return False
+        hidden_whole.append(whole)
+    counts = pd.Series([e for fold in hidden_whole for e in fold]).value_counts()
+    return set(counts.index) == set(elements) and bool((counts == 1).all())
+
+
 def test_grouped_splitter_keeps_elements_whole_like_group_kfold():
     """Every element is hidden whole in exactly one fold and is then absent from that
     fold's training cells: the property of scikit-learn's GroupKFold (Pedregosa et al.
-    2011, JMLR 12; sklearn.model_selection.GroupKFold), checked on both."""
+    2011, JMLR 12; sklearn.model_selection.GroupKFold). The property check is first shown
+    to accept GroupKFold and to reject plain KFold, then applied to our splitter."""
     table = _small_table()
     model = Surrogate(learner="gp", n_folds=4)
     model.quantity_levels_ = {q: ["gga", "hyb"] for q in table["quantity"].unique()}
     core = table[["element", "host", "site", "method", "quantity", "value"]].reset_index(drop=True)
-    masks = model._fold_masks(core)
-    hidden_whole = []
-    for test in masks:
-        training = set(core.loc[~test, "element"])
-        tested = core.loc[test, "element"]
-        whole = {e for e in set(tested) if e not in training}
-        # an element either keeps training cells or is hidden with all its cells
-        for element in whole:
-            assert test[(core["element"] == element).to_numpy()].all()
-        hidden_whole.append(whole)
-    counts = pd.Series([e for fold in hidden_whole for e in fold]).value_counts()
-    assert set(counts.index) == set(core["element"]) and (counts == 1).all()
-    # the same partition property holds for scikit-learn's splitter on these groups
-    seen = []
-    for train, test in GroupKFold(n_splits=4).split(core, groups=core["element"]):
-        assert not set(core["element"].iloc[train]) & set(core["element"].iloc[test])
-        seen += sorted(set(core["element"].iloc[test]))
-    assert sorted(seen) == sorted(set(core["element"]))
+    elements = core["element"].to_numpy()
+
+    def masks_of(splits):
+        masks = []
+        for _train, test in splits:
+            mask = np.zeros(len(core), dtype=bool)
+            mask[test] = True
+            masks.append(mask)
+        return masks
+
+    assert _groups_whole(elements, masks_of(GroupKFold(n_splits=4).split(core, groups=elements)))
+    assert not _groups_whole(elements, masks_of(KFold(n_splits=4, shuffle=True, random_state=0).split(core)))
+    assert _groups_whole(elements, model._fold_masks(core))
 
 
 def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
