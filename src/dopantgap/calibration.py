@@ -8,14 +8,30 @@ q_L the split-conformal quantile of |z| (Vovk, Gammerman & Shafer 2005; Lei et a
 2018, "Distribution-free predictive inference for regression", JASA, eq. 4 with
 normalised scores): the ceil((n + 1) L)-th smallest |z|. Where n is too small for L,
 the Gaussian quantile scaled by the 90 % conformal quantile is used instead.
+
+Cells within a scenario differ too: an element far from those computed at a cell's
+level, or with few computed cells of its own, is harder than the model's spread says.
+:class:`DifficultyModel` learns, per scenario, how the size of the standardised
+residuals grows with such features, and the scores are divided by it before their
+quantile is taken (locally weighted conformal prediction: Lei et al. 2018, section 5.2;
+Papadopoulos, Vovk & Gammerman 2008, normalised nonconformity), so an unfamiliar cell
+gets a wider interval before it is computed, not after.
 """
 
 import math
 
 import numpy as np
+from scipy.optimize import nnls
 from scipy.stats import norm
 
-__all__ = ["SCENARIOS", "ScenarioCalibration", "cross_conformal_covered"]
+__all__ = [
+    "DIFFICULTY_FEATURES",
+    "DifficultyModel",
+    "SCENARIOS",
+    "ScenarioCalibration",
+    "cross_conformal_covered",
+    "fit_calibration",
+]
 
 #: The scenarios a missing cell can be in, in the order they are reported.
 SCENARIOS = ("new-cell", "new-element", "upgrade")
@@ -24,6 +40,130 @@ SCENARIOS = ("new-cell", "new-element", "upgrade")
 # (common practice, no source: 20 points give a 90 % quantile to ~ +/-15 %).
 _MIN_RESIDUALS = 20
 _REFERENCE_LEVEL = 0.9
+
+#: Per-cell features a difficulty model may use: the cell's domain distance over the
+#: domain threshold (``domain.LevelDomain``), and the element's computed cells of the
+#: cell's quantity.
+DIFFICULTY_FEATURES = ("domain_ratio", "element_cells")
+# A difficulty model needs this many residuals of its scenario (common practice, no
+# source: two slopes and an intercept want tens of points), and its scale stays within
+# these bounds, so that a few odd residuals cannot make an interval vanish or explode.
+_MIN_DIFFICULTY_RESIDUALS = 40
+_SCALE_BOUNDS = (0.33, 4.0)
+# |z| of exactly 0 (a cell predicted to the last digit) would give log(0)
+_LOG_FLOOR = 0.02
+
+
+class DifficultyModel:
+    """How much larger than the model's own spread a cell's error tends to be.
+
+    The model is log|z| = a + b * domain_ratio - c * log(1 + element_cells) with
+    b, c >= 0, fitted by non-negative least squares on centred features (the expected
+    log|z| of a Gaussian residual is log sigma plus a constant, so the slopes describe
+    how the residuals' scale changes; the constant is left to the conformal quantile).
+    The signs are fixed by what is physically sensible: a cell farther from the
+    elements computed at its level is never judged easier, an element with more
+    computed cells never harder. ``scale(features)`` is exp(b * (ratio - mean ratio)
+    - c * (log cells - mean log cells)), clipped to [0.33, 4] after the ratio is capped
+    at twice the largest ratio seen in fitting.
+
+    Parameters
+    ----------
+    features : DataFrame
+        Columns ``DIFFICULTY_FEATURES`` (missing ones count as 0).
+    scores : array-like
+        Standardised residuals z of the same rows.
+
+    Attributes
+    ----------
+    slopes_ : ndarray of shape (2,)
+        b and c; zeros when there were fewer than 40 residuals.
+    centre_ : ndarray of shape (2,)
+        Mean domain ratio and mean log(1 + element_cells) of the fitting rows.
+    ratio_cap_ : float
+    """
+
+    def __init__(self, features, scores):
+        design = self._design(features)
+        scores = np.abs(np.asarray(scores, dtype=float))
+        self.centre_ = design.mean(axis=0) if len(design) else np.zeros(2)
+        finite = np.isfinite(design[:, 0]) if len(design) else np.zeros(0, dtype=bool)
+        self.ratio_cap_ = 2.0 * float(design[finite, 0].max()) if finite.any() else 0.0
+        self.slopes_ = np.zeros(2)
+        if len(scores) >= _MIN_DIFFICULTY_RESIDUALS and finite.all():
+            target = np.log(scores + _LOG_FLOOR)
+            centred = design - self.centre_
+            # non-negative slopes on (ratio, -log cells): nnls on the centred system
+            signed = centred * np.array([1.0, -1.0])
+            slopes, _ = nnls(signed, target - target.mean())
+            self.slopes_ = slopes
+
+    @staticmethod
+    def _design(features):
+        ratio = np.asarray(features["domain_ratio"], dtype=float) if "domain_ratio" in features else None
+        cells = np.asarray(features["element_cells"], dtype=float) if "element_cells" in features else None
+        n_rows = len(features)
+        ratio = np.zeros(n_rows) if ratio is None else ratio
+        cells = np.zeros(n_rows) if cells is None else cells
+        return np.column_stack([ratio, np.log1p(np.maximum(cells, 0.0))])
+
+    def scale(self, features):
+        """Factor by which each row's residuals are expected to exceed the usual ones.
+
+        Parameters
+        ----------
+        features : DataFrame
+            Columns ``DIFFICULTY_FEATURES``.
+
+        Returns
+        -------
+        ndarray
+            Positive factors within [0.33, 4]; all 1 when nothing was learned.
+        """
+        design = self._design(features)
+        if not np.any(self.slopes_):
+            return np.ones(len(design))
+        design[:, 0] = np.minimum(np.nan_to_num(design[:, 0], nan=0.0, posinf=self.ratio_cap_), self.ratio_cap_)
+        exponent = (design - self.centre_) @ (self.slopes_ * np.array([1.0, -1.0]))
+        return np.clip(np.exp(exponent), *_SCALE_BOUNDS)
+
+
+def fit_calibration(residuals, score_column="z", adaptive=True):
+    """A :class:`ScenarioCalibration` from out-of-fold residuals.
+
+    Parameters
+    ----------
+    residuals : DataFrame
+        Columns ``scenario``, ``quantity``, ``score_column`` and, for adaptive widths,
+        ``DIFFICULTY_FEATURES``.
+    score_column : str, default="z"
+    adaptive : bool, default=True
+        Learn a :class:`DifficultyModel` per scenario and calibrate the scores divided
+        by it; False (or no feature column) gives the same width to every cell of a
+        scenario and quantity.
+
+    Returns
+    -------
+    ScenarioCalibration
+    """
+    scores = residuals[score_column].to_numpy(dtype=float)
+    difficulty = {}
+    has_features = all(name in residuals.columns for name in DIFFICULTY_FEATURES)
+    if adaptive and has_features and len(residuals):
+        scenario_of = residuals["scenario"].to_numpy()
+        scaled = scores.copy()
+        for scenario in SCENARIOS:
+            rows = scenario_of == scenario
+            if not rows.any():
+                continue
+            model = DifficultyModel(residuals.loc[rows], scores[rows])
+            difficulty[scenario] = model
+            scaled[rows] = scores[rows] / model.scale(residuals.loc[rows])
+        scores = scaled
+    groups = {}
+    for key, index in residuals.groupby(["scenario", "quantity"]).indices.items():
+        groups[key] = scores[index]
+    return ScenarioCalibration(groups, difficulty=difficulty)
 
 
 class ScenarioCalibration:
@@ -38,7 +178,10 @@ class ScenarioCalibration:
     Parameters
     ----------
     scores : dict
-        (scenario, quantity) -> array of standardised residuals (truth - mean) / std.
+        (scenario, quantity) -> array of standardised residuals (truth - mean) / std,
+        already divided by the cell's difficulty where ``difficulty`` is given.
+    difficulty : dict or None, default=None
+        Scenario -> :class:`DifficultyModel` (``fit_calibration`` builds both).
 
     Attributes
     ----------
@@ -49,7 +192,9 @@ class ScenarioCalibration:
         Scenarios with too few residuals of their own, using all residuals pooled.
     """
 
-    def __init__(self, scores):
+    def __init__(self, scores, difficulty=None):
+        self.difficulty_ = dict(difficulty or {})
+
         def sorted_abs(arrays):
             arrays = [np.asarray(array, dtype=float) for array in arrays]
             return np.sort(np.abs(np.concatenate(arrays))) if arrays else np.empty(0)
@@ -70,6 +215,25 @@ class ScenarioCalibration:
             if found is not None and len(found) >= _MIN_RESIDUALS:
                 return found
         return self.scores_[(None, None)]
+
+    def difficulty(self, scenario, features):
+        """Per-cell factor on the raw std of cells of one scenario (1 without a model).
+
+        Parameters
+        ----------
+        scenario : str
+        features : DataFrame
+            Columns ``DIFFICULTY_FEATURES``.
+
+        Returns
+        -------
+        ndarray
+        """
+        # model folders written before adaptive widths have no difficulty models
+        model = getattr(self, "difficulty_", {}).get(scenario)
+        if model is None:
+            return np.ones(len(features))
+        return model.scale(features)
 
     def n_residuals(self, scenario, quantity=None):
         """How many residuals the widths of a scenario (and quantity) rest on."""
@@ -102,7 +266,7 @@ class ScenarioCalibration:
         return float(scores[rank - 1] / norm.ppf(0.5 + _REFERENCE_LEVEL / 2.0))
 
 
-def cross_conformal_covered(residuals, score_column="z", level=0.9):
+def cross_conformal_covered(residuals, score_column="z", level=0.9, adaptive=True):
     """Whether each out-of-fold residual lies inside an interval it did not help set.
 
     For each fold, a :class:`ScenarioCalibration` is built from the residuals of all
@@ -120,6 +284,9 @@ def cross_conformal_covered(residuals, score_column="z", level=0.9):
         Standardised residual (``z``) or, for a model without a spread of its own, the
         plain error.
     level : float, default=0.9
+    adaptive : bool, default=True
+        Judge with per-cell widths (``fit_calibration``): the difficulty models, too,
+        are learned from the other folds only.
 
     Returns
     -------
@@ -134,14 +301,16 @@ def cross_conformal_covered(residuals, score_column="z", level=0.9):
     quantities = residuals["quantity"].to_numpy()
     for fold in np.unique(folds):
         inside = folds == fold
-        others = residuals[~inside]
-        calibration = ScenarioCalibration(
-            {key: part[score_column].to_numpy(dtype=float) for key, part in others.groupby(["scenario", "quantity"])}
-        )
+        calibration = fit_calibration(residuals[~inside], score_column, adaptive=adaptive)
+        own = residuals[inside]
+        difficulty = np.ones(len(own))
+        for scenario in np.unique(scenarios[inside]):
+            rows = scenarios[inside] == scenario
+            difficulty[rows] = calibration.difficulty(scenario, own[rows])
         widths = {}
-        for position in np.flatnonzero(inside):
+        for offset, position in enumerate(np.flatnonzero(inside)):
             key = (scenarios[position], quantities[position])
             if key not in widths:
                 widths[key] = calibration.half_width(key[0], level, key[1])
-            covered[position] = scores[position] <= widths[key]
+            covered[position] = scores[position] <= widths[key] * difficulty[offset]
     return covered

@@ -76,7 +76,7 @@ from dopantgap.errors import DopantgapError
 # in the space the model actually sees.
 from dopantgap.features import _LOGARITHMIC, DEFAULT_DESCRIPTORS
 
-__all__ = ["ElementDomain"]
+__all__ = ["ElementDomain", "LevelDomain"]
 
 _LOG_FLOOR = 1e-3  # as in features.CellEncoder: keeps log10 finite for a zero value
 _MIN_CALIBRATION_ELEMENTS = 3
@@ -244,24 +244,34 @@ class ElementDomain(BaseEstimator):
         self.blocks_ = np.unique(elements.descriptor_table(list(unique))["block_index"].to_numpy(dtype=float))
         return self
 
-    def _nearest(self, element_symbols):
-        check_is_fitted(self, "points_")
+    def _standardised(self, element_symbols):
         raw, _ = self._raw_matrix(_symbol_list(element_symbols), self.descriptors_)
-        if raw.shape[0] == 0:
+        return (raw - self.mean_) / self.scale_
+
+    def _nearest(self, element_symbols, reference=None):
+        check_is_fitted(self, "points_")
+        scaled = self._standardised(element_symbols)
+        if scaled.shape[0] == 0:
             return np.empty(0, dtype=float), np.empty(0, dtype=int)
-        scaled = (raw - self.mean_) / self.scale_
-        distances = self._scaled_distances(scaled, self.points_)
+        points = self.points_ if reference is None else self._standardised(reference)
+        if points.shape[0] == 0:
+            return np.full(scaled.shape[0], np.inf), np.zeros(scaled.shape[0], dtype=int)
+        distances = self._scaled_distances(scaled, points)
         # argmin takes the first of tied training elements, i.e. the first in symbols_
         index = distances.argmin(axis=1)
         return distances[np.arange(len(index)), index], index
 
-    def distance(self, element_symbols):
+    def distance(self, element_symbols, reference=None):
         """Distance of each element from its nearest training element.
 
         Parameters
         ----------
         element_symbols : sequence of str
             Symbols in any letter case; order and duplicates are kept.
+        reference : sequence of str or None, default=None
+            Measure to these elements instead of the training elements (standardised
+            as the training elements are; for example the elements computed at one
+            level of theory). An empty reference gives infinite distances.
 
         Returns
         -------
@@ -276,9 +286,9 @@ class ElementDomain(BaseEstimator):
         DopantgapError
             If a symbol is not an element.
         """
-        return self._nearest(element_symbols)[0]
+        return self._nearest(element_symbols, reference)[0]
 
-    def outside(self, element_symbols):
+    def outside(self, element_symbols, reference=None):
         """Whether each element lies outside the domain (``distance > threshold_`` or a
         block new to the training elements).
 
@@ -286,22 +296,26 @@ class ElementDomain(BaseEstimator):
         ----------
         element_symbols : sequence of str
             Symbols in any letter case; order and duplicates are kept.
+        reference : sequence of str or None, default=None
+            As in :meth:`distance`; the threshold stays the training elements' own.
 
         Returns
         -------
         numpy.ndarray of bool
-            One flag per symbol; always False for a training element and when fitted
-            on fewer than three elements.
+            One flag per symbol; always False for a reference (by default training)
+            element and when fitted on fewer than three elements.
         """
-        far = self.distance(element_symbols) > self.threshold_
-        return far | self.new_block(element_symbols)
+        far = self.distance(element_symbols, reference) > self.threshold_
+        return far | self.new_block(element_symbols, reference)
 
-    def new_block(self, element_symbols):
-        """Whether each element belongs to a block no training element belongs to.
+    def new_block(self, element_symbols, reference=None):
+        """Whether each element belongs to a block no training (or reference) element
+        belongs to.
 
         Parameters
         ----------
         element_symbols : sequence of str
+        reference : sequence of str or None, default=None
 
         Returns
         -------
@@ -312,22 +326,176 @@ class ElementDomain(BaseEstimator):
         if not symbols:
             return np.zeros(0, dtype=bool)
         blocks = elements.descriptor_table(symbols)["block_index"].to_numpy(dtype=float)
-        return ~np.isin(blocks, self.blocks_)
+        known = self.blocks_
+        if reference is not None:
+            reference = _symbol_list(reference)
+            known = elements.descriptor_table(reference)["block_index"].to_numpy(dtype=float) if reference else []
+        return ~np.isin(blocks, known)
 
-    def nearest(self, element_symbols):
+    def nearest(self, element_symbols, reference=None):
         """Symbol of the nearest training element for each element.
 
         Parameters
         ----------
         element_symbols : sequence of str
             Symbols in any letter case; order and duplicates are kept.
+        reference : sequence of str or None, default=None
+            As in :meth:`distance` (must not be empty).
 
         Returns
         -------
         numpy.ndarray of object
             One canonical symbol per input; the element itself for a training
             element (unless another training element has identical descriptor
-            values); on a tie the first in ``symbols_`` order.
+            values); on a tie the first in ``symbols_`` (or ``reference``) order.
         """
-        index = self._nearest(element_symbols)[1]
-        return np.asarray(self.symbols_[index], dtype=object)
+        index = self._nearest(element_symbols, reference)[1]
+        if reference is None:
+            return np.asarray(self.symbols_[index], dtype=object)
+        canonical = list(elements.descriptor_table(_symbol_list(reference)).index)
+        return np.asarray([canonical[position] for position in index], dtype=object)
+
+
+class LevelDomain(BaseEstimator):
+    """Distance of each cell's element from the elements computed at the cell's level.
+
+    An expensive-level estimate rests on the few elements computed at that level: an
+    element close to the table's elements can still be unlike every one of them (a
+    halogen when only metals were computed with the hybrid functional). The distance of
+    a cell (element, host, method, quantity) is measured, with :class:`ElementDomain`'s
+    standardisation and threshold (fitted on all the table's elements), to the elements
+    computed for that quantity at that method in that host, or in any host when that
+    host has fewer than ``min_host_elements`` of them. The new-block rule applies to
+    the same reference elements.
+
+    Parameters
+    ----------
+    descriptors : sequence of str, optional
+        As in :class:`ElementDomain`.
+    quantile : float, default 0.95
+        As in :class:`ElementDomain`.
+    min_host_elements : int, default 3
+        Fewest elements computed at a level in one host for that host's own set to
+        serve as the reference.
+
+    Attributes
+    ----------
+    elements_ : ElementDomain
+        Fitted on every element of the table: the standardisation and the threshold.
+    computed_ : dict
+        (quantity, method) and (quantity, method, host) -> sorted list of the elements
+        computed there.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> rows = [(e, "MgO", "sub_Mg", m, "E_sol", 1.0) for e in ("Ca", "Sr", "Ba", "Zn", "Cd", "Cl")
+    ...         for m in ("gga",)] + [(e, "MgO", "sub_Mg", "hyb", "E_sol", 1.2) for e in ("Ca", "Sr", "Ba", "Zn")]
+    >>> table = pd.DataFrame(rows, columns=["element", "host", "site", "method", "quantity", "value"])
+    >>> domain = LevelDomain().fit(table)
+    >>> cells = table[["element", "host", "site", "quantity"]].assign(method="hyb").iloc[[0, 5]]
+    >>> domain.outside(cells).tolist()
+    [False, True]
+    """
+
+    def __init__(self, descriptors=None, quantile=0.95, min_host_elements=3):
+        self.descriptors = descriptors
+        self.quantile = quantile
+        self.min_host_elements = min_host_elements
+
+    def fit(self, table, y=None):
+        """Learn the reference elements of every level (and host) of a long table.
+
+        Parameters
+        ----------
+        table : DataFrame
+            Columns element, host, method, quantity (others ignored).
+        y : None
+            Ignored.
+
+        Returns
+        -------
+        LevelDomain
+        """
+        self.elements_ = ElementDomain(descriptors=self.descriptors, quantile=self.quantile).fit(
+            list(table["element"])
+        )
+        computed = {}
+        for key, rows in table.groupby(["quantity", "method"], sort=False):
+            computed[tuple(key)] = sorted(set(rows["element"]))
+        for key, rows in table.groupby(["quantity", "method", "host"], sort=False):
+            computed[tuple(key)] = sorted(set(rows["element"]))
+        self.computed_ = computed
+        return self
+
+    def reference(self, host, method, quantity):
+        """The elements a cell of this host, method and quantity is measured against."""
+        check_is_fitted(self, "computed_")
+        own = self.computed_.get((quantity, method, host), [])
+        if len(own) >= self.min_host_elements:
+            return own
+        return self.computed_.get((quantity, method), [])
+
+    def _per_reference(self, cells, measure):
+        cells = cells.reset_index(drop=True)
+        result = None
+        for (host, method, quantity), rows in cells.groupby(["host", "method", "quantity"], sort=False):
+            symbols = list(rows["element"])
+            unique, inverse = np.unique(np.asarray(symbols, dtype=str), return_inverse=True)
+            values = measure(list(unique), self.reference(host, method, quantity))[inverse]
+            if result is None:
+                result = np.empty(len(cells), dtype=values.dtype)
+            result[cells.index.get_indexer(rows.index)] = values
+        return result if result is not None else np.empty(0)
+
+    def distance(self, cells):
+        """Distance of each cell's element from its level's (and host's) elements.
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, method, quantity.
+
+        Returns
+        -------
+        numpy.ndarray of float
+            As :meth:`ElementDomain.distance`; 0 where the element is computed at the
+            level (in the host); infinite for a level with no computed element.
+        """
+        return self._per_reference(cells, self.elements_.distance)
+
+    def outside(self, cells):
+        """Whether each cell's element lies outside its level's domain (distance over the
+        table's threshold, or a block no reference element belongs to).
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, method, quantity.
+
+        Returns
+        -------
+        numpy.ndarray of bool
+        """
+        return self._per_reference(cells, self.elements_.outside).astype(bool)
+
+    def nearest(self, cells):
+        """Nearest reference element of each cell's element.
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, method, quantity.
+
+        Returns
+        -------
+        numpy.ndarray of object
+            A symbol per cell (empty string for a level with no computed element).
+        """
+
+        def measure(symbols, reference):
+            if not reference:
+                return np.array([""] * len(symbols), dtype=object)
+            return self.elements_.nearest(symbols, reference)
+
+        return self._per_reference(cells, measure)

@@ -100,7 +100,7 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, Produc
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
-from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns, ShiftPriorLearner
 from dopantgap.symbols import atomic_number, normalise_symbol
 from dopantgap.table import write_table
 
@@ -392,6 +392,15 @@ class _PhysicalFactor:
         return distance
 
 
+def _inner_learner(learner):
+    """The learner that carries a stage's descriptors, and the constant added to it: a
+    correction's shift prior around a learner predicts its pooled shift plus that learner."""
+    inner = getattr(learner, "residual_learner_", None) if isinstance(learner, ShiftPriorLearner) else None
+    if inner is None:
+        return learner, 0.0
+    return inner, float(learner.pooled_)
+
+
 class _StageColumns:
     """Mean of one stage for several columns, for elements given by their descriptors."""
 
@@ -403,12 +412,14 @@ class _StageColumns:
             _ColumnEncoding(stage.encoder, features, host, site, compositions) for host, site in self.columns
         ]
         self.fast = None
-        if isinstance(stage.learner, GPLearner):
+        # a correction's shift prior around a learner adds a constant (its pooled shift)
+        self.learner, self.offset = _inner_learner(stage.learner)
+        if isinstance(self.learner, GPLearner):
             try:
                 self.fast = self._prepare_fast()
             except _Unsupported:
                 self.fast = None
-        elif isinstance(stage.learner, BoostLearner):
+        elif isinstance(self.learner, BoostLearner):
             # the mean only: the learner's predict also forms an n x n covariance
             self.fast = {"boost": True}
 
@@ -426,7 +437,7 @@ class _StageColumns:
 
     # direct Gaussian-process path
     def _prepare_fast(self):
-        regressor = self.stage.learner.regressor_
+        regressor = self.learner.regressor_
         n_physical = self.stage.encoder.n_physical_
         physical = set(range(n_physical))
         train = regressor.X_train_
@@ -468,12 +479,12 @@ class _StageColumns:
         return {
             "terms": terms,
             "groups": [(self.encodings[members[0]], np.array(members)) for members in groups.values()],
-            "mean": float(regressor._y_train_mean),
+            "mean": float(regressor._y_train_mean) + self.offset,
             "scale": float(regressor._y_train_std),
         }
 
     def _predict_boost(self, descriptors):
-        learner = self.stage.learner
+        learner = self.learner
         labels = {int(column) for column in learner.label_columns}
         out = np.empty((descriptors.shape[0], len(self.columns)))
         for position, encoding in enumerate(self.encodings):
@@ -482,7 +493,7 @@ class _StageColumns:
             inputs = rows[:, kept] if kept else np.zeros((rows.shape[0], 1))
             # an unseen label has no offset: the members' mean is the prediction
             out[:, position] = np.mean([member.predict(inputs) for member in learner.members_], axis=0)
-        return out
+        return out + self.offset
 
     def _predict_fast(self, descriptors):
         fast = self.fast
@@ -725,15 +736,16 @@ def _tree_ensembles(function, n_features):
     difference of two columns are sums of trees with signed weights.
     """
     for _positions, evaluator in function.stages:
-        if not isinstance(evaluator.stage.learner, (BoostLearner, ColumnMeanLearner)):
+        if not isinstance(evaluator.learner, (BoostLearner, ColumnMeanLearner, ShiftPriorLearner)):
             return None
-    if not any(isinstance(e.stage.learner, BoostLearner) for _p, e in function.stages):
+    if not any(isinstance(e.learner, BoostLearner) for _p, e in function.stages):
         return None
     probe = np.zeros((1, n_features))
     trees_per_unit, offset_per_unit = {}, {}
     for positions, evaluator in function.stages:
-        learner = evaluator.stage.learner
-        if isinstance(learner, ColumnMeanLearner):
+        learner = evaluator.learner
+        if isinstance(learner, (ColumnMeanLearner, ShiftPriorLearner)):
+            # constant within a column (a shift prior without a learner)
             constant = evaluator.predict_rows(probe, _UNSEEN_LABEL)[0]
             for position, value in zip(positions, constant):
                 trees_per_unit[position], offset_per_unit[position] = [], float(value)
@@ -742,7 +754,7 @@ def _tree_ensembles(function, n_features):
         tree_columns = np.array(learner._tree_columns(n_columns))
         share = 1.0 / len(learner.members_)
         for position, encoding in zip(positions, evaluator.encodings):
-            trees, offset = [], 0.0
+            trees, offset = [], evaluator.offset
             for member in learner.members_:
                 offset += share * float(np.ravel(member._baseline_prediction)[0])
                 for iteration in member._predictors:

@@ -26,11 +26,11 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
 from dopantgap import elements
-from dopantgap.calibration import SCENARIOS, ScenarioCalibration, cross_conformal_covered
-from dopantgap.domain import ElementDomain
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
+from dopantgap.domain import ElementDomain, LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS, CellEncoder
-from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, ShiftPriorLearner
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = ["LEARNERS", "Surrogate", "order_levels"]
@@ -42,11 +42,19 @@ LEARNERS = ("gp", "boost")
 # no source: a Gaussian process with ~15 length scales needs several rows per scale).
 _MIN_ROWS_FOR_LEARNER = 8
 # Below this many cells computed at both levels a level is learned directly
-# instead of as a correction.
-_MIN_ROWS_FOR_CORRECTION = 3
-# Stages with at most this many training rows re-optimise their hyperparameters in
-# each cross-validation fold; larger ones reuse the full fit's.
-_MAX_ROWS_REOPTIMISED = 60
+# instead of as a correction: one is enough, since a correction with few cells stays
+# at the column's shift (``learners.ShiftPriorLearner``), which is never worse than a
+# level learned on its own from those same few cells.
+_MIN_ROWS_FOR_CORRECTION = 1
+# A correction learns what the column shifts leave only from this many elements
+# (common practice, no source: with two, any pattern across elements is a guess).
+_MIN_ELEMENTS_FOR_RESIDUAL = 3
+# L-BFGS-B iterations for a full fit, and for a cross-validation fold, whose search
+# starts from the full fit's optimum (common practice, no source: a warm start near
+# the optimum converges in a fraction of the iterations; measured on the invented demo
+# table, 30 left the out-of-fold errors within 1 % of 80).
+_OPTIMISER_ITERATIONS = 80
+_FOLD_OPTIMISER_ITERATIONS = 30
 # A refreshed model (campaign rounds, replay) re-optimises a stage's hyperparameters once
 # it has this many times the rows they were optimised on (common practice, no source:
 # hyperparameters fitted on a handful of elements go stale as the stage grows; measured
@@ -114,10 +122,28 @@ def _host_compositions(table, host_map):
 
 
 def _calibration(residuals):
-    """Per-scenario, per-quantity calibration from out-of-fold residuals."""
-    return ScenarioCalibration(
-        {key: part["z"].to_numpy() for key, part in residuals.groupby(["scenario", "quantity"])}
+    """Per-scenario, per-quantity calibration from out-of-fold residuals, with per-cell
+    difficulty (``calibration.fit_calibration``)."""
+    return fit_calibration(residuals, "z")
+
+
+def _difficulty_features(level_domain, core, cells):
+    """What makes a cell harder than usual, known before it is computed: its element's
+    distance from the elements computed at its level (and host), also over the domain
+    threshold, and the element's computed cells of its quantity in ``core``."""
+    cells = cells.reset_index(drop=True)
+    distance = level_domain.distance(cells) if len(cells) else np.zeros(0)
+    threshold = level_domain.elements_.threshold_
+    if np.isfinite(threshold) and threshold > 0:
+        ratio = distance / threshold
+    else:
+        ratio = np.zeros(len(cells))
+    counts = core.groupby(["element", "quantity"]).size().to_dict()
+    element_cells = np.array(
+        [counts.get((element, quantity), 0) for element, quantity in zip(cells["element"], cells["quantity"])],
+        dtype=float,
     )
+    return pd.DataFrame({"domain_distance": distance, "domain_ratio": ratio, "element_cells": element_cells})
 
 
 class _Stage:
@@ -133,12 +159,21 @@ class _Stage:
         self.tuned_rows = tuned_rows
 
 
+def _gaussian_process(learner):
+    """The Gaussian process of a learner: itself, or the one a correction's shift prior
+    wraps (fitted or not); None for any other learner."""
+    if isinstance(learner, ShiftPriorLearner):
+        learner = getattr(learner, "residual_learner_", None) or learner.residual_learner
+    return learner if isinstance(learner, GPLearner) else None
+
+
 def _tuned_rows(stage):
     """Rows a stage's hyperparameters were optimised on (its rows, for older model folders)."""
     tuned = getattr(stage, "tuned_rows", None)
     if tuned is not None:
         return tuned
-    regressor = getattr(stage.learner, "regressor_", None)
+    process = _gaussian_process(stage.learner)
+    regressor = getattr(process, "regressor_", None)
     return len(regressor.X_train_) if regressor is not None else 0
 
 
@@ -266,16 +301,19 @@ class Surrogate(BaseEstimator):
             outcomes.append(outcome)
             if progress is not None:
                 progress.update(1)
-        fitted = {name: stages for name, (stages, _) in zip(candidates, outcomes)}
-        residuals = {name: found for name, (_, found) in zip(candidates, outcomes)}
+        fitted = {name: stages for name, (stages, _, _) in zip(candidates, outcomes)}
+        residuals = {name: found for name, (_, found, _) in zip(candidates, outcomes)}
+        shift_only = {name: chosen for name, (_, _, chosen) in zip(candidates, outcomes)}
         mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}
         # a tie keeps the earlier candidate: the Gaussian process, whose spread is principled
         self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
         self.stages_ = fitted[self.learner_]
+        self.shift_only_ = shift_only[self.learner_]
         self.cv_residuals_ = residuals[self.learner_]
         self.cv_residuals_by_learner_ = residuals
         self.calibration_ = _calibration(self.cv_residuals_)
         self.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
+        self.level_domain_ = LevelDomain(descriptors=self.descriptors_).fit(core)
         self.cv_metrics_ = pd.concat(
             [self._metrics(name, residuals[name]) for name in candidates], ignore_index=True
         )
@@ -327,22 +365,27 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         fresh.learner_ = self.learner_
-        fresh.stages_ = fresh._fit_stages(core, self.learner_, template=self.stages_, always_reuse="grown")
+        fresh.shift_only_ = getattr(self, "shift_only_", frozenset())
+        fresh.stages_ = fresh._fit_stages(
+            core, self.learner_, template=self.stages_, mode="grown", shift_only=fresh.shift_only_
+        )
         fresh.calibration_ = self.calibration_
         fresh.cv_residuals_ = self.cv_residuals_
         fresh.cv_metrics_ = self.cv_metrics_
         fresh.cv_residuals_by_learner_ = getattr(self, "cv_residuals_by_learner_", {})
         fresh.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
+        fresh.level_domain_ = LevelDomain(descriptors=self.descriptors_).fit(core)
         return fresh
 
     def _fit_candidate(self, core, name):
-        """Fitted stages of one learner and their cross-validated residuals."""
-        stages = self._fit_stages(core, name, template=None)
-        residuals = self._cross_validate(core, name, stages)
-        upgrade = self._cross_validate_upgrade(core, name)
+        """Fitted stages of one learner, their cross-validated residuals, and the
+        corrections that keep the column shifts alone (the upgrade loop decides)."""
+        upgrade, shift_only = self._cross_validate_upgrade(core, name)
+        stages = self._fit_stages(core, name, template=None, shift_only=shift_only)
+        residuals = self._cross_validate(core, name, stages, shift_only)
         if len(upgrade):
             residuals = pd.concat([residuals, upgrade], ignore_index=True)
-        return stages, residuals
+        return stages, residuals, shift_only
 
     def _stage_rows(self, core, quantity, position):
         """Training cells and target of a stage, and whether it is a correction."""
@@ -357,21 +400,42 @@ class Surrogate(BaseEstimator):
         target = (joined["value"] - joined["value_below"]).to_numpy()
         return joined[_CELL].reset_index(drop=True), target, "correction"
 
-    def _new_learner(self, name, encoder, n_rows, template, always_reuse=False):
+    def _new_learner(self, name, encoder, n_rows, template, mode="fresh", kind="direct", n_elements=None,
+                     shift_only=False):
+        """A learner for a stage of ``n_rows`` rows.
+
+        ``mode`` says where the stage is fitted: "fresh" (the full fit: hyperparameters
+        optimised from the default start), "fold" (a cross-validation fold: optimised
+        afresh on the fold's rows, warm-started from the full fit's ``template`` and
+        with fewer iterations), or "grown" (a refreshed model: the template's kernel
+        kept until the stage has outgrown it). A correction (``kind``) is the column
+        shifts' hierarchical prior (``ShiftPriorLearner``) plus the learner for what
+        they leave, or the prior alone with fewer than ``_MIN_ELEMENTS_FOR_RESIDUAL``
+        elements or where ``shift_only`` (the upgrade loop found the learner no help).
+        """
+        if kind == "correction":
+            column_label = encoder.label_columns_[1]
+            few = n_rows < _MIN_ROWS_FOR_LEARNER or (n_elements or 0) < _MIN_ELEMENTS_FOR_RESIDUAL
+            if few or shift_only:
+                return ShiftPriorLearner(label_column=column_label)
+            inner = self._new_learner(name, encoder, n_rows, template, mode=mode)
+            return ShiftPriorLearner(label_column=column_label, residual_learner=inner)
         if n_rows < _MIN_ROWS_FOR_LEARNER:
             return ColumnMeanLearner(label_column=encoder.label_columns_[1])
         if name == "gp":
-            fixed = None
-            # folds reuse the full fit's hyperparameters only where optimising them is
-            # costly; small stages (corrections learned from few elements) re-optimise in
-            # every fold, so that their cross-validated spread is honest. A refreshed
-            # model ("grown") reuses them until the stage has outgrown them.
-            if always_reuse == "grown":
-                reuse = template is not None and n_rows <= _REOPTIMISE_GROWTH * _tuned_rows(template)
-            else:
-                reuse = always_reuse or n_rows > _MAX_ROWS_REOPTIMISED
-            if template is not None and isinstance(template.learner, GPLearner) and reuse:
-                fixed = template.learner.kernel_
+            fixed = initial = None
+            iterations = _OPTIMISER_ITERATIONS
+            kernel = None
+            process = None if template is None else _gaussian_process(template.learner)
+            if process is not None and hasattr(process, "regressor_"):
+                kernel = process.kernel_
+            if mode == "grown" and kernel is not None and n_rows <= _REOPTIMISE_GROWTH * _tuned_rows(template):
+                fixed = kernel
+            elif mode == "fold" and kernel is not None:
+                # every fold tunes its own kernel on its own rows, so the hidden elements
+                # never shape the covariance that predicts them; the warm start only
+                # makes the search short
+                initial, iterations = kernel, _FOLD_OPTIMISER_ITERATIONS
             element_label, column_label = encoder.label_columns_
             # the column indicators already give each column its own behaviour; a
             # random offset per column on top of them was measured to hurt
@@ -381,15 +445,17 @@ class Surrogate(BaseEstimator):
                 indicator_columns=encoder.indicator_columns_,
                 ignored_columns=(column_label,),
                 fixed_kernel=fixed,
+                initial_kernel=initial,
+                max_optimiser_iterations=iterations,
                 random_state=self.random_state,
             )
         return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=self.random_state)
 
-    def _fit_stages(self, core, name, template, always_reuse=False):
-        """Fit one stage per quantity and level; ``template`` reuses fitted hyperparameters
-        (of stages above ``_MAX_ROWS_REOPTIMISED`` rows, of all with ``always_reuse=True``,
-        of those not grown past ``_REOPTIMISE_GROWTH`` times their tuning rows with
-        ``always_reuse="grown"``)."""
+    def _fit_stages(self, core, name, template, mode="fresh", shift_only=frozenset()):
+        """Fit one stage per quantity and level; ``template`` (fitted stages) warm-starts
+        the hyperparameters of each fold (``mode="fold"``) or keeps them in a refreshed
+        model (``mode="grown"``, until a stage outgrows them); corrections named in
+        ``shift_only`` are the column shifts alone: see ``_new_learner``."""
         stages = {}
         for quantity, methods in self.quantity_levels_.items():
             for position, method in enumerate(methods):
@@ -404,10 +470,12 @@ class Surrogate(BaseEstimator):
                     columns, model_template = None, None
                 encoder.fit(cells, columns=columns)
                 learner = self._new_learner(
-                    name, encoder, len(cells), model_template, always_reuse=always_reuse
+                    name, encoder, len(cells), model_template, mode=mode, kind=kind,
+                    n_elements=cells["element"].nunique(), shift_only=(quantity, method) in shift_only,
                 )
                 learner.fit(encoder.transform(cells), target)
-                reused = isinstance(learner, GPLearner) and learner.fixed_kernel is not None
+                process = _gaussian_process(learner)
+                reused = process is not None and process.fixed_kernel is not None
                 tuned = _tuned_rows(model_template) if reused else len(cells)
                 stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner, tuned)
         return stages
@@ -527,25 +595,25 @@ class Surrogate(BaseEstimator):
             (``computed``: the table's own value, passed through unchanged, with
             std 0 and lo = hi = value; ``predicted`` otherwise), ``scenario``
             (empty for computed cells), ``domain_distance`` (distance of the element
-            from the table's elements in standardised descriptors, 0 for a table
-            element) and ``outside_domain`` (``domain.ElementDomain`` rule).
+            from the elements computed at the cell's level, in its host where that
+            host has three or more, in standardised descriptors; 0 for computed
+            cells) and ``outside_domain`` (``domain.LevelDomain`` rule). ``std`` and
+            the interval scale the model's own spread by the scenario's calibration
+            and the cell's difficulty (``calibration.DifficultyModel``).
         """
         cells = self._check_cells(cells)
         core = self.table_[list(REQUIRED_COLUMNS)]
         mean, raw_std = self._predict_raw(self.stages_, core, cells)
         known = self._known(core)
         keys = list(cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))
-        is_computed = np.array([key in known for key in keys])
+        is_computed = np.array([key in known for key in keys], dtype=bool)
         scenarios = self._scenarios(core, cells)
         scenarios[is_computed] = ""
-        std = np.zeros(len(cells))
-        half = np.zeros(len(cells))
-        quantities = cells["quantity"].to_numpy()
-        for scenario in SCENARIOS:
-            for quantity in set(quantities[scenarios == scenario]):
-                rows = (scenarios == scenario) & (quantities == quantity)
-                std[rows] = raw_std[rows] * self.calibration_.std_scale(scenario, quantity)
-                half[rows] = raw_std[rows] * self.calibration_.half_width(scenario, level, quantity)
+        scale, half = self._calibrated_factors(core, cells, scenarios, level)
+        std = raw_std * scale
+        half = raw_std * half
+        std[is_computed] = 0.0
+        half[is_computed] = 0.0
         # computed cells: the user's own number, bit for bit
         values = mean.copy()
         values[is_computed] = [known[key] for key, flag in zip(keys, is_computed) if flag]
@@ -556,11 +624,43 @@ class Surrogate(BaseEstimator):
         result["hi"] = values + half
         result["status"] = np.where(is_computed, "computed", "predicted")
         result["scenario"] = scenarios
-        domain = self.element_domain()
-        unique, inverse = np.unique(cells["element"].to_numpy(dtype=object).astype(str), return_inverse=True)
-        result["domain_distance"] = domain.distance(list(unique))[inverse] if len(unique) else 0.0
-        result["outside_domain"] = domain.outside(list(unique))[inverse] if len(unique) else False
+        level_domain = self.level_domain()
+        distance = level_domain.distance(cells) if len(cells) else np.zeros(0)
+        outside = level_domain.outside(cells) if len(cells) else np.zeros(0, dtype=bool)
+        result["domain_distance"] = np.where(is_computed, 0.0, distance)
+        result["outside_domain"] = np.where(is_computed, False, outside).astype(bool)
         return result
+
+    def _calibrated_factors(self, core, cells, scenarios, level=0.9):
+        """Per-cell factors on the raw std: the calibrated std's and the interval's
+        half-width's (scenario and quantity quantile times the cell's difficulty); 1 and
+        the Gaussian quantile for cells of no scenario (computed ones)."""
+        features = _difficulty_features(self.level_domain(), core, cells)
+        scale = np.ones(len(cells))
+        half = np.full(len(cells), 1.6448536269514722)
+        quantities = cells["quantity"].to_numpy()
+        for scenario in SCENARIOS:
+            in_scenario = scenarios == scenario
+            if not in_scenario.any():
+                continue
+            difficulty = self.calibration_.difficulty(scenario, features[in_scenario])
+            scale[in_scenario] = difficulty
+            half[in_scenario] = difficulty
+            for quantity in set(quantities[in_scenario]):
+                rows = in_scenario & (quantities == quantity)
+                scale[rows] *= self.calibration_.std_scale(scenario, quantity)
+                half[rows] *= self.calibration_.half_width(scenario, level, quantity)
+        return scale, half
+
+    def level_domain(self):
+        """The model's domain per level and host (``domain.LevelDomain``), fitted on the
+        table (rebuilt for a model saved without one)."""
+        check_is_fitted(self)
+        domain = getattr(self, "level_domain_", None)
+        if domain is None:
+            domain = LevelDomain(descriptors=self.descriptors_).fit(self.table_[list(REQUIRED_COLUMNS)])
+            self.level_domain_ = domain
+        return domain
 
     def element_domain(self):
         """The model's domain of applicability over elements (``domain.ElementDomain``),
@@ -595,9 +695,7 @@ class Surrogate(BaseEstimator):
         quantity, method = cells["quantity"].iloc[0], cells["method"].iloc[0]
         mean, cov = self._joint(self.stages_, known, quantity, method, cells)
         scenarios = self._scenarios(core, cells)
-        scale = np.array(
-            [self.calibration_.std_scale(s, quantity) if s in SCENARIOS else 1.0 for s in scenarios]
-        )
+        scale, _ = self._calibrated_factors(core, cells, scenarios)
         return mean, cov * np.outer(scale, scale)
 
     # ------------------------------------------------------- cross-validation
@@ -647,14 +745,14 @@ class Surrogate(BaseEstimator):
             masks.append(test)
         return masks
 
-    def _cross_validate(self, core, name, template):
+    def _cross_validate(self, core, name, template, shift_only=frozenset()):
         """Out-of-fold predictions of every hidden cell, with its scenario."""
         records = []
         for fold, test in enumerate(self._fold_masks(core)):
             if not test.any():
                 continue
             training, held_out = core[~test], core[test].reset_index(drop=True)
-            stages = self._fit_stages(training, name, template=template)
+            stages = self._fit_stages(training, name, template=template, mode="fold", shift_only=shift_only)
             servable = np.array(
                 [(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])]
             )
@@ -667,6 +765,8 @@ class Surrogate(BaseEstimator):
             part["raw_std"] = std
             part["scenario"] = self._scenarios(training, held_out)
             part["fold"] = fold
+            level_domain = LevelDomain(descriptors=self.descriptors_).fit(training)
+            part = pd.concat([part, _difficulty_features(level_domain, training, held_out)], axis=1)
             records.append(part)
         if not records:
             raise DopantgapError(
@@ -678,10 +778,24 @@ class Surrogate(BaseEstimator):
         return residuals
 
     def _cross_validate_upgrade(self, core, name):
-        """Out-of-fold upgrade predictions: each correction stage relearned without
-        some of the elements computed at both levels, which are then predicted from
-        their computed cheap level (the only part of the chain an upgrade needs)."""
-        records = []
+        """Out-of-fold upgrade predictions, and the corrections best left to the shifts.
+
+        Each correction stage is relearned without some of the elements computed at
+        both levels, which are then predicted from their computed cheap level (the only
+        part of the chain an upgrade needs), twice: as the column shifts' prior plus the
+        learner, and as the prior alone. A stage whose learner does not lower the
+        out-of-fold mean absolute error keeps the prior alone (its name is returned),
+        so an upgrade is never worse than the shift rule on the table's own evidence.
+
+        Returns
+        -------
+        residuals : DataFrame
+            The kept form's out-of-fold predictions (empty when no stage has three
+            elements at both levels).
+        shift_only : frozenset
+            (quantity, method) of the corrections that keep the prior alone.
+        """
+        records, shift_only = [], set()
         rng = np.random.default_rng(self.random_state + 1)
         # fold numbers continue after the main loop's, so that every fold id is unique
         fold = int(min(max(self.n_folds, 2), core["element"].nunique()))
@@ -695,32 +809,58 @@ class Surrogate(BaseEstimator):
                     continue
                 rng.shuffle(both)
                 below = core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])]
+                forms = {"learner": [], "shift": []}
                 for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
                     test = cells["element"].isin(group).to_numpy()
                     encoder = CellEncoder(self.descriptors_, self.compositions_)
                     encoder.fit(cells[~test])
-                    learner = self._new_learner(name, encoder, int((~test).sum()), template=None)
-                    learner.fit(encoder.transform(cells[~test]), target[~test])
-                    correction, std = learner.predict(encoder.transform(cells[test]), return_std=True)
+                    training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
                     part = cells[test].reset_index(drop=True)
-                    cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"]
+                    cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"].to_numpy()
                     part["method"] = methods[position]
                     part["quantity"] = quantity
-                    part["value"] = target[test] + cheap.to_numpy()
-                    part["mean"] = np.asarray(correction, dtype=float) + cheap.to_numpy()
-                    part["raw_std"] = np.asarray(std, dtype=float)
+                    part["value"] = target[test] + cheap
                     part["scenario"] = "upgrade"
                     part["fold"] = fold
                     fold += 1
-                    records.append(part)
+                    # what the fold knew: the table less the hidden elements' cells at this level
+                    hidden = (
+                        (core["quantity"] == quantity)
+                        & (core["method"] == methods[position])
+                        & core["element"].isin(group)
+                    )
+                    known = core[~hidden]
+                    level_domain = LevelDomain(descriptors=self.descriptors_).fit(known)
+                    part = pd.concat([part, _difficulty_features(level_domain, known, part)], axis=1)
+                    n_elements = cells.loc[~test, "element"].nunique()
+                    for form in forms:
+                        learner = self._new_learner(
+                            name, encoder, int((~test).sum()), template=None, kind="correction",
+                            n_elements=n_elements, shift_only=form == "shift",
+                        )
+                        learner.fit(training_x, target[~test])
+                        correction, std = learner.predict(hidden_x, return_std=True)
+                        forms[form].append(
+                            part.assign(
+                                mean=np.asarray(correction, dtype=float) + cheap,
+                                raw_std=np.asarray(std, dtype=float),
+                            )
+                        )
+                found = {form: pd.concat(parts, ignore_index=True) for form, parts in forms.items()}
+                error = {form: float(np.mean(np.abs(rows["value"] - rows["mean"]))) for form, rows in found.items()}
+                kept = "learner" if error["learner"] < error["shift"] else "shift"
+                if kept == "shift":
+                    shift_only.add((quantity, methods[position]))
+                records.append(found[kept])
         if not records:
-            return pd.DataFrame()
+            return pd.DataFrame(), frozenset(shift_only)
         residuals = pd.concat(records, ignore_index=True)[
-            list(REQUIRED_COLUMNS) + ["mean", "raw_std", "scenario", "fold"]
+            list(REQUIRED_COLUMNS)
+            + ["mean", "raw_std", "scenario", "fold", "domain_distance", "domain_ratio", "element_cells"]
         ]
         residuals["error"] = residuals["value"] - residuals["mean"]
         residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
-        return residuals
+        return residuals, frozenset(shift_only)
 
     def _metrics(self, name, residuals):
         rows = []

@@ -291,3 +291,56 @@ def test_clone_and_get_params_round_trip(demo_domain):
     refitted = fitted_copy.fit(TRAINING)
     assert refitted.threshold_ == demo_domain.threshold_
     assert refitted.descriptors_ == tuple(DEFAULT_DESCRIPTORS)
+
+
+# ------------------------------------------------------------------ per level and host
+def _level_table():
+    """Invented cells: twelve metals and two halogens at the cheap level, only the metals
+    at the expensive one (values do not matter to the domain)."""
+    import pandas as pd
+
+    metals = ("Na", "K", "Mg", "Ca", "Sr", "Al", "Ti", "V", "Cr", "Fe", "Ni", "Zn")
+    rows = [(e, "ZnS", "sub_Zn", "gga", "E_sol", 1.0) for e in metals + ("F", "Cl")]
+    rows += [(e, "ZnS", "sub_Zn", "hyb", "E_sol", 1.2) for e in metals]
+    return pd.DataFrame(rows, columns=["element", "host", "site", "method", "quantity", "value"])
+
+
+def test_level_domain_flags_a_halogen_at_a_level_computed_only_for_metals():
+    """The expensive level covers only metals: a halogen's expensive cells lie outside
+    (farther from every expensive-level element than the table's threshold), its cheap
+    cells inside, and a metal's expensive cell inside (distance 0)."""
+    from dopantgap.domain import LevelDomain
+
+    table = _level_table()
+    domain = LevelDomain().fit(table)
+    cells = table[["element", "host", "site", "quantity"]].drop_duplicates().reset_index(drop=True)
+    expensive = cells.assign(method="hyb")
+    cheap = cells.assign(method="gga")
+    outside_expensive = dict(zip(expensive["element"], domain.outside(expensive)))
+    assert outside_expensive["F"] and outside_expensive["Cl"]
+    assert not any(outside_expensive[e] for e in ("Na", "Fe", "Zn"))
+    assert not domain.outside(cheap).any()
+    distance = dict(zip(expensive["element"], domain.distance(expensive)))
+    assert distance["Fe"] == 0.0 and distance["F"] > domain.elements_.threshold_
+    # the distance is ElementDomain's, measured to the expensive level's elements
+    reference = sorted(set(table.loc[table["method"] == "hyb", "element"]))
+    assert distance["F"] == pytest.approx(domain.elements_.distance(["F"], reference)[0])
+    assert set(domain.nearest(expensive[expensive["element"] == "F"])) <= set(reference)
+
+
+def test_level_domain_uses_the_host_set_only_when_it_has_enough_elements():
+    import pandas as pd
+
+    from dopantgap.domain import LevelDomain
+
+    table = _level_table()
+    extra = pd.DataFrame([("Fe", "MgO", "sub_Mg", "hyb", "E_sol", 1.0), ("Ni", "MgO", "sub_Mg", "hyb", "E_sol", 1.0)],
+                         columns=table.columns)
+    domain = LevelDomain(min_host_elements=3).fit(pd.concat([table, extra], ignore_index=True))
+    # MgO has two elements at hyb: the level's elements over all hosts serve instead
+    assert domain.reference("MgO", "hyb", "E_sol") == domain.computed_[("E_sol", "hyb")]
+    assert domain.reference("ZnS", "hyb", "E_sol") == domain.computed_[("E_sol", "hyb", "ZnS")]
+    # a level never computed: infinite distance, outside
+    missing = pd.DataFrame({"element": ["Fe"], "host": ["ZnS"], "site": ["sub_Zn"], "method": ["hse"],
+                            "quantity": ["E_sol"]})
+    assert np.isinf(domain.distance(missing)[0]) and domain.outside(missing)[0]

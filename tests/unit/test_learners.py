@@ -16,7 +16,7 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteK
 from sklearn.utils.estimator_checks import parametrize_with_checks
 from threadpoolctl import threadpool_limits
 
-from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns, SameLabel
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns, SameLabel, ShiftPriorLearner
 from dopantgap.learners.boosted import _shrunk_offsets
 
 
@@ -33,6 +33,8 @@ def _one_thread():
         GPLearner(random_state=0),
         BoostLearner(random_state=0, n_members=3, max_iter=20),
         ColumnMeanLearner(),
+        ShiftPriorLearner(),
+        ShiftPriorLearner(residual_learner=GPLearner(random_state=0)),
     ],
 )
 def test_scikit_learn_estimator_checks(estimator, check):
@@ -331,3 +333,74 @@ def test_gp_with_fixed_kernel_reproduces_rasmussen_williams_algorithm_2_1():
     np.testing.assert_allclose(std, np.sqrt(np.diag(expected_cov)), rtol=1e-7)
     # a fixed kernel is used as given, not optimised
     assert learner.kernel_ == kernel
+
+
+# --------------------------------------------------------------- shift prior (corrections)
+def test_shift_prior_matches_the_one_way_random_effects_estimate():
+    """Shrunk column means of the hierarchical normal model (Gelman et al., Bayesian Data
+    Analysis, 3rd ed., 2013, ch. 5): shift_c = pooled + w_c (mean_c - pooled) with
+    w_c = tau^2 / (tau^2 + s^2 / n_c), tau^2 by the method of moments; computed by hand."""
+    labels = np.array([0, 0, 0, 0, 1, 1, 2])
+    y = np.array([0.10, 0.20, 0.30, 0.20, 0.60, 0.80, 0.40])
+    learner = ShiftPriorLearner(label_column=0).fit(labels.reshape(-1, 1).astype(float), y)
+    means = np.array([0.2, 0.7, 0.4])
+    counts = np.array([4, 2, 1])
+    within = (0.01 + 0.0 + 0.01 + 0.0 + 0.01 + 0.01 + 0.0) / (7 - 3)
+    between = max(np.var(means, ddof=1) - np.mean(within / counts), 0.0)
+    weights = between / (between + within / counts)
+    expected = y.mean() + weights * (means - y.mean())
+    assert learner.within_variance_ == pytest.approx(within)
+    assert learner.between_variance_ == pytest.approx(between)
+    assert learner.predict(np.array([[0.0], [1.0], [2.0]])) == pytest.approx(expected)
+    # an unseen column gets the pooled shift
+    assert learner.predict(np.array([[7.0]]))[0] == pytest.approx(y.mean())
+    # shrinkage is strongest for the column with the fewest rows
+    assert weights[2] < weights[1] < weights[0]
+
+
+def test_shift_prior_with_one_element_is_the_level_shift_rule_within_its_std():
+    """With one element at the expensive level (one row per column) the correction is the
+    pooled shift, and each column's own shift (the level-shift rule with one element) lies
+    within the stated std: the shift rule is never contradicted beyond the spread."""
+    rng = np.random.default_rng(0)
+    shifts = 0.3 + 0.1 * rng.standard_normal(8)
+    X = np.arange(8, dtype=float).reshape(-1, 1)
+    learner = ShiftPriorLearner(label_column=0).fit(X, shifts)
+    mean, std = learner.predict(X, return_std=True)
+    assert np.all(np.abs(mean - shifts) <= 2.0 * std)
+    assert np.all(std > 0)
+
+
+def test_shift_prior_follows_many_columns_when_they_differ():
+    """Many elements per column and clearly different columns: the shifts are the column
+    means almost exactly (weights near 1)."""
+    rng = np.random.default_rng(1)
+    labels = np.repeat([0.0, 1.0, 2.0], 30)
+    y = np.array([0.0, 0.5, 1.0])[labels.astype(int)] + 0.05 * rng.standard_normal(90)
+    learner = ShiftPriorLearner(label_column=0).fit(labels.reshape(-1, 1), y)
+    column_means = [y[labels == label].mean() for label in (0.0, 1.0, 2.0)]
+    assert learner.predict(np.array([[0.0], [1.0], [2.0]])) == pytest.approx(column_means, abs=1e-3)
+
+
+def test_shift_prior_with_a_residual_learner_adds_the_pooled_shift():
+    X = np.linspace(0.0, 1.0, 20).reshape(-1, 1)
+    y = 2.0 + np.sin(4 * X[:, 0])
+    learner = ShiftPriorLearner(residual_learner=GPLearner(random_state=0)).fit(X, y)
+    inner = learner.residual_learner_
+    assert learner.predict(X) == pytest.approx(y.mean() + inner.predict(X))
+    mean, cov = learner.predict(X[:3], return_cov=True)
+    assert cov == pytest.approx(inner.predict(X[:3], return_cov=True)[1])
+
+
+def test_gp_warm_start_starts_from_the_given_kernel_and_checks_its_size():
+    """initial_kernel: the optimiser starts at the given hyperparameters (zero iterations
+    leave them there) and a kernel of another shape is refused."""
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((30, 2))
+    y = X[:, 0] + 0.1 * rng.standard_normal(30)
+    fitted = GPLearner(random_state=0).fit(X, y)
+    warm = GPLearner(initial_kernel=fitted.kernel_, max_optimiser_iterations=0, random_state=0).fit(X, y)
+    assert warm.kernel_.theta == pytest.approx(fitted.kernel_.theta)
+    other = GPLearner(random_state=0).fit(X[:, :1], y).kernel_
+    with pytest.raises(ValueError, match="initial_kernel has"):
+        GPLearner(initial_kernel=other).fit(X, y)

@@ -4,5 +4,6 @@ from dopantgap.learners.boosted import BoostLearner
 from dopantgap.learners.column_mean import ColumnMeanLearner
 from dopantgap.learners.gaussian_process import GPLearner
 from dopantgap.learners.kernels import OnColumns, SameLabel
+from dopantgap.learners.shift_prior import ShiftPriorLearner
 
-__all__ = ["BoostLearner", "ColumnMeanLearner", "GPLearner", "OnColumns", "SameLabel"]
+__all__ = ["BoostLearner", "ColumnMeanLearner", "GPLearner", "OnColumns", "SameLabel", "ShiftPriorLearner"]

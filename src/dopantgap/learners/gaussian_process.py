@@ -56,7 +56,11 @@ class GPLearner(RegressorMixin, BaseEstimator):
         optimum; beyond ~80 iterations the predictions barely move while the fit
         time grows linearly.
     fixed_kernel : Kernel or None, default=None
-        A fitted kernel to reuse without optimisation (used by cross-validation).
+        A fitted kernel to reuse without optimisation (used by refreshed models).
+    initial_kernel : Kernel or None, default=None
+        A fitted kernel whose hyperparameters start the optimisation (a warm start,
+        within the same bounds); cross-validation folds start from the full fit's
+        kernel and optimise afresh on their own rows. Ignored with ``fixed_kernel``.
     random_state : int, Generator or None, default=None
         Seed for the subsample and the restarts.
 
@@ -87,6 +91,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         n_restarts_optimizer=0,
         max_optimiser_iterations=80,
         fixed_kernel=None,
+        initial_kernel=None,
         random_state=None,
     ):
         self.label_columns = label_columns
@@ -97,6 +102,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         self.n_restarts_optimizer = n_restarts_optimizer
         self.max_optimiser_iterations = max_optimiser_iterations
         self.fixed_kernel = fixed_kernel
+        self.initial_kernel = initial_kernel
         self.random_state = random_state
 
     def _build_kernel(self, n_features):
@@ -145,8 +151,19 @@ class GPLearner(RegressorMixin, BaseEstimator):
         limit = self.max_optimise_samples
         if limit is not None and (not isinstance(limit, numbers.Integral) or limit < 2):
             raise ValueError(f"max_optimise_samples must be an integer >= 2 or None, got {limit!r}.")
+        start = self._build_kernel(X.shape[1])
+        if self.initial_kernel is not None:
+            if self.initial_kernel.n_dims != start.n_dims:
+                raise ValueError(
+                    f"initial_kernel has {self.initial_kernel.n_dims} hyperparameters, but a "
+                    f"kernel for X with {X.shape[1]} columns has {start.n_dims}."
+                )
+            # a warm start: the same kernel form and bounds, from the given optimum
+            start = clone(start).clone_with_theta(
+                np.clip(self.initial_kernel.theta, start.bounds[:, 0], start.bounds[:, 1])
+            )
         optimiser = GaussianProcessRegressor(
-            kernel=self._build_kernel(X.shape[1]),
+            kernel=start,
             optimizer=partial(_bounded_lbfgs, max_iterations=int(self.max_optimiser_iterations)),
             normalize_y=True,
             n_restarts_optimizer=self.n_restarts_optimizer,
