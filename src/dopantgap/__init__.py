@@ -10,6 +10,7 @@ The Python API mirrors the command line::
     picks = dg.pick_next(model, count=5, method="hyb", cost={"gga": 1, "hyb": 30})
     explained = dg.explain_model(model)
     checked = dg.validate_table(table)       # out-of-fold error per scenario, with baselines
+    worst = dg.element_breakdown(checked)    # per element, the worst intervals first
     dg.save_model(model, "models/mine")
 """
 
@@ -36,9 +37,12 @@ __all__ = [
     "build_report",
     "coverage",
     "descriptor_table",
+    "element_breakdown",
     "element_flags",
     "explain_model",
     "fill_table",
+    "fold_honesty",
+    "group_breakdown",
     "load_model",
     "pick_next",
     "read_table",
@@ -52,7 +56,10 @@ __all__ = [
 # the heavier consumers (shap, matplotlib) load on first use, so the command line starts fast
 _LAZY = {
     "build_report": ("dopantgap.report", "build_report"),
+    "element_breakdown": ("dopantgap.breakdown", "element_breakdown"),
     "explain_model": ("dopantgap.explain", "explain_model"),
+    "fold_honesty": ("dopantgap.breakdown", "fold_honesty"),
+    "group_breakdown": ("dopantgap.breakdown", "group_breakdown"),
     # not "validate": importing the submodule dopantgap.validate would shadow the name
     "validate_table": ("dopantgap.validate", "validate"),
 }

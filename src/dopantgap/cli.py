@@ -69,7 +69,9 @@ def _build_parser():
         help="out-of-fold error and interval coverage of every learner and baseline, per scenario",
     )
     add_table_options(validate_command)
-    validate_command.add_argument("--out", required=True, metavar="DIR", help="folder for metrics.csv and figures")
+    validate_command.add_argument(
+        "--out", required=True, metavar="DIR", help="folder for metrics.csv, the per-element breakdowns and figures"
+    )
     add_learning_options(validate_command, "learners to validate (default: auto = both)")
 
     fill = commands.add_parser("fill", help="estimate every missing cell with an interval")
@@ -281,7 +283,7 @@ def _command_fit(arguments, say):
 
 
 def _command_validate(arguments, say):
-    from dopantgap.validate import validate, validation_text, write_validation
+    from dopantgap.validate import breakdown_text, validate, validation_text, write_validation
 
     table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
@@ -295,6 +297,10 @@ def _command_validate(arguments, say):
     say("gp, boost: the learners ('fit' keeps the marked one). Baselines are rules one could follow "
         "by hand, for comparison; level-shift takes the column mean where no cheaper level is computed.")
     say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
+    say()
+    say(f"Where the kept learner ({result.surrogate.learner_}) fails, element by element "
+        f"(in full: elements.csv, groups.csv, folds.csv):")
+    say(breakdown_text(result.elements, result.groups, result.folds).rstrip("\n"))
     say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths)} "
         f"({time.perf_counter() - started:.0f} s)")
 

@@ -24,7 +24,11 @@ Outputs of :func:`write_validation`: ``metrics.csv`` (``METRIC_COLUMNS``; one ro
 scenario, model and quantity plus a pooled row with quantity ``all``),
 ``predictions.csv`` (every out-of-fold prediction of every model), and per scenario
 ``parity_<scenario>.png`` and ``calibration_<scenario>.png`` of the learner ``fit``
-keeps.
+keeps; and where that learner fails (``breakdown``): ``elements.csv`` (per element and
+scenario, worst first), ``groups.csv`` (per periodic-table block and per tercile of
+distance from the other elements) and ``folds.csv`` (per new-element fold, the error
+the model claimed against the error it made). Their columns are described in the
+``breakdown`` module.
 """
 
 from dataclasses import dataclass, field
@@ -37,6 +41,7 @@ from sklearn.base import clone
 
 from dopantgap import plots
 from dopantgap.baselines import BASELINES, predict_baseline
+from dopantgap.breakdown import breakdown_text, element_breakdown, fold_honesty, group_breakdown
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
@@ -46,6 +51,11 @@ __all__ = [
     "ValidationResult",
     "baseline_residuals",
     "baselines_ahead",
+    "breakdown_text",
+    "breakdowns",
+    "element_breakdown",
+    "fold_honesty",
+    "group_breakdown",
     "validate",
     "validation_metrics",
     "validation_text",
@@ -58,6 +68,10 @@ METRIC_COLUMNS = ("scenario", "model", "quantity", "mae", "rmse", "coverage", "n
 LEVEL = 0.9
 
 _PREDICTION_COLUMNS = list(REQUIRED_COLUMNS) + ["scenario", "fold", "model", "mean", "error"]
+# domain_distance is a property of the cell and its fold, so the baselines' rows carry it
+# too; the learners' other residual columns (raw_std, z, difficulty features) are kept
+# after the standard ones, so that predictions.csv can be judged as the learners were
+_CARRIED_COLUMNS = ("domain_distance",)
 
 
 @dataclass
@@ -73,11 +87,17 @@ class ValidationResult:
         ``fold``, ``model``, ``mean`` and ``error`` (value - mean), plus ``covered``.
     surrogate : Surrogate
         The fitted model (the one ``fit`` would write).
+    elements, groups, folds : DataFrame or None
+        Where the kept learner fails (``breakdown.element_breakdown``,
+        ``group_breakdown``, ``fold_honesty``); None until :func:`validate` fills them.
     """
 
     metrics: pd.DataFrame
     predictions: pd.DataFrame
     surrogate: Surrogate = field(repr=False, default=None)
+    elements: pd.DataFrame = field(repr=False, default=None)
+    groups: pd.DataFrame = field(repr=False, default=None)
+    folds: pd.DataFrame = field(repr=False, default=None)
 
 
 def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
@@ -111,9 +131,10 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
                                   random_state=random_state)
         for _, name, training, hidden in tasks
     )
+    carried = [column for column in _CARRIED_COLUMNS if column in residuals]
     parts = []
     for (fold, name, _, hidden), mean in zip(tasks, means):
-        part = hidden[list(REQUIRED_COLUMNS) + ["scenario"]].copy()
+        part = hidden[list(REQUIRED_COLUMNS) + ["scenario"] + carried].copy()
         part["fold"] = fold
         part["model"] = name
         part["mean"] = np.asarray(mean, dtype=float)
@@ -122,7 +143,7 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
         return pd.DataFrame(columns=_PREDICTION_COLUMNS)
     out = pd.concat(parts, ignore_index=True)
     out["error"] = out["value"] - out["mean"]
-    return out[_PREDICTION_COLUMNS]
+    return out[_PREDICTION_COLUMNS + carried]
 
 
 def _learner_predictions(surrogate):
@@ -166,8 +187,9 @@ def validation_metrics(surrogate, baselines=BASELINES, random_state=0):
         for _name, rows in reference.groupby("model", sort=False):
             covered[rows.index.to_numpy()] = cross_conformal_covered(rows, "error", LEVEL)
         frames.append(reference.assign(covered=covered))
-    predictions = pd.concat(frames, ignore_index=True)
-    predictions = predictions[_PREDICTION_COLUMNS + ["covered"] + [c for c in ("raw_std", "z") if c in predictions]]
+    standard = _PREDICTION_COLUMNS + ["covered"]
+    extra = [column for column in learners.columns if column not in standard]
+    predictions = pd.concat(frames, ignore_index=True)[standard + extra]
     rows = []
     models = list(dict.fromkeys(predictions["model"]))
     for scenario in SCENARIOS:
@@ -207,11 +229,34 @@ def validate(table, estimator=None, baselines=BASELINES, random_state=0, progres
     estimator = Surrogate(random_state=random_state) if estimator is None else clone(estimator)
     surrogate = estimator.fit(table, progress=progress)
     metrics, predictions = validation_metrics(surrogate, baselines, random_state)
-    return ValidationResult(metrics=metrics, predictions=predictions, surrogate=surrogate)
+    result = ValidationResult(metrics=metrics, predictions=predictions, surrogate=surrogate)
+    result.elements, result.groups, result.folds = breakdowns(result)
+    return result
+
+
+def breakdowns(result):
+    """Where the kept learner fails: the result's own breakdowns, or computed anew.
+
+    Parameters
+    ----------
+    result : ValidationResult
+
+    Returns
+    -------
+    elements, groups, folds : DataFrame
+        ``breakdown.element_breakdown``, ``group_breakdown`` and ``fold_honesty`` at
+        ``LEVEL``; a breakdown the result already holds is returned as it is.
+    """
+    return (
+        element_breakdown(result, LEVEL) if result.elements is None else result.elements,
+        group_breakdown(result, LEVEL) if result.groups is None else result.groups,
+        fold_honesty(result, level=LEVEL) if result.folds is None else result.folds,
+    )
 
 
 def write_validation(result, out_dir):
-    """Write ``metrics.csv``, ``predictions.csv`` and the figures per scenario.
+    """Write ``metrics.csv``, ``predictions.csv``, the figures per scenario and the
+    breakdowns ``elements.csv``, ``groups.csv`` and ``folds.csv``.
 
     Parameters
     ----------
@@ -226,7 +271,12 @@ def write_validation(result, out_dir):
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     written = []
-    for name, frame in (("metrics.csv", result.metrics), ("predictions.csv", result.predictions)):
+    element_rows, group_rows, fold_rows = breakdowns(result)
+    tables = (
+        ("metrics.csv", result.metrics), ("predictions.csv", result.predictions),
+        ("elements.csv", element_rows), ("groups.csv", group_rows), ("folds.csv", fold_rows),
+    )
+    for name, frame in tables:
         write_table(frame, out_dir / name)
         written.append(out_dir / name)
     surrogate = result.surrogate

@@ -8,9 +8,12 @@ from sklearn.model_selection import GroupKFold, KFold
 from dopantgap import features as features_module
 from dopantgap import surrogate as surrogate_module
 from dopantgap.baselines import BASELINES
+from dopantgap.breakdown import ELEMENT_COLUMNS, FOLD_COLUMNS, GROUP_COLUMNS
 from dopantgap.calibration import SCENARIOS
 from dopantgap.cli import main
 from dopantgap.fill import fill_table
+from dopantgap.learners import GPLearner
+from dopantgap.symbols import atomic_number
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS, write_table
 from dopantgap.validate import (
@@ -89,6 +92,31 @@ def test_write_validation_files(result, tmp_path):
     written = pd.read_csv(tmp_path / "out" / "metrics.csv")
     assert list(written.columns) == list(METRIC_COLUMNS)
     assert (tmp_path / "out" / "parity_upgrade.png").read_bytes()[:4] == b"\x89PNG"
+    for name, columns in (("elements.csv", ELEMENT_COLUMNS), ("groups.csv", GROUP_COLUMNS),
+                          ("folds.csv", FOLD_COLUMNS)):
+        assert name in names
+        assert list(pd.read_csv(tmp_path / "out" / name).columns) == list(columns)
+
+
+def test_breakdowns_add_up_to_the_kept_learners_metrics(result):
+    """Per element and per group, the cells and the coverage recombine into the pooled
+    row of metrics.csv; the new-element folds are the main folds."""
+    pooled = result.metrics[(result.metrics["quantity"] == "all") & result.metrics["chosen"]].set_index("scenario")
+    for scenario in SCENARIOS:
+        rows = result.elements[result.elements["scenario"] == scenario]
+        assert rows["n"].sum() == pooled.at[scenario, "n"]
+        assert (rows["n"] * rows["coverage"]).sum() / rows["n"].sum() == pytest.approx(pooled.at[scenario, "coverage"])
+        for kind in ("block", "distance tercile"):
+            groups = result.groups[(result.groups["kind"] == kind) & (result.groups["scenario"] == scenario)]
+            assert groups["n"].sum() == pooled.at[scenario, "n"]
+    assert result.elements["coverage"].is_monotonic_increasing
+    groups = result.groups
+    terciles = groups[(groups["kind"] == "distance tercile") & (groups["scenario"] == "new-element")]
+    assert sorted(terciles["n_elements"]) == [8, 8, 8]  # 24 elements
+    kept = result.predictions[result.predictions["model"] == result.surrogate.learner_]
+    new_element_folds = sorted(kept.loc[kept["scenario"] == "new-element", "fold"].unique())
+    assert list(result.folds["fold"]) == new_element_folds
+    assert (result.folds["claimed_rmse"] > 0).all() and (result.folds["ratio"] > 0).all()
 
 
 def _groups_whole(elements, test_masks):
@@ -142,22 +170,33 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
     original_upgrade = surrogate_module.Surrogate._cross_validate_upgrade
     original_encoder_fit = features_module.CellEncoder.fit
 
-    def recording_fit_stages(self, core, name, template, always_reuse=False):
+    def recording_fit_stages(self, core, name, template, mode="fresh", shift_only=frozenset()):
         trainings.append(core.copy())
         phase["now"] = len(trainings) - 1
-        return original_fit_stages(self, core, name, template, always_reuse)
+        return original_fit_stages(self, core, name, template, mode, shift_only)
 
     def recording_upgrade(self, core, name):
         phase["now"] = "upgrade"
-        return original_upgrade(self, core, name)
+        found = original_upgrade(self, core, name)
+        phase["now"] = None
+        return found
 
     def recording_encoder_fit(self, cells, *args, **kwargs):
         calls.append((phase["now"], set(cells["element"])))
         return original_encoder_fit(self, cells, *args, **kwargs)
 
+    gp_fits = []  # (phase, atomic numbers the fit saw, whether it optimised hyperparameters)
+    original_gp_fit = GPLearner.fit
+
+    def recording_gp_fit(self, X, y):
+        labels = np.asarray(X)[:, self.label_columns[0]]
+        gp_fits.append((phase["now"], {int(z) for z in labels}, self.fixed_kernel is None))
+        return original_gp_fit(self, X, y)
+
     monkeypatch.setattr(surrogate_module.Surrogate, "_fit_stages", recording_fit_stages)
     monkeypatch.setattr(surrogate_module.Surrogate, "_cross_validate_upgrade", recording_upgrade)
     monkeypatch.setattr(features_module.CellEncoder, "fit", recording_encoder_fit)
+    monkeypatch.setattr(GPLearner, "fit", recording_gp_fit)
     model = Surrogate(learner="gp", n_folds=4, random_state=2).fit(table)
     residuals = model.cv_residuals_
     main_folds = sorted(residuals.loc[residuals["scenario"] != "upgrade", "fold"].unique())
@@ -175,6 +214,11 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
         fold_encoders = [seen for when, seen in calls if when == position]
         assert fold_encoders and all(seen <= set(training["element"]) for seen in fold_encoders)
         assert all(not seen & new_elements for seen in fold_encoders)
+        # hyperparameters: every fold optimises its own kernel, on its own rows only
+        fold_gps = [(seen, optimised) for when, seen, optimised in gp_fits if when == position]
+        assert fold_gps and all(optimised for _, optimised in fold_gps)
+        hidden_numbers = {atomic_number(symbol) for symbol in new_elements}
+        assert all(not seen & hidden_numbers for seen, _ in fold_gps)
     # the upgrade loop: each fold's correction encoder never sees the fold's elements
     upgrade_folds = residuals[residuals["scenario"] == "upgrade"].groupby("fold", sort=True)["element"].apply(set)
     loop_encoders = [seen for when, seen in calls if when == "upgrade"]
@@ -248,17 +292,33 @@ def test_lanthanide_is_flagged_in_fill_columns_and_cli(tmp_path, capsys):
     assert {"domain_distance", "outside_domain"} <= set(filled.columns)
     by_element = filled.groupby("element")["outside_domain"].agg(["min", "max"])
     assert by_element.loc["Nd", "min"] and not by_element.loc["Ge", "max"]
-    assert (filled.loc[filled["element"].isin(table["element"]), "domain_distance"] == 0).all()
+    # distance is measured to the elements computed at the cell's level and host: 0 for
+    # every cell of an element computed there, computed or not
+    computed_at = set(zip(table["element"], table["host"], table["method"], table["quantity"]))
+    at_own_level = [key in computed_at for key in zip(filled["element"], filled["host"], filled["method"],
+                                                        filled["quantity"])]
+    assert (filled.loc[at_own_level, "domain_distance"] == 0).all()
+    assert (filled.loc[filled["element"] == "Nd", "domain_distance"] > 0).all()
 
 
 def test_validate_command_writes_metrics_and_refuses_bad_input(tmp_path, capsys):
     path = tmp_path / "table.csv"
     write_table(_small_table(), path)
-    assert main(["validate", str(path), "--out", str(tmp_path / "v"), "--learner", "gp", "--quiet"]) == 0
+    assert main(["validate", str(path), "--out", str(tmp_path / "v"), "--learner", "gp"]) == 0
     metrics = pd.read_csv(tmp_path / "v" / "metrics.csv")
     assert set(metrics["model"]) == {"gp"} | set(BASELINES)
     assert metrics.loc[metrics["model"] == "gp", "chosen"].all()
-    capsys.readouterr()
+    elements = pd.read_csv(tmp_path / "v" / "elements.csv")
+    assert set(elements["element"]) == set(SMALL_ELEMENTS)
+    assert not pd.read_csv(tmp_path / "v" / "groups.csv").empty
+    assert len(pd.read_csv(tmp_path / "v" / "folds.csv")) == 5  # Surrogate's default of five folds
+    printed = capsys.readouterr().out
+    assert "Where the kept learner (gp) fails" in printed
+    worst = elements[elements["n_outside"] > 0]["element"].drop_duplicates().head(5)
+    for element in worst:
+        assert f"\n  {element} " in printed
+    assert "new-element folds: real / claimed RMS error median" in printed
+    assert "elements.csv, groups.csv, folds.csv" in printed
     (tmp_path / "bad.csv").write_text("element,host,site,method,quantity,value\nXx,ZnS,sub_Zn,gga,E_sol,1.0\n")
     assert main(["validate", str(tmp_path / "bad.csv"), "--out", str(tmp_path / "w")]) == 2
     error = capsys.readouterr().err
