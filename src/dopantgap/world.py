@@ -25,6 +25,39 @@ N(0, noise_sd) per cell. The expensive level adds a smooth correction
     E_hyb - E_gga = 0.15 + 0.25 d_chi + 0.05 (p - 3) - 0.1 (rho - 1)
 
 plus its own noise N(0, noise_sd).
+
+The second invented function
+----------------------------
+``invent_second_world`` is just as INVENTED, with other hosts (an oxide-like MgO and a
+nitride-like GaN), other sites and other drivers: electronegativity difference, first
+ionisation energy and valence mismatch carry most of the variation and size comes
+second, where the first world is mostly about size. With r, chi, v, p as above, I the
+first ionisation energy (eV) of the impurity, and r0, chi0, I0, v0 the weighted means
+over the reference atoms (``elements.reference_atoms``: the replaced atom on a
+substitutional or dumbbell site, the host's atom fractions on an interstitial one),
+let s = ln(r / r0), d_chi = chi - chi0, d_I = I - I0, d_v = v - v0:
+
+    cation substitutional  E = 0.7 + 1.1 |d_chi| + 0.16 |d_I| + 0.20 |d_v| + 0.9 s^2
+    anion substitutional   E = 1.2 + 0.8 d_chi^2 + 0.12 |d_I| + 0.20 |d_v| + 0.9 s^2
+    octahedral int.        E = 1.0 + 0.5 |d_chi| + 0.20 I + 0.15 |d_v| + 1.2 s^2
+    tetrahedral int.       E = 1.5 + 0.4 |d_chi| + 0.24 I + 0.12 |d_v| + 1.8 s^2
+    anion dumbbell         E = 2.0 - 0.6 d_chi + 0.10 |d_I| + 0.20 |d_v| + 0.8 s^2
+    vacancy binding        E = -0.25 - 0.3 |d_chi| - 0.15 |d_v| + 0.04 d_I - 0.5 s^2
+
+A ``sub_X`` site is a cation site when X is the least electronegative atom of the
+host (sub_Mg, sub_Ga) and an anion site otherwise (sub_O, sub_N); ``int_oct``,
+``int_tet`` and ``dumbbell_X`` are the octahedral and tetrahedral interstitials and the
+split pair on an X site. The site energies get a host offset (MgO +0.6 eV, GaN +0.2 eV,
+other hosts 0); every E gets the element term e_el ~ N(0, element_sd) (half of it for
+the binding energy, which is computed on sub_Mg and sub_Ga) and noise N(0, noise_sd).
+The expensive level adds a correction that is nearly flat for metals and jumps for
+strongly electronegative elements:
+
+    E_hyb - E_gga = 0.10 + 0.10 d_chi + 0.03 (I - 7) + 0.04 |d_v| + 1.5 max(0, chi - 2.8)
+
+The last term adds 1.8 eV for F (chi 3.98), 1.0 for O, 0.5 for Cl, 0.4 for N, 0.2 for
+Br and nothing for any metal, so a correction learned from metals alone cannot be
+carried over to them. Plus its own noise N(0, noise_sd).
 """
 
 import numpy as np
@@ -32,7 +65,15 @@ import pandas as pd
 
 from dopantgap import elements
 
-__all__ = ["DEMO_ELEMENTS", "DEMO_HOSTS", "invent_world", "observe"]
+__all__ = [
+    "DEMO_ELEMENTS",
+    "DEMO_HOSTS",
+    "SECOND_ELEMENTS",
+    "SECOND_HOSTS",
+    "invent_second_world",
+    "invent_world",
+    "observe",
+]
 
 #: Hosts of the invented world: a compound with two sublattices and an elemental one.
 DEMO_HOSTS = {
@@ -142,32 +183,228 @@ def invent_world(
     return world[["element", "host", "site", "method", "quantity", "value", "truth"]]
 
 
-def observe(world, expensive_fraction=0.2, missing_fraction=0.1, absent=(), seed=0):
-    """What a researcher would have computed of an invented world.
+#: Hosts of the second invented world: an oxide-like and a nitride-like compound.
+SECOND_HOSTS = {
+    "MgO": ("sub_Mg", "sub_O", "int_oct", "dumbbell_O"),
+    "GaN": ("sub_Ga", "sub_N", "int_oct", "int_tet"),
+}
+_SECOND_BINDING_SITES = {"MgO": "sub_Mg", "GaN": "sub_Ga"}
+_SECOND_HOST_OFFSET = {"MgO": 0.6, "GaN": 0.2}
+
+#: Elements of the second invented world: alkali and alkaline-earth metals, p-block
+#: metals and non-metals with four halogens and four chalcogens, and 3d/4d transition
+#: metals. No noble gas, no element without a stable isotope, no Si or Ge, and not the
+#: host cations Mg and Ga (so every impurity is foreign to both hosts' metal site).
+SECOND_ELEMENTS = tuple(
+    "Li Na K Cs Ca Sr Ba B Al In C Sn N P As Sb O S Se Te F Cl Br I "
+    "Sc Ti V Cr Mn Fe Co Ni Cu Zn Zr Ag".split()
+)
+# Electronegativity above which the expensive level's correction grows (second world).
+_HALOGEN_ONSET = 2.8
+
+
+def _second_site_kind(site, composition):
+    """Which formula of the second world a site label takes (module docstring)."""
+    prefix, _, atom = site.partition("_")
+    if prefix == "sub" and atom in composition:
+        table = elements.descriptor_table(list(composition))
+        least = table["electronegativity_pauling"].idxmin()
+        return "cation" if atom == least else "anion"
+    if prefix == "dumbbell" and atom in composition:
+        return "dumbbell"
+    if site in ("int_oct", "int_tet"):
+        return site
+    raise ValueError(
+        f"The second invented world has no site {site!r}; use sub_X or dumbbell_X with X "
+        "a host atom, int_oct or int_tet."
+    )
+
+
+def _second_site_energy(kind, s, d_chi, d_ionisation, d_v, ionisation):
+    if kind == "cation":
+        return 0.7 + 1.1 * np.abs(d_chi) + 0.16 * np.abs(d_ionisation) + 0.20 * np.abs(d_v) + 0.9 * s**2
+    if kind == "anion":
+        return 1.2 + 0.8 * d_chi**2 + 0.12 * np.abs(d_ionisation) + 0.20 * np.abs(d_v) + 0.9 * s**2
+    if kind == "int_oct":
+        return 1.0 + 0.5 * np.abs(d_chi) + 0.20 * ionisation + 0.15 * np.abs(d_v) + 1.2 * s**2
+    if kind == "int_tet":
+        return 1.5 + 0.4 * np.abs(d_chi) + 0.24 * ionisation + 0.12 * np.abs(d_v) + 1.8 * s**2
+    # anion dumbbell: the only site an electronegative impurity prefers
+    return 2.0 - 0.6 * d_chi + 0.10 * np.abs(d_ionisation) + 0.20 * np.abs(d_v) + 0.8 * s**2
+
+
+def _second_correction(chi, d_chi, ionisation, d_v):
+    """Expensive minus cheap level in the second world (module docstring)."""
+    return (
+        0.10 + 0.10 * d_chi + 0.03 * (ionisation - 7.0) + 0.04 * np.abs(d_v)
+        + 1.5 * np.maximum(0.0, chi - _HALOGEN_ONSET)
+    )
+
+
+def invent_second_world(
+    element_symbols=SECOND_ELEMENTS,
+    hosts=None,
+    noise_sd=0.05,
+    element_sd=0.15,
+    methods=("gga", "hyb"),
+    seed=0,
+):
+    """Every cell of the second INVENTED world, with its true value (module docstring).
+
+    Unlike ``invent_world``, energies follow electronegativity, ionisation energy and
+    valence mismatch more than size, and the expensive level's correction jumps for
+    strongly electronegative elements (halogens, O, N).
 
     Parameters
     ----------
-    world : DataFrame
-        From ``invent_world``.
-    expensive_fraction : float, default=0.2
-        Share of elements with the expensive level computed (all their cells).
-    missing_fraction : float, default=0.1
-        Share of cheap-level cells left out at random.
-    absent : sequence of str, default=()
-        Elements with no cell at all (never computed).
+    element_symbols : sequence of str, default=SECOND_ELEMENTS
+    hosts : dict or None, default=None
+        Host formula -> site labels (``sub_X``, ``dumbbell_X``, ``int_oct``,
+        ``int_tet``); None: ``SECOND_HOSTS``. Hosts other than MgO and GaN get no
+        offset and no binding energy.
+    noise_sd : float, default=0.05
+        Standard deviation (eV) of the per-cell noise.
+    element_sd : float, default=0.15
+        Standard deviation (eV) of the element term no descriptor explains.
+    methods : tuple of str, default=("gga", "hyb")
+        Names of the cheap and the expensive level.
     seed : int, default=0
 
     Returns
     -------
     DataFrame
+        Columns element, host, site, method, quantity, value, truth, as
+        ``invent_world``: quantity ``E_sol`` for site energies and ``E_bind`` for
+        vacancy binding; ``truth`` is the value before noise.
+
+    Raises
+    ------
+    ValueError
+        For a site label the invented function does not know.
+
+    Examples
+    --------
+    >>> world = invent_second_world(seed=0)
+    >>> sorted(world["host"].unique())
+    ['GaN', 'MgO']
+    """
+    hosts = SECOND_HOSTS if hosts is None else hosts
+    rng = np.random.default_rng(seed)
+    symbols = list(element_symbols)
+    element_term = dict(zip(symbols, rng.normal(0.0, element_sd, len(symbols))))
+    table = elements.descriptor_table(symbols)
+    radius = table["covalent_radius"].to_numpy()
+    chi = table["electronegativity_pauling"].to_numpy()
+    ionisation = table["ionisation_energy_1"].to_numpy()
+    valence = table["valence_electrons"].to_numpy()
+    element_terms = np.array([element_term[symbol] for symbol in symbols])
+    compositions = elements.host_compositions(sorted(hosts))
+    parts = []
+    for host, sites in hosts.items():
+        plan = [(site, "E_sol") for site in sites]
+        if host in _SECOND_BINDING_SITES:
+            plan.append((_SECOND_BINDING_SITES[host], "E_bind"))
+        for site, quantity in plan:
+            kind = _second_site_kind(site, compositions[host])
+            reference = elements.reference_atoms(site, compositions[host])
+            reference_table = elements.descriptor_table(list(reference))
+            weights = np.array(list(reference.values()))
+            r0 = float(weights @ reference_table["covalent_radius"].to_numpy())
+            chi0 = float(weights @ reference_table["electronegativity_pauling"].to_numpy())
+            ionisation0 = float(weights @ reference_table["ionisation_energy_1"].to_numpy())
+            v0 = float(weights @ reference_table["valence_electrons"].to_numpy())
+            s, d_chi = np.log(radius / r0), chi - chi0
+            d_ionisation, d_v = ionisation - ionisation0, valence - v0
+            if quantity == "E_sol":
+                base = _second_site_energy(kind, s, d_chi, d_ionisation, d_v, ionisation)
+                base = base + _SECOND_HOST_OFFSET.get(host, 0.0) + element_terms
+            else:
+                base = -0.25 - 0.3 * np.abs(d_chi) - 0.15 * np.abs(d_v) + 0.04 * d_ionisation - 0.5 * s**2
+                base = base + 0.5 * element_terms
+            correction = _second_correction(chi, d_chi, ionisation, d_v)
+            for method, truth in ((methods[0], base), (methods[1], base + correction)):
+                parts.append(
+                    pd.DataFrame(
+                        {
+                            "element": symbols,
+                            "host": host,
+                            "site": site,
+                            "method": method,
+                            "quantity": quantity,
+                            "truth": truth.astype(float),
+                        }
+                    )
+                )
+    world = pd.concat(parts, ignore_index=True)
+    world["value"] = world["truth"] + rng.normal(0.0, noise_sd, len(world))
+    return world[["element", "host", "site", "method", "quantity", "value", "truth"]]
+
+
+def observe(
+    world,
+    expensive_fraction=0.2,
+    missing_fraction=0.1,
+    absent=(),
+    seed=0,
+    n_expensive=None,
+    expensive_elements=None,
+):
+    """What a researcher would have computed of an invented world.
+
+    Parameters
+    ----------
+    world : DataFrame
+        From ``invent_world`` or ``invent_second_world``.
+    expensive_fraction : float, default=0.2
+        Share of elements with the expensive level computed (all their cells); ignored
+        when ``n_expensive`` or ``expensive_elements`` is given.
+    missing_fraction : float, default=0.1
+        Share of cheap-level cells left out at random.
+    absent : sequence of str, default=()
+        Elements with no cell at all (never computed).
+    seed : int, default=0
+    n_expensive : int or None, default=None
+        Exact number of elements, drawn at random, with the expensive level computed.
+    expensive_elements : sequence of str or None, default=None
+        Exactly these elements have the expensive level computed. Then no elements are
+        drawn, so the cheap cells left out depend on ``seed`` and ``missing_fraction``
+        only and nested choices of expensive elements see the same cheap cells.
+
+    Returns
+    -------
+    DataFrame
         The observed rows of ``world`` (columns element .. value), in world order.
+
+    Raises
+    ------
+    ValueError
+        If both ``n_expensive`` and ``expensive_elements`` are given, if
+        ``n_expensive`` is not between 1 and the number of present elements, or if
+        ``expensive_elements`` names an element that is absent or not in the world.
     """
     rng = np.random.default_rng(seed)
     methods = list(dict.fromkeys(world["method"]))
     cheap, expensive = methods[0], methods[1]
     symbols = [s for s in dict.fromkeys(world["element"]) if s not in set(absent)]
-    n_expensive = max(1, int(round(expensive_fraction * len(symbols))))
-    with_expensive = set(rng.choice(symbols, size=n_expensive, replace=False))
+    if n_expensive is not None and expensive_elements is not None:
+        raise ValueError("Give n_expensive or expensive_elements, not both.")
+    if expensive_elements is not None:
+        unknown = [symbol for symbol in expensive_elements if symbol not in symbols]
+        if unknown:
+            raise ValueError(
+                f"expensive_elements {unknown} are absent or not in the world; choose among "
+                f"the present elements ({len(symbols)} of them)."
+            )
+        with_expensive = set(expensive_elements)
+    else:
+        if n_expensive is None:
+            n_expensive = max(1, int(round(expensive_fraction * len(symbols))))
+        elif not 1 <= int(n_expensive) <= len(symbols):
+            raise ValueError(
+                f"n_expensive must lie between 1 and the {len(symbols)} present elements, "
+                f"got {n_expensive}."
+            )
+        with_expensive = set(rng.choice(symbols, size=int(n_expensive), replace=False))
     is_cheap = (world["method"] == cheap).to_numpy()
     is_expensive = (world["method"] == expensive).to_numpy()
     present = world["element"].isin(symbols).to_numpy()
