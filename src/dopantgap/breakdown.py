@@ -54,7 +54,7 @@ import numpy as np
 import pandas as pd
 
 from dopantgap import elements
-from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered, cross_conformal_widths
 from dopantgap.domain import ElementDomain
 
 __all__ = [
@@ -122,30 +122,9 @@ def _kept_residuals(source, level):
 
 def _other_fold_widths(rows, level):
     """Per row, the factors on ``raw_std`` giving the interval's half-width and the
-    calibrated std, from a calibration built on the *other* folds' residuals: the
-    scenario and quantity's conformal quantile (or std scale) times the cell's
-    difficulty, exactly as ``calibration.cross_conformal_covered`` judges the row."""
-    multiplier = np.full(len(rows), np.nan)
-    scale = np.full(len(rows), np.nan)
-    folds = rows["fold"].to_numpy()
-    scenarios = rows["scenario"].to_numpy()
-    keys = list(zip(scenarios, rows["quantity"]))
-    for fold in np.unique(folds):
-        inside = folds == fold
-        calibration = fit_calibration(rows[~inside], "z")
-        own = rows[inside]
-        difficulty = np.ones(len(own))
-        for scenario in np.unique(scenarios[inside]):
-            chosen = scenarios[inside] == scenario
-            difficulty[chosen] = calibration.difficulty(scenario, own[chosen])
-        found = {}
-        for offset, position in enumerate(np.flatnonzero(inside)):
-            key = keys[position]
-            if key not in found:
-                found[key] = (calibration.half_width(key[0], level, key[1]), calibration.std_scale(key[0], key[1]))
-            multiplier[position] = found[key][0] * difficulty[offset]
-            scale[position] = found[key][1] * difficulty[offset]
-    return multiplier, scale
+    calibrated std, from a calibration built on the *other* folds' residuals, exactly as
+    ``calibration.cross_conformal_covered`` judges the row."""
+    return cross_conformal_widths(rows, "z", level)
 
 
 def _error_ratio(rows, level):

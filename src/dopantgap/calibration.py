@@ -30,6 +30,7 @@ __all__ = [
     "SCENARIOS",
     "ScenarioCalibration",
     "cross_conformal_covered",
+    "cross_conformal_widths",
     "fit_calibration",
 ]
 
@@ -50,6 +51,10 @@ DIFFICULTY_FEATURES = ("domain_ratio", "element_cells")
 # these bounds, so that a few odd residuals cannot make an interval vanish or explode.
 _MIN_DIFFICULTY_RESIDUALS = 40
 _SCALE_BOUNDS = (0.33, 4.0)
+# Beyond the domain limit (ratio > 1) a cell's scale is at least its ratio, up to this
+# cap (common practice, no source: an extrapolation's error grows with the distance
+# travelled beyond the data, and the table holds no residual that could say by how much).
+_EXTRAPOLATION_CAP = 10.0
 # |z| of exactly 0 (a cell predicted to the last digit) would give log(0)
 _LOG_FLOOR = 0.02
 
@@ -65,7 +70,10 @@ class DifficultyModel:
     elements computed at its level is never judged easier, an element with more
     computed cells never harder. ``scale(features)`` is exp(b * (ratio - mean ratio)
     - c * (log cells - mean log cells)), clipped to [0.33, 4] after the ratio is capped
-    at twice the largest ratio seen in fitting.
+    at twice the largest ratio seen in fitting; and for a cell beyond the domain limit
+    (ratio > 1) at least the ratio itself (at most 10). The floor is what no fitted
+    slope can give: residuals come from cells the table could hide, and an element
+    unlike every element computed at a level leaves no such residual behind.
 
     Parameters
     ----------
@@ -86,13 +94,14 @@ class DifficultyModel:
     def __init__(self, features, scores):
         design = self._design(features)
         scores = np.abs(np.asarray(scores, dtype=float))
-        self.centre_ = design.mean(axis=0) if len(design) else np.zeros(2)
         finite = np.isfinite(design[:, 0]) if len(design) else np.zeros(0, dtype=bool)
         self.ratio_cap_ = 2.0 * float(design[finite, 0].max()) if finite.any() else 0.0
+        self.centre_ = design[finite].mean(axis=0) if finite.any() else np.zeros(2)
         self.slopes_ = np.zeros(2)
-        if len(scores) >= _MIN_DIFFICULTY_RESIDUALS and finite.all():
-            target = np.log(scores + _LOG_FLOOR)
-            centred = design - self.centre_
+        if finite.sum() >= _MIN_DIFFICULTY_RESIDUALS:
+            # a level with no computed element at all (infinite ratio) says nothing of slopes
+            target = np.log(scores[finite] + _LOG_FLOOR)
+            centred = design[finite] - self.centre_
             # non-negative slopes on (ratio, -log cells): nnls on the centred system
             signed = centred * np.array([1.0, -1.0])
             slopes, _ = nnls(signed, target - target.mean())
@@ -118,14 +127,18 @@ class DifficultyModel:
         Returns
         -------
         ndarray
-            Positive factors within [0.33, 4]; all 1 when nothing was learned.
+            Positive factors within [0.33, 4] (up to 10 beyond the domain limit); 1
+            within the domain when nothing was learned.
         """
         design = self._design(features)
+        ratio = np.nan_to_num(design[:, 0], nan=0.0, posinf=_EXTRAPOLATION_CAP)
+        # the floor binds beyond the domain limit only; inside it the learned scale rules
+        beyond = np.where(ratio > 1.0, np.minimum(ratio, _EXTRAPOLATION_CAP), 0.0)
         if not np.any(self.slopes_):
-            return np.ones(len(design))
-        design[:, 0] = np.minimum(np.nan_to_num(design[:, 0], nan=0.0, posinf=self.ratio_cap_), self.ratio_cap_)
+            return np.maximum(beyond, 1.0)
+        design[:, 0] = np.minimum(ratio, self.ratio_cap_)
         exponent = (design - self.centre_) @ (self.slopes_ * np.array([1.0, -1.0]))
-        return np.clip(np.exp(exponent), *_SCALE_BOUNDS)
+        return np.maximum(np.clip(np.exp(exponent), *_SCALE_BOUNDS), beyond)
 
 
 def fit_calibration(residuals, score_column="z", adaptive=True):
@@ -292,10 +305,34 @@ def cross_conformal_covered(residuals, score_column="z", level=0.9, adaptive=Tru
     -------
     ndarray of bool
     """
-    covered = np.zeros(len(residuals), dtype=bool)
     if len(residuals) == 0:
-        return covered
+        return np.zeros(0, dtype=bool)
     scores = np.abs(residuals[score_column].to_numpy(dtype=float))
+    half_width, _scale = cross_conformal_widths(residuals, score_column, level, adaptive)
+    return scores <= half_width
+
+
+def cross_conformal_widths(residuals, score_column="z", level=0.9, adaptive=True):
+    """Per row, the factors the other folds' calibration puts on the row's own spread.
+
+    Parameters
+    ----------
+    residuals : DataFrame
+        As in :func:`cross_conformal_covered`.
+    score_column : str, default="z"
+    level : float, default=0.9
+    adaptive : bool, default=True
+
+    Returns
+    -------
+    half_width : ndarray
+        Interval half-width over the row's raw std (its scenario and quantity's conformal
+        quantile times its difficulty), from a calibration without the row's fold.
+    std_scale : ndarray
+        The calibrated std over the raw std, likewise.
+    """
+    half_width = np.full(len(residuals), np.nan)
+    std_scale = np.full(len(residuals), np.nan)
     folds = residuals["fold"].to_numpy()
     scenarios = residuals["scenario"].to_numpy()
     quantities = residuals["quantity"].to_numpy()
@@ -307,10 +344,11 @@ def cross_conformal_covered(residuals, score_column="z", level=0.9, adaptive=Tru
         for scenario in np.unique(scenarios[inside]):
             rows = scenarios[inside] == scenario
             difficulty[rows] = calibration.difficulty(scenario, own[rows])
-        widths = {}
+        found = {}
         for offset, position in enumerate(np.flatnonzero(inside)):
             key = (scenarios[position], quantities[position])
-            if key not in widths:
-                widths[key] = calibration.half_width(key[0], level, key[1])
-            covered[position] = scores[position] <= widths[key] * difficulty[offset]
-    return covered
+            if key not in found:
+                found[key] = (calibration.half_width(key[0], level, key[1]), calibration.std_scale(key[0], key[1]))
+            half_width[position] = found[key][0] * difficulty[offset]
+            std_scale[position] = found[key][1] * difficulty[offset]
+    return half_width, std_scale

@@ -294,8 +294,10 @@ def _command_validate(arguments, say):
     say(validation_text(result.metrics).rstrip("\n"))
     say("new-element: all cells of an element hidden together; new-cell: single cells of computed "
         "elements; upgrade: expensive cells whose cheap level is computed.")
-    say("gp, boost: the learners ('fit' keeps the marked one). Baselines are rules one could follow "
-        "by hand, for comparison; level-shift takes the column mean where no cheaper level is computed.")
+    say("gp, boost: the learners ('fit' keeps the marked one); 'auto, chosen per fold': the choice "
+        "between them judged out of fold (each fold predicted by the learner the other folds chose). "
+        "Baselines are rules one could follow by hand, for comparison; level-shift takes the column "
+        "mean where no cheaper level is computed.")
     say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
     say()
     say(f"Where the kept learner ({result.surrogate.learner_}) fails, element by element "
@@ -306,7 +308,7 @@ def _command_validate(arguments, say):
 
 
 def _command_fill(arguments, say):
-    from dopantgap.fill import fill_table, parse_element_list, unfamiliar_elements
+    from dopantgap.fill import fill_table, outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.sites import site_preference
     from dopantgap.store import load_model
     from dopantgap.table import write_table
@@ -336,19 +338,38 @@ def _command_fill(arguments, say):
         say(f"Site preferences -> {sites_out}")
     else:
         say(f"No quantity has two or more sites in a host: {sites_out} lists no site preference.")
-    for symbol, reason in unfamiliar_elements(surrogate, extra).items():
+    unfamiliar = unfamiliar_elements(surrogate, extra)
+    for symbol, reason in unfamiliar.items():
         say(
             f"caution: {symbol} lies outside the training data ({reason}): its estimates are "
             f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
+    _say_outside_levels(say, outside_levels(surrogate, filled, skip=unfamiliar))
     flagged = filled.loc[filled["caution"] != "", ["element", "caution"]].drop_duplicates()
     for row in flagged.itertuples(index=False):
         say(f"caution: {row.element}: {row.caution}")
     say(_CAUTION)
 
 
+def _say_outside_levels(say, outside):
+    """One caution line per level listing the elements whose estimates extrapolate it."""
+    for method, part in outside.groupby("method", sort=False):
+        per_element = part.groupby("element", sort=False).agg(
+            n_cells=("n_cells", "sum"), reason=("reason", "first"), nearest=("nearest", "first")
+        )
+        names = [
+            f"{element} ({row.nearest})" if row.nearest else element for element, row in per_element.iterrows()
+        ]
+        say(
+            f"caution: at {method}, {', '.join(names)} lie outside what was computed at that level "
+            f"(in brackets the nearest element computed there; {per_element['n_cells'].sum()} cells, "
+            f"e.g. {per_element.index[0]}: {per_element['reason'].iat[0]}): those estimates extrapolate "
+            f"the step between levels; computing one of them is the way to check."
+        )
+
+
 def _command_next(arguments, say):
-    from dopantgap.fill import parse_element_list, unfamiliar_elements
+    from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.picker import parse_cost, parse_window, pick_next
     from dopantgap.store import load_model
     from dopantgap import elements
@@ -384,11 +405,13 @@ def _command_next(arguments, say):
     for symbol in extra:
         if symbol not in table_elements:
             say(f"note: {symbol} has no computed cell: its values are new-element estimates with wide intervals.")
-    for symbol, reason in unfamiliar_elements(surrogate, extra).items():
+    unfamiliar = unfamiliar_elements(surrogate, extra)
+    for symbol, reason in unfamiliar.items():
         say(
             f"caution: {symbol} lies outside the training data ({reason}): its estimates are "
             f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
+    _say_outside_levels(say, outside_levels(surrogate, picks, skip=unfamiliar))
     shown = list(dict.fromkeys(list(picks["element"]) + extra))
     if shown:
         flags = elements.element_flags(shown)

@@ -9,7 +9,7 @@ from dopantgap.errors import DopantgapError
 from dopantgap.symbols import SYMBOLS, normalise_symbol
 from dopantgap.table import KEY_COLUMNS
 
-__all__ = ["FILLED_COLUMNS", "fill_table", "parse_element_list", "unfamiliar_elements"]
+__all__ = ["FILLED_COLUMNS", "fill_table", "outside_levels", "parse_element_list", "unfamiliar_elements"]
 
 _BLOCK_NAMES = {0: "s", 1: "p", 2: "d", 3: "f"}
 
@@ -136,3 +136,63 @@ def unfamiliar_elements(surrogate, element_symbols):
                 f"standardised descriptors, beyond the domain limit {domain.threshold_:.2f}"
             )
     return reasons
+
+
+def outside_levels(surrogate, cells, skip=()):
+    """Predicted cells whose element lies outside the domain of the cell's own level.
+
+    An element close to the table's elements can still be unlike every element computed
+    at the expensive level (a halogen when only metals were computed with the hybrid
+    functional): its estimates at that level extrapolate the correction between levels.
+    The rule is ``domain.LevelDomain``'s (distance to the elements computed at the cell's
+    level, in its host where that host has three or more, against the table's domain
+    threshold; or a periodic-table block none of them belongs to).
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        Fitted.
+    cells : DataFrame
+        Predicted cells (columns element, host, site, method, quantity); computed ones
+        are ignored when a ``status`` column says so.
+    skip : collection of str, default=()
+        Elements already cautioned as a whole (``unfamiliar_elements``).
+
+    Returns
+    -------
+    DataFrame
+        One row per element, method and quantity with cells outside: ``element``,
+        ``method``, ``quantity``, ``n_cells``, ``nearest`` (nearest element computed at
+        that level) and ``reason`` (a short phrase).
+    """
+    columns = ["element", "method", "quantity", "n_cells", "nearest", "reason"]
+    if len(cells) == 0:
+        return pd.DataFrame(columns=columns)
+    cells = cells.reset_index(drop=True)
+    if "status" in cells.columns:
+        cells = cells[cells["status"] != "computed"].reset_index(drop=True)
+    cells = cells[~cells["element"].isin(set(skip))].reset_index(drop=True)
+    if len(cells) == 0:
+        return pd.DataFrame(columns=columns)
+    domain = surrogate.level_domain()
+    flagged = cells.assign(
+        outside=domain.outside(cells), distance=domain.distance(cells), nearest=domain.nearest(cells)
+    )
+    flagged = flagged[flagged["outside"]]
+    threshold = domain.elements_.threshold_
+    rows = []
+    for (element, method, quantity), part in flagged.groupby(["element", "method", "quantity"], sort=False):
+        distance = float(part["distance"].min())
+        nearest = str(part["nearest"].iat[0])
+        if not nearest:
+            reason = f"no element has {quantity} computed at {method}"
+        elif distance <= threshold:
+            reason = f"its block has no element computed at {method}"
+        else:
+            reason = (
+                f"{distance:.2f} from the nearest element computed at {method} ({nearest}), "
+                f"beyond the domain limit {threshold:.2f}"
+            )
+        rows.append({"element": element, "method": method, "quantity": quantity, "n_cells": len(part),
+                     "nearest": nearest, "reason": reason})
+    return pd.DataFrame(rows, columns=columns)

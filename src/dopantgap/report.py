@@ -20,7 +20,7 @@ from dopantgap import elements, plots
 from dopantgap.atomic import write_text_atomic
 from dopantgap.calibration import SCENARIOS
 from dopantgap.errors import DopantgapError
-from dopantgap.fill import fill_table, unfamiliar_elements
+from dopantgap.fill import fill_table, outside_levels, unfamiliar_elements
 from dopantgap.sites import site_preference
 from dopantgap.table import coverage
 
@@ -359,7 +359,7 @@ def _summary(surrogate, manifest, model_dir, filled, level, invented):
     return "\n".join(lines)
 
 
-def _cautions(surrogate, flags, extrapolated, level):
+def _cautions(surrogate, flags, extrapolated, level, outside=None):
     items = []
     for symbol, row in flags.iterrows():
         if row["note"]:
@@ -369,6 +369,12 @@ def _cautions(surrogate, flags, extrapolated, level):
         items.append(
             f'<li class="extrapolated"><b>{_text(symbol)}</b>: outside the training data '
             f"({_text(reason)}): its estimates are extrapolations, whatever their interval says.</li>"
+        )
+    for row in (outside if outside is not None else pd.DataFrame()).itertuples(index=False):
+        items.append(
+            f'<li class="extrapolated"><b>{_text(row.element)}</b> at {_text(row.method)} '
+            f"({_text(row.quantity)}, {row.n_cells} cells): outside what was computed at that level "
+            f"({_text(row.reason)}); those estimates extrapolate.</li>"
         )
     for scenario in SCENARIOS:
         n_residuals = surrogate.calibration_.n_residuals(scenario)
@@ -560,6 +566,12 @@ def _campaign(history, replay_curves):
 def _filled_table(filled, extrapolated):
     shown = filled.copy()
     shown["caution"] = shown["caution"].astype(str)
+    # a cell outside its own level's domain (an element unlike those computed there)
+    level_note = "outside the domain of its level"
+    outside_cell = shown["outside_domain"].astype(bool) & ~shown["element"].isin(list(extrapolated))
+    shown.loc[outside_cell, "caution"] = [
+        f"{text}; {level_note}" if text else level_note for text in shown.loc[outside_cell, "caution"]
+    ]
     for symbol, reason in extrapolated.items():
         rows = shown["element"] == symbol
         note = f"outside the training data: {reason}"
@@ -621,6 +633,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
     shown_elements = list(dict.fromkeys(filled["element"]))
     flags = elements.element_flags(shown_elements)
     extrapolated = unfamiliar_elements(surrogate, element_symbols)
+    outside = outside_levels(surrogate, filled, skip=extrapolated)
     tags = _tags(flags, extrapolated)
     step(1)
     preference = site_preference(surrogate, element_symbols=shown_elements)
@@ -629,7 +642,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
     invented = _is_invented(table)
     sections = [
         ("summary", "What was done", _summary(surrogate, manifest, model_dir, filled, level, invented)
-         + _cautions(surrogate, flags, extrapolated, level)),
+         + _cautions(surrogate, flags, extrapolated, level, outside)),
         ("coverage", "What the table covers", _coverage(table)),
         ("maps", "Main columns on the periodic table", _maps(filled, _main_columns(table, surrogate.levels_), tags)),
     ]

@@ -127,6 +127,27 @@ def _calibration(residuals):
     return fit_calibration(residuals, "z")
 
 
+def _selection_residuals(residuals_by_learner):
+    """Out-of-fold residuals of the learner choice itself: each fold's cells predicted by
+    the learner with the lowest mean absolute error on the *other* folds, so that the
+    choice never sees the cells it is judged on (nested model selection; Varma & Simon
+    2006, "Bias in error estimation when using cross-validation for model selection",
+    BMC Bioinformatics 7, 91)."""
+    names = list(residuals_by_learner)
+    folds = sorted(set().union(*(set(frame["fold"]) for frame in residuals_by_learner.values())))
+    parts = []
+    for fold in folds:
+        errors = {}
+        for name in names:
+            frame = residuals_by_learner[name]
+            others = frame.loc[frame["fold"] != fold, "error"]
+            errors[name] = float(np.mean(np.abs(others))) if len(others) else np.inf
+        chosen = min(names, key=lambda name: (errors[name], names.index(name)))
+        frame = residuals_by_learner[chosen]
+        parts.append(frame[frame["fold"] == fold].assign(learner=chosen))
+    return pd.concat(parts, ignore_index=True)
+
+
 def _difficulty_features(level_domain, core, cells):
     """What makes a cell harder than usual, known before it is computed: its element's
     distance from the elements computed at its level (and host), also over the domain
@@ -215,6 +236,10 @@ class Surrogate(BaseEstimator):
     cv_residuals_by_learner_ : dict
         Learner name -> its out-of-fold predictions (as ``cv_residuals_``); every
         residual carries its ``fold`` (main folds first, then the upgrade loop's).
+    selection_residuals_ : DataFrame or None
+        With ``learner="auto"``: each fold's cells as predicted by the learner that the
+        other folds would have chosen (column ``learner`` names it), so the error of
+        choosing is judged out of fold too; None with one candidate.
     cv_metrics_ : DataFrame
         Per learner, scenario and quantity: n, mae, rmse, the out-of-fold coverage of
         the raw 90 % Gaussian interval (``coverage_raw``), and of the calibrated one
@@ -311,6 +336,7 @@ class Surrogate(BaseEstimator):
         self.shift_only_ = shift_only[self.learner_]
         self.cv_residuals_ = residuals[self.learner_]
         self.cv_residuals_by_learner_ = residuals
+        self.selection_residuals_ = _selection_residuals(residuals) if len(candidates) > 1 else None
         self.calibration_ = _calibration(self.cv_residuals_)
         self.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
         self.level_domain_ = LevelDomain(descriptors=self.descriptors_).fit(core)

@@ -48,6 +48,7 @@ from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
 
 __all__ = [
     "METRIC_COLUMNS",
+    "SELECTION_MODEL",
     "ValidationResult",
     "baseline_residuals",
     "baselines_ahead",
@@ -64,6 +65,8 @@ __all__ = [
 
 #: Columns of ``metrics.csv``, in order.
 METRIC_COLUMNS = ("scenario", "model", "quantity", "mae", "rmse", "coverage", "n", "chosen")
+#: Model name of the learner choice judged out of fold (``Surrogate.selection_residuals_``).
+SELECTION_MODEL = "auto, chosen per fold"
 #: Level of the intervals whose coverage is reported.
 LEVEL = 0.9
 
@@ -150,6 +153,11 @@ def _learner_predictions(surrogate):
     by_learner = getattr(surrogate, "cv_residuals_by_learner_", None) or {
         surrogate.learner_: surrogate.cv_residuals_
     }
+    by_learner = dict(by_learner)
+    selection = getattr(surrogate, "selection_residuals_", None)
+    if selection is not None and len(selection):
+        # the learner choice judged out of fold: each fold by the learner the others chose
+        by_learner[SELECTION_MODEL] = selection.drop(columns=["learner"])
     parts = []
     for name, residuals in by_learner.items():
         part = residuals.copy()

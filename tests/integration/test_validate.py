@@ -18,13 +18,14 @@ from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS, write_table
 from dopantgap.validate import (
     METRIC_COLUMNS,
+    SELECTION_MODEL,
     baselines_ahead,
     validate,
     validation_metrics,
     validation_text,
     write_validation,
 )
-from dopantgap.world import DEMO_ELEMENTS, invent_world, observe
+from dopantgap.world import DEMO_ELEMENTS, invent_second_world, invent_world, observe
 
 SMALL_ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As", "Sn", "Sb", "Ba", "Pb", "Zr",
                   "Na", "K", "Ca", "Zn", "In", "Bi", "Cr", "Mn")
@@ -49,7 +50,7 @@ def test_metrics_layout_rows_and_chosen_learner(result):
     assert set(pooled["scenario"]) == set(SCENARIOS)
     for scenario in SCENARIOS:
         models = set(pooled.loc[pooled["scenario"] == scenario, "model"])
-        assert models == {"gp", "boost"} | set(BASELINES)
+        assert models == {"gp", "boost", SELECTION_MODEL} | set(BASELINES)
     assert all("baseline" in name for name in BASELINES)
     chosen = metrics[metrics["chosen"]]
     assert set(chosen["model"]) == {result.surrogate.learner_}
@@ -61,6 +62,21 @@ def test_metrics_layout_rows_and_chosen_learner(result):
     learners = result.predictions[result.predictions["model"].isin(["gp", "boost"])]
     mae = learners.groupby("model")["error"].apply(lambda e: np.mean(np.abs(e)))
     assert result.surrogate.learner_ == mae.idxmin()
+
+
+def test_learner_choice_is_judged_on_folds_it_did_not_see(result):
+    """Nested selection (Varma & Simon 2006, BMC Bioinformatics 7, 91): each fold's cells come
+    from the learner with the lower error on the other folds, computed here by hand."""
+    model = result.surrogate
+    selection = model.selection_residuals_
+    by_learner = model.cv_residuals_by_learner_
+    assert len(selection) == len(by_learner["gp"])
+    for fold, rows in selection.groupby("fold"):
+        others = {name: np.mean(np.abs(frame.loc[frame["fold"] != fold, "error"])) for name, frame in by_learner.items()}
+        expected = min(others, key=others.get)
+        assert set(rows["learner"]) == {expected}
+        own = by_learner[expected]
+        assert np.allclose(np.sort(rows["error"]), np.sort(own.loc[own["fold"] == fold, "error"]))
 
 
 def test_learners_beat_the_baselines_and_level_shift_helps_upgrades(result):
@@ -343,3 +359,33 @@ def test_a_baseline_that_beats_the_kept_learner_is_named_in_a_warning():
     text = validation_text(metrics)
     assert "warning: in new-element, the column-mean baseline (1.400 eV) beats the kept learner gp (1.900 eV)" in text
     assert text.count("warning:") == 1
+
+
+def test_halogen_unlike_every_expensive_element_is_flagged_at_that_level(tmp_path, capsys):
+    """Second invented world (dopantgap.world, not DFT data): the hybrid level computed
+    for metals only. F and Cl sit inside the table's domain at the cheap level, but their
+    hybrid cells are flagged in the filled table and in fill's printout, and their upgrade
+    intervals are wider than the metals' (their difficulty is larger)."""
+    computed_metals = ("Na", "Ca", "Ba", "Al", "Ti", "Cr", "Ni", "Zn")
+    other_metals = ("K", "Sr", "V", "Fe", "Cu")
+    metals = computed_metals + other_metals
+    others = ("B", "N", "P", "As", "O", "S", "Se", "F", "Cl", "Br")
+    world = invent_second_world(element_symbols=metals + others, hosts={"MgO": ("sub_Mg", "sub_O", "int_oct")})
+    table = observe(world, missing_fraction=0.1, expensive_elements=computed_metals, seed=3)
+    path, model_dir, out = tmp_path / "table.csv", tmp_path / "model", tmp_path / "filled.csv"
+    write_table(table, path)
+    assert main(["fit", str(path), "--out", str(model_dir), "--learner", "gp", "--quiet"]) == 0
+    assert main(["fill", str(model_dir), "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    filled = pd.read_csv(out)
+    hyb = filled[(filled["method"] == "hyb") & (filled["status"] == "predicted")]
+    flagged = hyb.groupby("element")["outside_domain"].all()
+    assert flagged["F"] and flagged["Cl"]
+    assert not flagged[list(other_metals)].any()
+    assert not filled.loc[(filled["method"] == "gga") & filled["element"].isin(["F", "Cl"]), "outside_domain"].any()
+    caution = next(line for line in printed.splitlines() if line.startswith("caution: at hyb,"))
+    assert "F (" in caution and "Cl (" in caution and "outside what was computed at that level" in caution
+    assert not any(f" {metal} (" in caution for metal in other_metals)
+    upgrade = hyb[hyb["scenario"] == "upgrade"]
+    width = (upgrade["hi"] - upgrade["lo"]).groupby(upgrade["element"]).median()
+    assert width["F"] > width[list(other_metals)].max()

@@ -131,7 +131,9 @@ def test_difficulty_slopes_keep_their_physical_signs():
         {"domain_ratio": [3.0], "element_cells": [5]})
     assert model.scale(far)[0] >= model.scale(near)[0]
     few = DifficultyModel(frame.head(10), frame["z"].head(10))
-    assert np.all(few.scale(frame) == 1.0)
+    # nothing learned: 1 inside the domain, the ratio itself beyond its limit (ratio > 1)
+    assert np.allclose(few.scale(frame), np.maximum(frame["domain_ratio"], 1.0))
+    assert few.scale(pd.DataFrame({"domain_ratio": [np.inf], "element_cells": [0]}))[0] == 10.0
 
 
 def test_fit_calibration_widens_far_cells_and_cross_conformal_uses_other_folds_only(monkeypatch):
