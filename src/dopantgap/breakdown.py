@@ -361,9 +361,9 @@ def breakdown_text(element_rows, group_rows, fold_rows, level=0.9, count=5):
         for row in missed.itertuples(index=False):
             lines.append(
                 f"  {row.element:<{width}}  {row.scenario}: {row.n_outside} of {row.n} cells outside "
-                f"({_percent(row.coverage)} inside), mean |error| {row.mae:.2f} eV; worst miss "
-                f"{row.worst_error:.2f} eV, {row.worst_ratio:.1f} times the interval's half-width "
-                f"({row.worst_cell})"
+                f"({_percent(row.coverage)} inside), mean |error| {row.mae:.2f} eV; farthest outside "
+                f"its interval: {row.worst_cell}, off by {row.worst_error:.2f} eV, "
+                f"{row.worst_ratio:.1f} times the interval's half-width"
             )
     terciles = group_rows[(group_rows["kind"] == "distance tercile") & (group_rows["scenario"] == "new-element")]
     if len(terciles):

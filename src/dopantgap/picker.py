@@ -523,7 +523,7 @@ def _quantity_block(surrogate, grid, quantity, methods, known):
     mean = np.array([level_means[level][unit] for unit, level in zip(cell_unit, cell_level)])
     core = surrogate.table_[list(REQUIRED_COLUMNS)]
     scenarios = surrogate._scenarios(core, cells)
-    scale = np.array([surrogate.calibration_.std_scale(s, quantity) for s in scenarios])
+    scale = surrogate.std_factors(cells)
     cov = cov * np.outer(scale, scale)
     cells["scenario"] = scenarios
     return _Block(quantity, cells, mean, (cov + cov.T) / 2.0)

@@ -661,7 +661,10 @@ class Surrogate(BaseEstimator):
         """Per-cell factors on the raw std: the calibrated std's and the interval's
         half-width's (scenario and quantity quantile times the cell's difficulty); 1 and
         the Gaussian quantile for cells of no scenario (computed ones)."""
-        features = _difficulty_features(self.level_domain(), core, cells)
+        # difficulty features only where a difficulty model will read them (older model
+        # folders, and hand-built surrogates in tests, have none)
+        has_difficulty = bool(getattr(self.calibration_, "difficulty_", {}))
+        features = _difficulty_features(self.level_domain(), core, cells) if has_difficulty else None
         scale = np.ones(len(cells))
         half = np.full(len(cells), 1.6448536269514722)
         quantities = cells["quantity"].to_numpy()
@@ -669,7 +672,10 @@ class Surrogate(BaseEstimator):
             in_scenario = scenarios == scenario
             if not in_scenario.any():
                 continue
-            difficulty = self.calibration_.difficulty(scenario, features[in_scenario])
+            difficulty = (
+                self.calibration_.difficulty(scenario, features[in_scenario])
+                if features is not None else np.ones(int(in_scenario.sum()))
+            )
             scale[in_scenario] = difficulty
             half[in_scenario] = difficulty
             for quantity in set(quantities[in_scenario]):
@@ -677,6 +683,27 @@ class Surrogate(BaseEstimator):
                 scale[rows] *= self.calibration_.std_scale(scenario, quantity)
                 half[rows] *= self.calibration_.half_width(scenario, level, quantity)
         return scale, half
+
+    def std_factors(self, cells):
+        """Per-cell factor turning the model's own spread into the calibrated std.
+
+        The factor is the scenario and quantity's calibration times the cell's difficulty
+        (``calibration.DifficultyModel``): what ``predict`` and ``predict_joint`` apply, so
+        that a consumer forming its own covariances (the picker) states the same std.
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, site, method, quantity.
+
+        Returns
+        -------
+        ndarray of shape (n_cells,)
+        """
+        cells = self._check_cells(cells)
+        core = self.table_[list(REQUIRED_COLUMNS)]
+        scale, _ = self._calibrated_factors(core, cells, self._scenarios(core, cells))
+        return scale
 
     def level_domain(self):
         """The model's domain per level and host (``domain.LevelDomain``), fitted on the

@@ -10,6 +10,7 @@ import pytest
 from dopantgap.errors import DopantgapError
 from dopantgap.sites import site_preference
 from dopantgap.surrogate import Surrogate
+from dopantgap.table import KEY_COLUMNS
 from dopantgap.world import DEMO_ELEMENTS, invent_world, observe
 
 pytestmark = pytest.mark.slow
@@ -225,3 +226,26 @@ def test_refreshed_model_reoptimises_only_stages_that_outgrew_their_hyperparamet
     cheap = refreshed.stages_[("E_sol", "gga")]
     assert cheap.learner.fixed_kernel is not None
     assert cheap.tuned_rows == model.stages_[("E_sol", "gga")].tuned_rows
+
+
+@pytest.mark.parametrize("n_expensive", [1, 12])
+def test_upgrade_follows_the_level_shift_rule_with_one_expensive_element_and_the_data_with_many(n_expensive):
+    """Invented world (dopantgap.world, not DFT data). With one element at the expensive
+    level, every upgrade estimate lies within its stated std of the level-shift rule (cheap
+    value plus the column's usual shift; baselines.level_shift_baseline). With twelve, the
+    correction is learned and beats that rule against the world's truth."""
+    from dopantgap.baselines import level_shift_baseline
+
+    hosts = {"ZnS": ("sub_Zn", "int_tet_Zn", "int_hex")}
+    world = invent_world(element_symbols=DEMO_ELEMENTS[:40], hosts=hosts, seed=7)
+    table = observe(world, missing_fraction=0.1, n_expensive=n_expensive, seed=7)
+    model = Surrogate(learner="gp", random_state=0).fit(table)
+    grid = world[world["method"] == "hyb"][list(KEY_COLUMNS)].reset_index(drop=True)
+    filled = model.predict(grid)
+    upgrade = filled[filled["scenario"] == "upgrade"].reset_index(drop=True)
+    rule = level_shift_baseline(table, upgrade[list(KEY_COLUMNS)], ["gga", "hyb"])
+    truth = upgrade.merge(world, on=list(KEY_COLUMNS), suffixes=("", "_world"))["truth"].to_numpy()
+    if n_expensive == 1:
+        assert np.all(np.abs(upgrade["value"] - rule) <= upgrade["std"])
+    else:
+        assert np.mean(np.abs(upgrade["value"] - truth)) < 0.8 * np.mean(np.abs(rule - truth))

@@ -13,6 +13,8 @@ Hand-built Gaussian cases use a stand-in surrogate whose stages return a covaria
 written out in the test, so every expected pick can be worked out by hand.
 """
 
+import copy
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -406,8 +408,14 @@ def test_demo_predicted_reduction_matches_a_refit_with_the_pick(demo):
     ``Surrogate.refreshed`` keeps the kernels but re-standardises the features on the grown
     table and scikit-learn's normalize_y rescales each GP by its targets' spread; both move
     the covariance by more than the conditioning does on a 22-row stage. The relearned
-    stages here keep the old encoder and target scale, which isolates the conditioning.
+    stages here keep the old encoder and target scale, which isolates the conditioning;
+    the per-cell difficulty of the calibration is switched off in both models, since a
+    computed cell also changes its element's difficulty features (its count of computed
+    cells, its distance to the level's elements), which is not conditioning.
     """
+    demo = copy.copy(demo)
+    demo.calibration_ = copy.copy(demo.calibration_)
+    demo.calibration_.difficulty_ = {}
     picks = pick_next(demo, count=6, method="hyb")
     computed = computed_keys(demo)
     chosen = None
