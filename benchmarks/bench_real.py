@@ -67,11 +67,11 @@ def hold_out_splits(table, repeats):
     return splits
 
 
-def run_split(table, split, hidden, learner):
+def run_split(table, split, hidden, learner, n_folds=5):
     """Fit without the held-out elements, fill them and score against the published values."""
     training = table[~table["element"].isin(hidden)].reset_index(drop=True)
     start = time.perf_counter()
-    model = Surrogate(learner=learner, random_state=split).fit(training)
+    model = Surrogate(learner=learner, n_folds=n_folds, random_state=split).fit(training)
     seconds = time.perf_counter() - start
     filled = fill_table(model, element_symbols=hidden)
     # only the cells the published table holds can be scored
@@ -107,6 +107,7 @@ def main(argv=None):
                         help="times every element is held out (7 splits each; default 2, so 14 splits)")
     parser.add_argument("--tables", default=",".join(TABLES), help="comma-separated: " + ", ".join(TABLES))
     parser.add_argument("--learner", default="auto", help="learner passed to Surrogate (default auto, as fit)")
+    parser.add_argument("--folds", type=int, default=5, help="cross-validation folds of each fit (default 5, as fit)")
     arguments = parser.parse_args(argv)
     if not REAL.is_dir():
         print(f"skipped: the folder of real tables {REAL} is absent (it sits beside the project, never in it)")
@@ -126,7 +127,7 @@ def main(argv=None):
         print("  split  n    MAE    RMSE   cover  half-w  claimed  claim/real  stated/real  learner  fit s  held out")
         results = []
         for split, hidden in enumerate(hold_out_splits(table, arguments.repeats)):
-            row = run_split(table, split, hidden, arguments.learner)
+            row = run_split(table, split, hidden, arguments.learner, arguments.folds)
             results.append(row)
             ratio = row["claimed"] / row["mae"]
             print(f"  {split:>5}  {row['n']:<4} {row['mae']:.3f}  {row['rmse']:.3f}  {row['coverage']:.2f}   "

@@ -370,12 +370,21 @@ def _cautions(surrogate, flags, extrapolated, level, outside=None):
             f'<li class="extrapolated"><b>{_text(symbol)}</b>: outside the training data '
             f"({_text(reason)}): its estimates are extrapolations, whatever their interval says.</li>"
         )
-    for row in (outside if outside is not None else pd.DataFrame()).itertuples(index=False):
-        items.append(
-            f'<li class="extrapolated"><b>{_text(row.element)}</b> at {_text(row.method)} '
-            f"({_text(row.quantity)}, {row.n_cells} cells): outside what was computed at that level "
-            f"({_text(row.reason)}); those estimates extrapolate.</li>"
-        )
+    if outside is not None and len(outside):
+        for method, part in outside.groupby("method", sort=False):
+            per_element = part.groupby("element", sort=False).agg(
+                n_cells=("n_cells", "sum"), nearest=("nearest", "first")
+            )
+            names = ", ".join(
+                f"<b>{_text(element)}</b>" + (f" (nearest: {_text(row.nearest)})" if row.nearest else "")
+                for element, row in per_element.iterrows()
+            )
+            items.append(
+                f'<li class="extrapolated">At {_text(method)}, {len(per_element)} elements lie outside what '
+                f"was computed at that level ({per_element['n_cells'].sum()} cells; the nearest element "
+                f"computed there in brackets): {names}. Their estimates at that level extrapolate the "
+                f"step between levels; computing one of them is the way to check.</li>"
+            )
     for scenario in SCENARIOS:
         n_residuals = surrogate.calibration_.n_residuals(scenario)
         if n_residuals < 20:

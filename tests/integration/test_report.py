@@ -22,6 +22,7 @@ from threadpoolctl import threadpool_limits
 
 from dopantgap import report
 from dopantgap.cli import main
+from dopantgap.fill import fill_table, outside_levels, unfamiliar_elements
 from dopantgap.store import load_model
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -213,3 +214,18 @@ def test_report_marks_an_element_outside_the_training_data(tmp_path):
     assert '<li class="extrapolated"><b>Nd</b>: outside the training data' in page
     nd_rows = re.findall(r'<tr class="flagged[^"]*"><td>Nd</td>.*?</tr>', page)
     assert nd_rows and all("outside the training data" in row for row in nd_rows)
+
+
+def test_report_lists_elements_outside_their_level_once_per_level(built):
+    """Elements unlike every element computed at the expensive level (fill.outside_levels)
+    are listed in one caution per level, and their rows there carry the level's note."""
+    surrogate, _manifest = load_model(MODEL)
+    outside = outside_levels(surrogate, fill_table(surrogate, element_symbols=("Tc",)),
+                             skip=unfamiliar_elements(surrogate, ("Tc",)))
+    page = built["html"]
+    assert len(outside), "the demo table has elements outside its hybrid level's domain"
+    for method, part in outside.groupby("method"):
+        assert page.count(f'<li class="extrapolated">At {method}, ') == 1
+        for element in part["element"].unique():
+            assert f"<b>{element}</b> (nearest: " in page
+    assert "outside the domain of its level" in page
