@@ -11,17 +11,17 @@ import pandas as pd
 import pytest
 
 from dopantgap import elements
-from dopantgap import explain as explain_module
 from dopantgap.cli import main
 from dopantgap.explain import (
     OFFSET_FEATURE,
-    _ColumnEncoding,
     descriptor_matrix,
     explain_model,
     explanation_features,
     shapley_values,
     write_explanation,
 )
+from dopantgap.explain import explanation as explanation_module
+from dopantgap.explain.descriptors import _ColumnEncoding
 from dopantgap.store import load_model, save_model
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import invent_world, observe
@@ -140,7 +140,7 @@ def test_tree_explainer_agrees_with_exact_enumeration(boost_model, monkeypatch):
     names = ["E_sol | ZnS | int_tet_Zn | hyb", "E_sol | ZnS | gga | int_hex - sub_Zn", "E_bind | ZnS | sub_Zn | gga"]
     by_tree = explain_model(boost_model, element_symbols=["Nb"], targets=names)
     assert by_tree.shap_method == "tree"
-    monkeypatch.setattr(explain_module, "_tree_ensembles", lambda function, n_features: None)
+    monkeypatch.setattr(explanation_module, "_tree_ensembles", lambda function, n_features: None)
     by_enumeration = explain_model(boost_model, element_symbols=["Nb"], targets=names)
     assert by_enumeration.shap_method == "exact enumeration"
     assert by_tree.background == by_enumeration.background
