@@ -53,6 +53,9 @@ from dopantgap.world import (
     observe,
 )
 
+# the sibling benchmark's table printer (the script's folder is on sys.path when run)
+from bench_validate import print_block
+
 LEVELS = ["gga", "hyb"]
 INTERVAL_LEVEL = 0.9
 N_ABSENT = 6
@@ -173,15 +176,6 @@ def run_strangers(world_name, seed):
     frame["covered"] = covered(frame)
     frame["rule"] = level_shift_baseline(observed, frame[list(KEY_COLUMNS)], LEVELS)
     return frame
-
-
-def print_block(title, headers, rows):
-    """Print rows under headers in aligned columns."""
-    widths = [max([len(h)] + [len(str(r[i])) for r in rows]) for i, h in enumerate(headers)]
-    print(f"\n{title}")
-    print("  " + "  ".join(h.rjust(w) for h, w in zip(headers, widths)))
-    for row in rows:
-        print("  " + "  ".join(str(c).rjust(w) for c, w in zip(row, widths)))
 
 
 def mae(frame, column, against):
