@@ -15,7 +15,7 @@ import numpy as np
 from dopantgap.atomic import write_text_atomic
 from dopantgap.elements import element_flags
 from dopantgap.explain import explain_model, write_explanation
-from dopantgap.fill import fill_table
+from dopantgap.fill import fill_table, outside_levels
 from dopantgap.picker import pick_next
 from dopantgap.report import build_report
 from dopantgap.sites import site_preference
@@ -112,6 +112,11 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     for symbol in picked:
         if flags.at[symbol, "note"]:
             report(f"  caution: {symbol}: {flags.at[symbol, 'note']}")
+    unlike = outside_levels(surrogate, picks)
+    if len(unlike):
+        names = ", ".join(dict.fromkeys(unlike["element"]))
+        report(f"  note: {names} lie outside what was computed at hyb: their hyb estimates extrapolate, "
+               f"which is why computing one is worth it.")
     explanation = explain_model(surrogate, random_state=0)
     write_explanation(explanation, explain_dir)
     site_choice = explanation.importance[
