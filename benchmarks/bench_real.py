@@ -109,6 +109,8 @@ def main(argv=None):
     parser.add_argument("--learner", default="auto", help="learner passed to Surrogate (default auto, as fit)")
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds of each fit (default 5, as fit)")
     arguments = parser.parse_args(argv)
+    if arguments.repeats < 1 or arguments.folds < 2:
+        parser.error("--repeats must be at least 1 and --folds at least 2")
     if not REAL.is_dir():
         print(f"skipped: the folder of real tables {REAL} is absent (it sits beside the project, never in it)")
         return 0

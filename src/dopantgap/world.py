@@ -91,6 +91,15 @@ DEMO_ELEMENTS = tuple(
 )
 
 
+def _reference_values(site, composition, names):
+    """Descriptors of the host atom(s) a site names (``elements.reference_atoms``),
+    weighted by their share, one float per name."""
+    reference = elements.reference_atoms(site, composition)
+    reference_table = elements.descriptor_table(list(reference))
+    weights = np.array(list(reference.values()))
+    return tuple(float(weights @ reference_table[name].to_numpy()) for name in names)
+
+
 def _site_energy(site, rho, chi, d_chi, d_v, valence):
     if site.startswith("sub"):
         return 1.0 + 5.0 * (rho - 1.0) ** 2 + 0.6 * np.abs(d_chi) + 0.25 * np.abs(d_v)
@@ -147,12 +156,9 @@ def invent_world(
         if host in _BINDING_SITES:
             plan.append((_BINDING_SITES[host], "E_bind"))
         for site, quantity in plan:
-            reference = elements.reference_atoms(site, compositions[host])
-            reference_table = elements.descriptor_table(list(reference))
-            weights = np.array(list(reference.values()))
-            r0 = float(weights @ reference_table["covalent_radius"].to_numpy())
-            chi0 = float(weights @ reference_table["electronegativity_pauling"].to_numpy())
-            v0 = float(weights @ reference_table["valence_electrons"].to_numpy())
+            r0, chi0, v0 = _reference_values(
+                site, compositions[host], ("covalent_radius", "electronegativity_pauling", "valence_electrons")
+            )
             for symbol in symbols:
                 r = table.at[symbol, "covalent_radius"]
                 chi = table.at[symbol, "electronegativity_pauling"]
@@ -306,13 +312,10 @@ def invent_second_world(
             plan.append((_SECOND_BINDING_SITES[host], "E_bind"))
         for site, quantity in plan:
             kind = _second_site_kind(site, compositions[host])
-            reference = elements.reference_atoms(site, compositions[host])
-            reference_table = elements.descriptor_table(list(reference))
-            weights = np.array(list(reference.values()))
-            r0 = float(weights @ reference_table["covalent_radius"].to_numpy())
-            chi0 = float(weights @ reference_table["electronegativity_pauling"].to_numpy())
-            ionisation0 = float(weights @ reference_table["ionisation_energy_1"].to_numpy())
-            v0 = float(weights @ reference_table["valence_electrons"].to_numpy())
+            r0, chi0, ionisation0, v0 = _reference_values(
+                site, compositions[host],
+                ("covalent_radius", "electronegativity_pauling", "ionisation_energy_1", "valence_electrons"),
+            )
             s, d_chi = np.log(radius / r0), chi - chi0
             d_ionisation, d_v = ionisation - ionisation0, valence - v0
             if quantity == "E_sol":
