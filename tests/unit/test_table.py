@@ -58,9 +58,16 @@ def raises_at(path, line, fragment, **options):
 def test_module_constants_match_the_contract():
     assert KEY_COLUMNS == ("element", "host", "site", "method", "quantity")
     assert REQUIRED_COLUMNS == KEY_COLUMNS + ("value",)
-    assert RESERVED_COLUMNS == ("std", "lo", "hi", "status", "scenario")
+    assert set(RESERVED_COLUMNS) >= {"std", "lo", "hi", "status", "scenario"}
     assert MAX_ABS_VALUE == 1000.0
     assert WIDE_SEPARATOR == "/"
+
+
+def test_every_column_fill_adds_is_reserved():
+    """A user column named like an output column would collide with it in ``fill``."""
+    from dopantgap.fill import FILLED_COLUMNS
+
+    assert set(FILLED_COLUMNS) - set(REQUIRED_COLUMNS) == set(RESERVED_COLUMNS)
 
 
 def test_long_table_columns_types_and_lines(tmp_path):
