@@ -1,6 +1,6 @@
 """Exceptions that reach the user as one clear line instead of a traceback."""
 
-__all__ = ["DopantgapError", "TableError", "ModelFolderError"]
+__all__ = ["DopantgapError", "TableError", "ModelFolderError", "ModelVersionWarning", "SuspectValueWarning"]
 
 
 class DopantgapError(Exception):
@@ -26,3 +26,11 @@ class TableError(DopantgapError, ValueError):
 
 class ModelFolderError(DopantgapError):
     """A model folder that is missing, incomplete, altered or from elsewhere."""
+
+
+class ModelVersionWarning(UserWarning):
+    """A model folder made with other package versions, loaded all the same."""
+
+
+class SuspectValueWarning(UserWarning):
+    """Values that a unit slip or a flipped sign would explain, kept because the user chose to."""

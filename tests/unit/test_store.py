@@ -19,7 +19,14 @@ import dopantgap
 from dopantgap import elements
 from dopantgap.errors import ModelFolderError
 from dopantgap.features import DEFAULT_DESCRIPTORS
-from dopantgap.store import MANIFEST_NAME, MODEL_FILE_NAME, load_model, read_manifest, save_model
+from dopantgap.store import (
+    DESCRIPTORS_FILE_NAME,
+    MANIFEST_NAME,
+    MODEL_FILE_NAME,
+    load_model,
+    read_manifest,
+    save_model,
+)
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import table_hash
 from dopantgap.world import invent_world, observe
@@ -105,10 +112,10 @@ def test_manifest_records_what_made_the_model(surrogate, saved, table):
     assert manifest["table"]["elements"] == len(SYMBOLS) - 1
     assert manifest["table"]["source"] == "invented.csv"
 
-    # file hash and size checked with hashlib on the bytes on disk
-    data = (folder / MODEL_FILE_NAME).read_bytes()
+    # file hashes and sizes checked with hashlib on the bytes on disk
+    on_disk = {name: (folder / name).read_bytes() for name in (MODEL_FILE_NAME, DESCRIPTORS_FILE_NAME)}
     assert manifest["files"] == {
-        MODEL_FILE_NAME: {"sha256": hashlib.sha256(data).hexdigest(), "bytes": len(data)}
+        name: {"sha256": hashlib.sha256(data).hexdigest(), "bytes": len(data)} for name, data in on_disk.items()
     }
 
     versions = manifest["versions"]
@@ -231,12 +238,16 @@ def test_same_seed_and_table_give_the_same_model(surrogate, saved, table, world,
     pd.testing.assert_frame_equal(loaded.predict(cells), surrogate.predict(cells), check_exact=True)
 
 
-def test_save_leaves_only_the_two_files(saved):
-    assert sorted(path.name for path in saved[0].iterdir()) == sorted([MANIFEST_NAME, MODEL_FILE_NAME])
+def test_save_leaves_only_the_folder_files(saved):
+    assert sorted(path.name for path in saved[0].iterdir()) == sorted(
+        [MANIFEST_NAME, MODEL_FILE_NAME, DESCRIPTORS_FILE_NAME]
+    )
+    # nothing beside the folder either (the folder is written beside it and swapped in)
+    assert [path.name for path in saved[0].parent.iterdir()] == [saved[0].name]
 
 
 def test_interrupted_save_keeps_the_previous_model(copy_of_saved, surrogate, monkeypatch):
-    before = {name: (copy_of_saved / name).read_bytes() for name in (MANIFEST_NAME, MODEL_FILE_NAME)}
+    before = {path.name: path.read_bytes() for path in copy_of_saved.iterdir()}
     real_write_bytes = pathlib.Path.write_bytes
 
     def disk_full(self, data):
@@ -247,8 +258,9 @@ def test_interrupted_save_keeps_the_previous_model(copy_of_saved, surrogate, mon
     with pytest.raises(OSError, match="No space left"):
         save_model(surrogate, copy_of_saved)
     monkeypatch.undo()
-    # no half-written file under either name, no temporary left behind
+    # no half-written file under any name, no temporary left behind
     assert sorted(path.name for path in copy_of_saved.iterdir()) == sorted(before)
+    assert [path.name for path in copy_of_saved.parent.iterdir()] == [copy_of_saved.name]
     for name, data in before.items():
         assert (copy_of_saved / name).read_bytes() == data
     load_model(copy_of_saved)
@@ -259,7 +271,7 @@ def test_interrupted_first_save_leaves_no_loadable_folder(surrogate, tmp_path, m
     real_write_bytes = pathlib.Path.write_bytes
 
     def fail_on_manifest(self, data):
-        if self.name.startswith("." + MANIFEST_NAME):
+        if self.name == MANIFEST_NAME:
             raise OSError(5, "Input/output error")
         return real_write_bytes(self, data)
 
@@ -267,5 +279,6 @@ def test_interrupted_first_save_leaves_no_loadable_folder(surrogate, tmp_path, m
     with pytest.raises(OSError):
         save_model(surrogate, folder)
     monkeypatch.undo()
-    assert [path.name for path in folder.iterdir()] == [MODEL_FILE_NAME]
-    _assert_refused(folder, folder / MANIFEST_NAME, "missing")
+    # the folder is swapped in whole or not at all, and nothing is left beside it
+    assert list(tmp_path.iterdir()) == []
+    _assert_refused(folder, folder, "no such model folder")

@@ -1,4 +1,4 @@
-"""Elemental descriptors, element flags and host-relative descriptors.
+"""Elemental descriptors: every number dopantgap knows about each chemical element.
 
 Every model input of dopantgap starts from numbers that describe the chemical
 elements. They are read from the SQLite file that the ``mendeleev`` package
@@ -64,45 +64,33 @@ source):
   without a group, get group 3, the column of La and Ac in the 18-column
   table (common practice, no source).
 
-Hosts
------
-:func:`parse_formula` turns host labels such as ``"GaN"`` or ``"Al2O3"`` into
-compositions, :func:`read_host_file` reads a CSV that maps other labels (such
-as ``diamond``) to formulas, :func:`reference_atoms` decides which host atoms
-an impurity at a given site is compared with, and :func:`host_relative_table`
-turns elemental descriptors into impurity-minus-reference terms.
+A model keeps the table it was fitted with (``Surrogate.descriptor_values_``, stored
+in its model folder as ``descriptors.csv``): :func:`descriptor_table` takes its rows
+from such a table when one is passed as ``values``, so a model predicts with the
+numbers it learned from whatever mendeleev is installed later.
 """
 
-import csv
 import functools
 import importlib.util
 import re
 import sqlite3
 from dataclasses import dataclass
-from numbers import Real
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from dopantgap.errors import DopantgapError, TableError
-from dopantgap.symbols import SYMBOLS, atomic_number, normalise_symbol
+from dopantgap.errors import DopantgapError
+from dopantgap.symbols import SYMBOLS, normalise_symbol
 
 __all__ = [
+    "BLOCK_INDEX",
     "DESCRIPTORS",
     "DESCRIPTOR_NAMES",
-    "HOST_RELATIVE_DESCRIPTORS",
-    "HOST_RELATIVE_NAMES",
-    "TOXIC_ELEMENTS",
     "Descriptor",
+    "check_descriptor_values",
     "descriptor_table",
-    "element_flags",
-    "host_compositions",
-    "host_relative_table",
     "imputed_mask",
-    "parse_formula",
-    "read_host_file",
-    "reference_atoms",
 ]
 
 
@@ -294,7 +282,8 @@ _ELEMENT_COLUMNS = {
     "miedema_molar_volume": "miedema_molar_volume",
 }
 _IONISATION_CHARGES = {"ionisation_energy_1": 0, "ionisation_energy_2": 1}
-_BLOCK_INDEX = {"s": 0, "p": 1, "d": 2, "f": 3}
+#: Periodic-table block -> the ``block_index`` descriptor.
+BLOCK_INDEX = {"s": 0, "p": 1, "d": 2, "f": 3}
 _F_BLOCK_GROUP = 3
 
 # Electrons in the noble-gas cores written in brackets in the configurations.
@@ -454,7 +443,7 @@ def _full_tables():
             energies["ionization_energy"].reindex(elements["atomic_number"])
             .to_numpy(dtype=float)
         )
-    source["block_index"] = elements["block"].map(_BLOCK_INDEX).to_numpy(dtype=float)
+    source["block_index"] = elements["block"].map(BLOCK_INDEX).to_numpy(dtype=float)
     group_for_valence = np.where(np.isnan(source["group"]), _F_BLOCK_GROUP, source["group"])
     counts = np.array([
         _valence_counts(configuration, int(row_period), block, int(group))
@@ -509,13 +498,17 @@ def _canonical_symbols(symbols, what="element"):
     return canonical
 
 
-def descriptor_table(symbols=None):
+def descriptor_table(symbols=None, values=None):
     """Elemental descriptors, one row per element, without missing values.
 
     Parameters
     ----------
     symbols : sequence of str, optional
         Element symbols in any letter case; all 118 elements in order if None.
+    values : DataFrame, optional
+        A full table to take the rows from (``descriptor_table()`` as some earlier
+        installation gave it, e.g. a model's ``descriptor_values_``); None: the
+        installed mendeleev's numbers.
 
     Returns
     -------
@@ -534,8 +527,47 @@ def descriptor_table(symbols=None):
     >>> float(descriptor_table(["ga", "N"]).loc["Ga", "covalent_radius"])
     122.0
     """
-    table = _full_tables()[0]
+    table = _full_tables()[0] if values is None else values
     return table.loc[_canonical_symbols(symbols)].copy()
+
+
+def check_descriptor_values(values, where):
+    """A full descriptor table from elsewhere, checked for shape and numbers.
+
+    Parameters
+    ----------
+    values : DataFrame
+        Should be as ``descriptor_table()`` returns it: the 118 element symbols in
+        order as index, at least :data:`DESCRIPTOR_NAMES` as columns, finite floats.
+    where : str
+        Where the table came from (a file name), for the message.
+
+    Returns
+    -------
+    DataFrame
+        Index and columns as ``descriptor_table()``'s, dtype float64.
+
+    Raises
+    ------
+    DopantgapError
+        Naming ``where`` and the first problem found.
+    """
+    if not isinstance(values, pd.DataFrame):
+        raise DopantgapError(f"{where}: not a table of element descriptors")
+    if [str(symbol) for symbol in values.index] != list(SYMBOLS):
+        raise DopantgapError(f"{where}: does not list the 118 elements in order, one row each")
+    missing = [name for name in DESCRIPTOR_NAMES if name not in values.columns]
+    if missing:
+        raise DopantgapError(f"{where}: lacks the descriptor column(s) {', '.join(missing)}")
+    try:
+        numbers = values[list(DESCRIPTOR_NAMES)].to_numpy(dtype=float)
+    except (TypeError, ValueError):
+        raise DopantgapError(f"{where}: holds a value that is not a number") from None
+    if not np.isfinite(numbers).all():
+        raise DopantgapError(f"{where}: holds a missing or infinite value")
+    return pd.DataFrame(
+        numbers, index=pd.Index(SYMBOLS, name="element"), columns=list(DESCRIPTOR_NAMES)
+    )
 
 
 def imputed_mask(symbols=None):
@@ -559,459 +591,3 @@ def imputed_mask(symbols=None):
     """
     mask = _full_tables()[1]
     return mask.loc[_canonical_symbols(symbols)].copy()
-
-
-# Elements flagged as toxic, with the reason shown in element_flags' note.
-# IARC Group 1 entries are from the IARC Monographs list of agents classified
-# as carcinogenic to humans (value from memory); the others are marked.
-TOXIC_ELEMENTS = {
-    "As": "IARC Group 1: arsenic and inorganic arsenic compounds",
-    "Be": "IARC Group 1: beryllium and beryllium compounds",
-    "Cd": "IARC Group 1: cadmium and cadmium compounds",
-    "Cr": "IARC Group 1: chromium(VI) compounds",
-    "Ni": "IARC Group 1: nickel compounds",
-    "Pb": "IARC Group 2A: inorganic lead compounds; acute poison",
-    "Hg": "acute poison (common practice, no source)",
-    "Tl": "acute poison (common practice, no source)",
-}
-
-
-def element_flags(symbols=None):
-    """Safety flags of elements: radioactive, toxic and a short note.
-
-    Parameters
-    ----------
-    symbols : sequence of str, optional
-        Element symbols; all 118 elements if None.
-
-    Returns
-    -------
-    pandas.DataFrame
-        Index: canonical symbols; columns ``radioactive`` (bool: no stable
-        isotope, from mendeleev's ``is_radioactive``; Bi counts as stable, as
-        in mendeleev, since Bi-209 lives about 2e19 years), ``toxic`` (bool:
-        listed in :data:`TOXIC_ELEMENTS`) and ``note`` (str, empty if neither).
-
-    Raises
-    ------
-    DopantgapError
-        If a symbol is not a chemical element.
-    """
-    canonical = _canonical_symbols(symbols)
-    radioactive_all = _full_tables()[2]
-    radioactive = [bool(radioactive_all[atomic_number(symbol) - 1]) for symbol in canonical]
-    toxic = [symbol in TOXIC_ELEMENTS for symbol in canonical]
-    notes = []
-    for symbol, is_radioactive in zip(canonical, radioactive):
-        parts = []
-        if is_radioactive:
-            parts.append("radioactive: no stable isotope")
-        if symbol in TOXIC_ELEMENTS:
-            parts.append(f"toxic: {TOXIC_ELEMENTS[symbol]}")
-        notes.append("; ".join(parts))
-    return pd.DataFrame(
-        {
-            "radioactive": np.array(radioactive, dtype=bool),
-            "toxic": np.array(toxic, dtype=bool),
-            "note": pd.Series(notes, dtype=object).to_numpy(),
-        },
-        index=pd.Index(canonical, name="element"),
-    )
-
-
-# ---------------------------------------------------------------------------
-# Hosts
-
-_FORMULA_TOKEN = re.compile(r"([A-Z][a-z]*)|(\()|(\))|(\d+(?:\.\d+)?|\.\d+)")
-
-
-def _not_a_formula(text, reason):
-    return DopantgapError(
-        f"host {text!r} is not a chemical formula ({reason}); name the host by its formula "
-        "(for example 'GaN', 'Al2O3', or 'C' for diamond) or map the label to a formula in "
-        "a host file (CSV with columns host,formula)"
-    )
-
-
-def parse_formula(text):
-    """Composition of a chemical formula such as ``"SnO2"`` or ``"Ca(OH)2"``.
-
-    Parameters
-    ----------
-    text : str
-        Formula: element symbols with their usual capitalisation, optional
-        counts (integers or decimals such as ``Fe0.95O``) and parentheses
-        with a count. Surrounding blanks are ignored.
-
-    Returns
-    -------
-    dict of str to float
-        Element -> number of atoms per formula unit, in order of first
-        appearance; repeated elements are summed.
-
-    Raises
-    ------
-    DopantgapError
-        If ``text`` is not a formula (e.g. ``"diamond"``); the message says
-        to use the formula or a host file.
-
-    Examples
-    --------
-    >>> parse_formula("Al2O3")
-    {'Al': 2.0, 'O': 3.0}
-    """
-    if not isinstance(text, str) or not text.strip():
-        raise _not_a_formula(text, "it is empty")
-    formula = text.strip()
-    # Each stack level holds the counts of one pair of parentheses.
-    stack = [{}]
-    last_group = None
-    position = 0
-    while position < len(formula):
-        match = _FORMULA_TOKEN.match(formula, position)
-        if match is None:
-            raise _not_a_formula(
-                text, f"unexpected {formula[position]!r} at character {position + 1}"
-            )
-        symbol_text, opening, closing, count_text = match.groups()
-        if symbol_text is not None:
-            if normalise_symbol(symbol_text) != symbol_text:
-                raise _not_a_formula(text, f"{symbol_text!r} is not an element symbol")
-            last_group = {symbol_text: 1.0}
-            _add_counts(stack[-1], last_group)
-        elif opening is not None:
-            stack.append({})
-            last_group = None
-        elif closing is not None:
-            if len(stack) == 1:
-                raise _not_a_formula(text, f"unmatched ')' at character {position + 1}")
-            inner = stack.pop()
-            if not inner:
-                raise _not_a_formula(text, f"empty parentheses at character {position + 1}")
-            last_group = inner
-            _add_counts(stack[-1], inner)
-        else:
-            count = float(count_text)
-            if last_group is None:
-                raise _not_a_formula(
-                    text, f"count {count_text!r} at character {position + 1} follows no "
-                    "element or group"
-                )
-            if count <= 0:
-                raise _not_a_formula(text, f"count {count_text!r} is not positive")
-            # The group was already added once; add the remaining (count - 1) times.
-            _add_counts(stack[-1], {key: value * (count - 1) for key, value in
-                                    last_group.items()})
-            last_group = None
-        position = match.end()
-    if len(stack) != 1:
-        raise _not_a_formula(text, "a '(' is never closed")
-    return stack[0]
-
-
-def _add_counts(target, addition):
-    for symbol, count in addition.items():
-        target[symbol] = target.get(symbol, 0.0) + count
-
-
-def read_host_file(path):
-    """Read a CSV that maps host labels to formulas.
-
-    Parameters
-    ----------
-    path : str or Path
-        CSV file with a header row containing the columns ``host`` and
-        ``formula`` (other columns are ignored), e.g. a row ``diamond,C``.
-        Blank lines and lines starting with ``#`` are skipped.
-
-    Returns
-    -------
-    dict of str to dict of str to float
-        Host label (blanks stripped) -> composition from :func:`parse_formula`.
-
-    Raises
-    ------
-    TableError
-        If the file cannot be read, lacks a column, has an empty cell, a
-        formula that does not parse, or a label given twice with different
-        formulas; the message names the file and line.
-    """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise TableError("host file not found; check the path", path=path) from None
-    except (OSError, UnicodeDecodeError) as error:
-        raise TableError(
-            f"cannot read the host file ({error}); save it as UTF-8 CSV", path=path
-        ) from None
-    lines = [
-        (number, line) for number, line in enumerate(text.splitlines(), start=1)
-        if line.strip() and not line.lstrip().startswith("#")
-    ]
-    if not lines:
-        raise TableError("host file is empty; give a header 'host,formula' and rows",
-                         path=path)
-    rows = list(csv.reader(line for _, line in lines))
-    header_line = lines[0][0]
-    header = [cell.strip().lower() for cell in rows[0]]
-    for needed in ("host", "formula"):
-        if needed not in header:
-            raise TableError(
-                f"header has no column {needed!r}; the first row must be 'host,formula'",
-                path=path, line=header_line,
-            )
-    host_column, formula_column = header.index("host"), header.index("formula")
-    mapping = {}
-    formulas = {}
-    for (line_number, _), cells in zip(lines[1:], rows[1:]):
-        if len(cells) <= max(host_column, formula_column):
-            raise TableError(
-                f"expected {len(header)} columns, found {len(cells)}; give 'host,formula'",
-                path=path, line=line_number,
-            )
-        label = cells[host_column].strip()
-        formula = cells[formula_column].strip()
-        if not label or not formula:
-            raise TableError("empty host or formula cell; fill both", path=path,
-                             line=line_number)
-        try:
-            composition = parse_formula(formula)
-        except DopantgapError as error:
-            raise TableError(f"formula of host {label!r}: {error}", path=path,
-                             line=line_number) from None
-        if label in mapping and formulas[label] != formula:
-            raise TableError(
-                f"host {label!r} is given twice with different formulas "
-                f"({formulas[label]!r} and {formula!r}); keep one",
-                path=path, line=line_number,
-            )
-        mapping[label] = composition
-        formulas[label] = formula
-    return mapping
-
-
-def host_compositions(host_labels, host_file_map=None):
-    """Composition of every host label.
-
-    Parameters
-    ----------
-    host_labels : iterable of str
-        Host labels as they appear in the user's table.
-    host_file_map : dict or str or Path, optional
-        Label -> composition as returned by :func:`read_host_file`, or the
-        path of such a file. Labels found there win; the others must be
-        formulas.
-
-    Returns
-    -------
-    dict of str to dict of str to float
-        Label -> composition (fresh dicts), in order of first appearance.
-
-    Raises
-    ------
-    DopantgapError
-        If a label is neither in the host file nor a formula.
-    """
-    if isinstance(host_file_map, (str, Path)):
-        host_file_map = read_host_file(host_file_map)
-    mapping = {str(label).strip(): composition
-               for label, composition in (host_file_map or {}).items()}
-    compositions = {}
-    for label in host_labels:
-        if label in compositions:
-            continue
-        key = str(label).strip()
-        if key in mapping:
-            compositions[label] = dict(mapping[key])
-            continue
-        try:
-            compositions[label] = parse_formula(key)
-        except DopantgapError as error:
-            if host_file_map:
-                raise DopantgapError(
-                    f"{error}; the host file given does not list {key!r} either"
-                ) from None
-            raise
-    return compositions
-
-
-_SITE_SEPARATORS = re.compile(r"[_\-:()@ ]+")
-# Lower-case words that are also element symbols when capitalised; in a site
-# label they are far more likely English ("int in channel") than In, As ...
-_LOWERCASE_WORDS = frozenset({"in", "as", "at", "be", "he", "no", "am"})
-
-
-def reference_atoms(site, composition):
-    """Host atoms that an impurity at ``site`` is compared with, as weights.
-
-    Rule: the site label is split at ``_ - : ( ) @`` and blanks, and trailing
-    digits are removed from each piece (``Zn1`` -> ``Zn``). Pieces that are
-    exactly (same letter case) a symbol of the host composition name the
-    reference atoms. If none is, two-letter pieces are compared ignoring case
-    (``sub_ga`` -> Ga), except the lower-case English words ``in as at be he
-    no am``. One named atom gets weight 1; several named atoms (a bond centre
-    ``bc_Ga_N``) share equal weights. Pieces naming elements absent from the
-    host (``V`` for vacancy, the impurity itself in ``Mg_Ga``) are ignored.
-    With no named atom (``int_oct``, or no site) the weights are the host
-    composition's atom fractions, so an elemental host gives its one atom.
-
-    Parameters
-    ----------
-    site : str or None
-        Site label, e.g. ``"sub_Ga"``, ``"Zn_sub"``, ``"int_tet_S"``.
-    composition : dict of str to float
-        Host composition, e.g. ``{"Ga": 1.0, "N": 1.0}``.
-
-    Returns
-    -------
-    dict of str to float
-        Host element -> weight; the weights sum to 1.
-
-    Raises
-    ------
-    DopantgapError
-        If the composition is empty or has non-positive counts.
-
-    Examples
-    --------
-    >>> reference_atoms("sub_Ga", {"Ga": 1.0, "N": 1.0})
-    {'Ga': 1.0}
-    >>> reference_atoms("int_tet", {"Zn": 1.0, "S": 1.0})
-    {'Zn': 0.5, 'S': 0.5}
-    """
-    if not composition or any(
-        isinstance(count, bool) or not isinstance(count, Real) or not count > 0
-        for count in composition.values()
-    ):
-        raise DopantgapError(
-            f"host composition {composition!r} is empty or has a non-positive count; "
-            "give element counts such as {'Ga': 1, 'N': 1}"
-        )
-    pieces = []
-    if isinstance(site, str):
-        pieces = [piece.rstrip("0123456789") for piece in _SITE_SEPARATORS.split(site)]
-        pieces = [piece for piece in pieces if piece]
-    named = []
-    for piece in pieces:
-        if piece in composition and piece not in named:
-            named.append(piece)
-    if not named:
-        by_lower = {symbol.lower(): symbol for symbol in composition if len(symbol) == 2}
-        for piece in pieces:
-            if len(piece) != 2 or piece in _LOWERCASE_WORDS:
-                continue
-            symbol = by_lower.get(piece.lower())
-            if symbol is not None and symbol not in named:
-                named.append(symbol)
-    if named:
-        return {symbol: 1.0 / len(named) for symbol in named}
-    total = float(sum(composition.values()))
-    return {symbol: float(count) / total for symbol, count in composition.items()}
-
-
-HOST_RELATIVE_DESCRIPTORS = (
-    Descriptor(
-        "size_misfit", "", "derived: covalent_radius",
-        "(r_impurity - r_reference) / r_reference with covalent radii; r_reference is the "
-        "weighted mean over the reference atoms",
-        "inherits the imputation of covalent_radius",
-    ),
-    Descriptor(
-        "electronegativity_difference", "", "derived: electronegativity_pauling",
-        "chi_impurity - chi_reference (Pauling scale)",
-        "inherits the imputation of electronegativity_pauling",
-    ),
-    Descriptor(
-        "valence_difference", "", "derived: valence_electrons",
-        "valence_electrons of the impurity minus that of the reference (> 0: donor-like)",
-        "none needed: valence counts are never missing",
-    ),
-    Descriptor(
-        "ionisation_energy_difference", "eV", "derived: ionisation_energy_1",
-        "first ionisation energy of the impurity minus that of the reference; how much "
-        "more tightly the impurity holds its outer electron",
-        "inherits the imputation of ionisation_energy_1",
-    ),
-    Descriptor(
-        "electron_affinity_difference", "eV", "derived: electron_affinity",
-        "electron affinity of the impurity minus that of the reference; how much more "
-        "readily the impurity takes an extra electron",
-        "inherits the imputation of electron_affinity",
-    ),
-)
-HOST_RELATIVE_NAMES = tuple(descriptor.name for descriptor in HOST_RELATIVE_DESCRIPTORS)
-_HOST_RELATIVE_SOURCES = {
-    "electronegativity_difference": "electronegativity_pauling",
-    "valence_difference": "valence_electrons",
-    "ionisation_energy_difference": "ionisation_energy_1",
-    "electron_affinity_difference": "electron_affinity",
-}
-
-
-def host_relative_table(elements, hosts, sites, compositions):
-    """Impurity-minus-reference descriptors, one row per (element, host, site) cell.
-
-    Parameters
-    ----------
-    elements, hosts, sites : sequences of equal length
-        Impurity element symbol, host label and site label of each cell.
-        A site may be None or NaN (no site: the host's atom fractions).
-    compositions : dict
-        Host label -> composition, e.g. from :func:`host_compositions`.
-
-    Returns
-    -------
-    pandas.DataFrame
-        Columns :data:`HOST_RELATIVE_NAMES`, float64, one row per cell in the
-        order given (index 0 .. n-1). The reference of each cell is given by
-        :func:`reference_atoms`.
-
-    Raises
-    ------
-    DopantgapError
-        If the lengths differ, an element is unknown, a host has no
-        composition, or a host contains an unknown element.
-    """
-    elements, hosts, sites = list(elements), list(hosts), list(sites)
-    if not len(elements) == len(hosts) == len(sites):
-        raise DopantgapError(
-            f"elements, hosts and sites must have the same length "
-            f"({len(elements)}, {len(hosts)}, {len(sites)}); give one of each per cell"
-        )
-    impurities = _canonical_symbols(elements, what="impurity element")
-    table = _full_tables()[0]
-    symbol_position = {symbol: position for position, symbol in enumerate(SYMBOLS)}
-    # Reference weights as a (cells x 118) matrix, computed once per (host, site).
-    weights = np.zeros((len(impurities), len(SYMBOLS)))
-    cache = {}
-    for row, (host, site) in enumerate(zip(hosts, sites)):
-        site_key = site if isinstance(site, str) else None
-        key = (host, site_key)
-        if key not in cache:
-            if host not in compositions:
-                raise DopantgapError(
-                    f"host {host!r} (cell {row + 1}) has no composition; name it by its "
-                    "formula or add it to the host file"
-                )
-            vector = np.zeros(len(SYMBOLS))
-            for symbol, weight in reference_atoms(site_key, compositions[host]).items():
-                if symbol not in symbol_position:
-                    raise DopantgapError(
-                        f"host {host!r} contains {symbol!r}, which is not an element symbol"
-                    )
-                vector[symbol_position[symbol]] += weight
-            cache[key] = vector
-        weights[row] = cache[key]
-    impurity_rows = table.loc[impurities]
-    result = {}
-    radius = table["covalent_radius"].to_numpy()
-    reference_radius = weights @ radius
-    result["size_misfit"] = (
-        impurity_rows["covalent_radius"].to_numpy() - reference_radius
-    ) / reference_radius
-    for name, column in _HOST_RELATIVE_SOURCES.items():
-        result[name] = (
-            impurity_rows[column].to_numpy() - weights @ table[column].to_numpy()
-        )
-    return pd.DataFrame(result, columns=list(HOST_RELATIVE_NAMES), dtype=float)
