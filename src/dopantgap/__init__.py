@@ -18,7 +18,7 @@ __version__ = "0.1.0"
 
 from dopantgap.calibration import SCENARIOS
 from dopantgap.elements import DESCRIPTORS, descriptor_table, element_flags
-from dopantgap.errors import DopantgapError, ModelFolderError, TableError
+from dopantgap.errors import DopantgapError, ModelFolderError, ModelVersionWarning, TableError
 from dopantgap.fill import fill_table
 from dopantgap.picker import pick_next
 from dopantgap.sites import site_preference
@@ -30,6 +30,7 @@ __all__ = [
     "DESCRIPTORS",
     "DopantgapError",
     "ModelFolderError",
+    "ModelVersionWarning",
     "SCENARIOS",
     "Surrogate",
     "TableError",

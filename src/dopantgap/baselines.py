@@ -21,6 +21,7 @@ from sklearn.ensemble import HistGradientBoostingRegressor
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
+from dopantgap.reproducible import learner_seed, seed_integer
 from dopantgap.symbols import atomic_number, normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
@@ -40,7 +41,8 @@ _COLUMN_KEYS = ("host", "site", "method", "quantity")
 # Ever coarser groupings for the column-mean rule; the last resort is all values.
 _MEAN_FALLBACKS = (_COLUMN_KEYS, ("method", "quantity"), ("quantity",))
 _CATEGORY_COLUMNS = ("host", "site", "method", "quantity")
-# Below this many rows a tree ensemble only re-learns the mean, so say so plainly.
+# Below this many rows a tree ensemble only re-learns the mean, so say so plainly
+# (common practice, no source).
 _MIN_TREE_ROWS = 5
 
 
@@ -347,8 +349,9 @@ def boosted_trees_baseline(training, cells, random_state=0):
     cells : pandas.DataFrame
         Cells to predict: element, host, site, method, quantity (a value
         column, if present, is never read).
-    random_state : int, default=0
-        Seed of the regressor; the same inputs and seed give the same output.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the regressor (``reproducible.seed_integer``); the same inputs and
+        seed give the same output.
 
     Returns
     -------
@@ -361,7 +364,8 @@ def boosted_trees_baseline(training, cells, random_state=0):
     DopantgapError
         If a required column is missing or an element is not a symbol.
     """
-    return _boosted_trees_rule(_prepared_training(training), _prepared_cells(cells), random_state)
+    seed = learner_seed(seed_integer(random_state))
+    return _boosted_trees_rule(_prepared_training(training), _prepared_cells(cells), seed)
 
 
 # --------------------------------------------------------------------- dispatch
@@ -387,8 +391,8 @@ def predict_baseline(name, training, cells, levels, random_state=0):
     levels : sequence of str
         Methods, cheapest first (e.g. ``["gga", "hyb"]``); only the level-shift
         rule uses them.
-    random_state : int, default=0
-        Seed; only the boosted-trees rule uses it.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed (``reproducible.seed_integer``); only the boosted-trees rule uses it.
 
     Returns
     -------
@@ -412,6 +416,7 @@ def predict_baseline(name, training, cells, levels, random_state=0):
     >>> predict_baseline("column-mean baseline", training, cells, ["gga"]).tolist()
     [2.0, 2.0]
     """
+    seed = learner_seed(seed_integer(random_state))
     levels = _checked_levels(levels)
     if name not in BASELINES:
         raise DopantgapError(f"unknown baseline {name!r}; choose one of: {', '.join(BASELINES)}")
@@ -424,5 +429,5 @@ def predict_baseline(name, training, cells, levels, random_state=0):
     elif name == "level-shift baseline":
         mean = _level_shift_rule(training, cells, levels)
     else:
-        mean = _boosted_trees_rule(training, cells, random_state)
+        mean = _boosted_trees_rule(training, cells, seed)
     return np.asarray(mean, dtype=float)

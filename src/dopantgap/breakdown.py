@@ -56,6 +56,7 @@ import pandas as pd
 from dopantgap import elements
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered, cross_conformal_widths
 from dopantgap.domain import ElementDomain
+from dopantgap.elements.descriptors import BLOCK_INDEX
 
 __all__ = [
     "ELEMENT_COLUMNS",
@@ -81,7 +82,7 @@ FOLD_COLUMNS = ("fold", "elements", "n_elements", "n", "real_rmse", "claimed_rms
 _REQUIRED = ("element", "host", "site", "method", "quantity", "scenario", "fold", "error", "raw_std")
 # elements.py encodes blocks as s=0, p=1, d=2, f=3; read back through its own table so
 # that the two never disagree
-_BLOCK_NAMES = {index: name for name, index in elements._BLOCK_INDEX.items()}
+_BLOCK_NAMES = {index: name for name, index in BLOCK_INDEX.items()}
 _TERCILES = ("near", "middle", "far")
 _STD_FLOOR = 1e-9  # as in Surrogate's z = error / max(raw_std, 1e-9)
 

@@ -48,14 +48,16 @@ _REFERENCE_LEVEL = 0.9
 DIFFICULTY_FEATURES = ("domain_ratio", "element_cells")
 # A difficulty model needs this many residuals of its scenario (common practice, no
 # source: two slopes and an intercept want tens of points), and its scale stays within
-# these bounds, so that a few odd residuals cannot make an interval vanish or explode.
+# these bounds, so that a few odd residuals cannot make an interval vanish or explode
+# (the bounds: common practice, no source).
 _MIN_DIFFICULTY_RESIDUALS = 40
 _SCALE_BOUNDS = (0.33, 4.0)
 # Beyond the domain limit (ratio > 1) a cell's scale is at least its ratio, up to this
 # cap (common practice, no source: an extrapolation's error grows with the distance
 # travelled beyond the data, and the table holds no residual that could say by how much).
 _EXTRAPOLATION_CAP = 10.0
-# |z| of exactly 0 (a cell predicted to the last digit) would give log(0)
+# |z| of exactly 0 (a cell predicted to the last digit) would give log(0); the floor's
+# value: common practice, no source
 _LOG_FLOOR = 0.02
 
 

@@ -51,6 +51,7 @@ import pandas as pd
 
 from dopantgap.atomic import write_bytes_atomic, write_text_atomic
 from dopantgap.errors import DopantgapError
+from dopantgap.reproducible import seed_integer
 from dopantgap.sites import site_preference
 from dopantgap.table import (
     KEY_COLUMNS,
@@ -162,8 +163,9 @@ def round_metrics(surrogate, random_state=0):
     ----------
     surrogate : Surrogate
         Fitted on (or refreshed with) the round's table.
-    random_state : int, default=0
-        Seed of the site-preference draws.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the site-preference draws (``reproducible.seed_integer``, checked
+        before any work).
 
     Returns
     -------
@@ -172,6 +174,7 @@ def round_metrics(surrogate, random_state=0):
         ``mean_std_missing_by_method``, ``n_missing_by_method``, ``decided``,
         ``decided_by_method``, ``n_site_groups``.
     """
+    random_state = seed_integer(random_state)
     missing = _missing_cells(surrogate.table_)
     figures = {"mean_std_missing": None, "mean_std_missing_by_method": {}, "n_missing_by_method": {}}
     if len(missing):
@@ -302,13 +305,16 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
     out_path : str or Path or None, default=None
         Where to write the merged table, after the merge succeeded and before the round
         folder is written (so a failed write leaves the campaign as it was).
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the site-preference draws (``reproducible.seed_integer``, checked
+        before any work).
 
     Returns
     -------
     merged : DataFrame
     round_dir : Path
     """
+    random_state = seed_integer(random_state)
     campaign_dir = Path(campaign_dir)
     rounds = campaign_rounds(campaign_dir)
     if rounds:
@@ -354,7 +360,9 @@ def campaign_history(campaign_dir, surrogate=None, random_state=0):
     surrogate : Surrogate or None, default=None
         Used only for rounds recorded without a model: their figures are computed now
         with ``surrogate.refreshed(round table)``.
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the site-preference draws (``reproducible.seed_integer``, checked
+        before any work).
 
     Returns
     -------
@@ -363,6 +371,7 @@ def campaign_history(campaign_dir, surrogate=None, random_state=0):
         n_site_groups, figures`` (``recorded``, ``computed now`` or ``none``), then
         ``mean_std_<method>`` and ``decided_<method>`` per method.
     """
+    random_state = seed_integer(random_state)
     rounds = campaign_rounds(campaign_dir)
     if not rounds:
         raise DopantgapError(

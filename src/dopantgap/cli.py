@@ -2,7 +2,9 @@
 
 import argparse
 import os
+import signal
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -19,6 +21,17 @@ _CAUTION = (
 
 def _parse_levels(text):
     return [level.strip() for level in text.split(",") if level.strip()]
+
+
+def _seed(text):
+    """A --seed value: a whole number of at least 0 (what every random draw takes)."""
+    try:
+        value = int(text)
+    except ValueError:
+        value = -1
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number >= 0 (e.g. --seed 0)")
+    return value
 
 
 def _build_parser():
@@ -43,9 +56,13 @@ def _build_parser():
 
     check = commands.add_parser("check", help="read a table, name any problem in it and show what it covers")
     add_table_options(check)
+    check.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="CSV with columns host,formula for host labels that are not formulas (as for fit)",
+    )
 
     def add_learning_options(command, learner_help):
-        command.add_argument("--seed", type=int, default=0, help="random seed (default: 0)")
+        command.add_argument("--seed", type=_seed, default=0, help="random seed (default: 0)")
         command.add_argument(
             "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
             help="methods from cheapest to most expensive (default: most computed first)",
@@ -54,6 +71,11 @@ def _build_parser():
         command.add_argument(
             "--hosts", default=None, metavar="HOST_FILE",
             help="CSV with columns host,formula for host labels that are not formulas",
+        )
+        command.add_argument(
+            "--suspect-values", choices=("refuse", "warn"), default="refuse",
+            help="values a meV or kJ/mol slip or a flipped sign would explain: refuse the table "
+                 "(default) or keep them with a warning each ('check' lists them)",
         )
         command.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -133,7 +155,7 @@ def _build_parser():
         "--elements", default=None, metavar="Ti,V,Cr",
         help="elements to add to those of the table, comma-separated",
     )
-    pick.add_argument("--seed", type=int, default=0, help="seed of the site goal's draws (default: 0)")
+    pick.add_argument("--seed", type=_seed, default=0, help="seed of the site goal's draws (default: 0)")
     pick.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     explain = commands.add_parser(
@@ -145,7 +167,7 @@ def _build_parser():
         "--elements", default=None, metavar="Ti,V,Cr",
         help="elements to break down (default: the table's first 3); new elements are explained too",
     )
-    explain.add_argument("--seed", type=int, default=0, help="seed of the background sample (default: 0)")
+    explain.add_argument("--seed", type=_seed, default=0, help="seed of the background sample (default: 0)")
     explain.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     add = commands.add_parser(
@@ -220,17 +242,78 @@ def _build_parser():
 
     demo = commands.add_parser("demo", help="run the whole job on an invented table")
     demo.add_argument("--out", default="dopantgap_demo", metavar="DIR", help="folder for the demo's files")
+
+    for command in (fill, pick, explain, add, history, report):
+        command.add_argument(
+            "--accept-other-versions", action="store_true",
+            help="load a model made with other versions of scikit-learn, dopantgap, numpy, scipy, "
+            "pandas or joblib (its predictions may differ from those it gave when fitted)",
+        )
     return parser
 
 
+def _load_model(arguments, folder, say):
+    """``store.load_model`` with --accept-other-versions; what differs is said as notes."""
+    import warnings
+
+    from dopantgap.store import ModelVersionWarning, load_model
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ModelVersionWarning)
+        loaded = load_model(folder, allow_version_drift=arguments.accept_other_versions)
+    for warning in caught:
+        if issubclass(warning.category, ModelVersionWarning):
+            say(f"note: {warning.message}")
+        else:
+            warnings.warn_explicit(warning.message, warning.category, warning.filename, warning.lineno)
+    return loaded
+
+
+# Options naming a file or folder that a command writes.
+_OUTPUT_OPTIONS = {"out": "--out", "sites_out": "--sites-out"}
+
+
+def _refuse_outputs_in_model_folders(arguments):
+    """Refuse, before any work, an output inside a model folder: the folder would then
+    refuse to load (it holds only the files its manifest lists) or lose a file."""
+    for attribute, option in _OUTPUT_OPTIONS.items():
+        path = getattr(arguments, attribute, None)
+        if path is None or (arguments.command == "fit" and attribute == "out"):
+            continue  # fit's --out is a model folder: store.check_model_target judges it
+        from dopantgap.store import model_folder_containing
+
+        folder = model_folder_containing(path)
+        if folder is not None:
+            raise DopantgapError(
+                f"{option} {path}: lies inside the model folder {folder}, which holds only what "
+                f"'fit' wrote (another file there makes it refuse to load); write it elsewhere."
+            )
+
+
+class _Terminated(BaseException):
+    """SIGTERM as an exception: files being written are cleaned up and workers stopped."""
+
+
+def _raise_terminated(signum, frame):
+    raise _Terminated()
+
+
 def _command_check(arguments, say):
-    from dopantgap.table import coverage_text, read_table
+    from dopantgap.checkup import checkup_text, host_readings, site_readings
+    from dopantgap.table import read_table, shown, suspect_values
 
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
-        say(f"note: {notice}")
-    say(f"{arguments.table}: readable, no problems found.")
-    say(coverage_text(table))
+        say(f"note: {shown(notice)}")
+    hosts = host_readings(table, arguments.hosts)
+    suspects = suspect_values(table)
+    say(f"{arguments.table}: readable" + (", no problems found." if len(suspects) == 0 else "."))
+    say(checkup_text(table, hosts, site_readings(table, hosts), suspects))
+    if len(suspects):
+        raise DopantgapError(
+            f"{len(suspects)} suspect value(s), listed above: 'fit' refuses the table until they "
+            "are corrected, or keeps them with --suspect-values warn if they are right."
+        )
 
 
 def _table_and_estimator(arguments, say):
@@ -242,12 +325,32 @@ def _table_and_estimator(arguments, say):
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
+    _say_suspects(arguments, say, table)
     hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
     estimator = Surrogate(
         learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
-        random_state=arguments.seed,
+        random_state=arguments.seed, suspect_values=arguments.suspect_values,
     )
     return table, estimator
+
+
+def _say_suspects(arguments, say, table):
+    """List suspect values before a fit refuses them, or warn of each one kept."""
+    import warnings
+
+    from dopantgap.errors import SuspectValueWarning
+    from dopantgap.table import shown, suspect_values
+
+    suspects = suspect_values(table)
+    if arguments.suspect_values == "warn":
+        for message in suspects["message"]:
+            # on stderr, and even with --quiet: a value kept against the check must be seen
+            print(f"WARNING: suspect value kept (--suspect-values warn): {shown(message)}", file=sys.stderr)
+        # listed here once; the library's warning of each would repeat them
+        warnings.filterwarnings("ignore", category=SuspectValueWarning)
+    elif len(suspects) > 1:
+        for message in suspects["message"]:
+            say(f"suspect value: {shown(message)}")
 
 
 def _learner_bar(arguments):
@@ -258,9 +361,11 @@ def _learner_bar(arguments):
 
 
 def _command_fit(arguments, say):
-    from dopantgap.store import save_model
+    from dopantgap.store import check_model_target, save_model
     from dopantgap.validate import validation_metrics, validation_text
 
+    # before any work: the folder is replaced whole at the end, never an input with it
+    check_model_target(arguments.out, inputs=[arguments.table, arguments.hosts])
     table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
     say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
@@ -307,17 +412,54 @@ def _command_validate(arguments, say):
         f"({time.perf_counter() - started:.0f} s)")
 
 
+def _same_file(first, second):
+    first, second = Path(first), Path(second)
+    if first.exists() and second.exists():
+        return os.path.samefile(first, second)
+    return first.resolve() == second.resolve()
+
+
+def _fill_outputs(arguments, surrogate, manifest, say):
+    """The site preference file of ``fill``, after refusing outputs that would replace an input.
+
+    The filled table or the site preferences written over the table the model learned
+    would destroy the user's own numbers; an existing site preference file beside the
+    filled table is replaced only with a note saying so.
+    """
+    sites_out = arguments.sites_out or str(Path(arguments.out).with_name("site_preference.csv"))
+    inputs = set(surrogate.table_["_file"]) if "_file" in surrogate.table_.columns else set()
+    recorded = manifest.get("table") if isinstance(manifest, dict) else None
+    source = recorded.get("source") if isinstance(recorded, dict) else None
+    if isinstance(source, str) and source:
+        inputs.add(source)
+    outputs = {"--out": arguments.out, "--sites-out": sites_out}
+    for option, path in outputs.items():
+        for table_path in sorted(inputs):
+            if _same_file(path, table_path):
+                shown = option if option == "--out" or arguments.sites_out else "the site preference file"
+                raise DopantgapError(
+                    f"{shown} {path} is the table the model was fitted on and would be replaced; "
+                    f"give {option} another file name."
+                )
+    if _same_file(arguments.out, sites_out):
+        raise DopantgapError(
+            f"--out and the site preference file are both {sites_out}; give --sites-out another name."
+        )
+    if not arguments.sites_out and Path(sites_out).exists():
+        say(f"note: replacing the existing {sites_out} (site preferences; --sites-out writes them elsewhere)")
+    return sites_out
+
+
 def _command_fill(arguments, say):
     from dopantgap.fill import fill_table, outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.sites import site_preference
-    from dopantgap.store import load_model
     from dopantgap.table import write_table
 
     extra = parse_element_list(arguments.elements) if arguments.elements else []
-    surrogate, _manifest = load_model(arguments.model)
+    surrogate, manifest = _load_model(arguments, arguments.model, say)
+    sites_out = _fill_outputs(arguments, surrogate, manifest, say)
     filled = fill_table(surrogate, element_symbols=extra, level=arguments.level)
     write_table(filled, arguments.out)
-    sites_out = arguments.sites_out or str(Path(arguments.out).with_name("site_preference.csv"))
     preference = site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))
     write_table(preference, sites_out)
     predicted = filled[filled["status"] == "predicted"]
@@ -371,7 +513,6 @@ def _say_outside_levels(say, outside):
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.picker import parse_cost, parse_window, pick_next
-    from dopantgap.store import load_model
     from dopantgap import elements
     from dopantgap.table import write_table
 
@@ -379,7 +520,7 @@ def _command_next(arguments, say):
     costs = parse_cost(arguments.cost)
     window = parse_window(arguments.window) if arguments.window is not None else None
     goal = arguments.goal if arguments.goal is not None else ("window" if window else "table")
-    surrogate, _manifest = load_model(arguments.model)
+    surrogate, _manifest = _load_model(arguments, arguments.model, say)
     picks = pick_next(
         surrogate,
         count=arguments.count,
@@ -426,10 +567,9 @@ def _command_explain(arguments, say):
     from dopantgap.explain import explain_model, write_explanation, write_figures
     from dopantgap.fill import parse_element_list, unfamiliar_elements
     from dopantgap.progress import bar
-    from dopantgap.store import load_model
 
     asked = parse_element_list(arguments.elements) if arguments.elements else []
-    surrogate, _manifest = load_model(arguments.model)
+    surrogate, _manifest = _load_model(arguments, arguments.model, say)
     table_symbols = list(dict.fromkeys(surrogate.table_["element"]))
     shown = asked or table_symbols[:3]
     n_elements = len(dict.fromkeys(table_symbols + asked))
@@ -475,11 +615,10 @@ def _command_report(arguments, say):
     from dopantgap.fill import parse_element_list
     from dopantgap.progress import bar
     from dopantgap.report import REPORT_STEPS, build_report, read_campaign_folder
-    from dopantgap.store import load_model
 
     extra = parse_element_list(arguments.elements) if arguments.elements else []
     started = time.perf_counter()
-    surrogate, manifest = load_model(arguments.model)
+    surrogate, manifest = _load_model(arguments, arguments.model, say)
     history = replay_curves = None
     if arguments.campaign:
         history, replay_curves = read_campaign_folder(arguments.campaign, surrogate=surrogate)
@@ -534,9 +673,7 @@ def _command_add(arguments, say):
     else:
         surrogate = None
         if arguments.model:
-            from dopantgap.store import load_model
-
-            surrogate, _manifest = load_model(arguments.model)
+            surrogate, _manifest = _load_model(arguments, arguments.model, say)
         merged, round_dir = add_to_campaign(
             arguments.campaign, table, results, source=arguments.source, picks_path=arguments.picks,
             surrogate=surrogate, model_label=arguments.model, cost=cost, out_path=arguments.out,
@@ -557,9 +694,7 @@ def _command_history(arguments, say):
 
     surrogate = None
     if arguments.model:
-        from dopantgap.store import load_model
-
-        surrogate, _manifest = load_model(arguments.model)
+        surrogate, _manifest = _load_model(arguments, arguments.model, say)
     history = campaign_history(arguments.campaign, surrogate=surrogate)
     say(history_text(history).rstrip("\n"))
     if arguments.out:
@@ -628,12 +763,25 @@ def main(argv=None):
     parser = _build_parser()
     arguments = parser.parse_args(argv)
     quiet = getattr(arguments, "quiet", False)
+    # figures are written to files, never shown: the command line (not the library,
+    # whose users may have chosen a backend of their own) selects the file backend,
+    # without importing matplotlib for commands that draw nothing
+    if "matplotlib" in sys.modules:
+        sys.modules["matplotlib"].use("Agg")
+    else:
+        os.environ["MPLBACKEND"] = "Agg"
 
     def say(line=""):
         if not quiet:
             print(line, flush=True)
 
+    # SIGTERM (a job scheduler's stop, kill PID) ends the run as Ctrl-C does: the file or
+    # folder being written is left out, and the worker processes are stopped
+    previous = None
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _raise_terminated)
     try:
+        _refuse_outputs_in_model_folders(arguments)
         _COMMANDS[arguments.command](arguments, say)
     except DopantgapError as error:
         print(f"dopantgap {arguments.command}: {error}", file=sys.stderr)
@@ -652,6 +800,12 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("dopantgap: interrupted; no file was left half-written.", file=sys.stderr)
         return 130
+    except _Terminated:
+        print("dopantgap: terminated; no file was left half-written.", file=sys.stderr)
+        return 143
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
     return 0
 
 

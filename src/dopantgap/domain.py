@@ -79,6 +79,7 @@ from dopantgap.features import _LOGARITHMIC, DEFAULT_DESCRIPTORS
 __all__ = ["ElementDomain", "LevelDomain"]
 
 _LOG_FLOOR = 1e-3  # as in features.CellEncoder: keeps log10 finite for a zero value
+# fewest elements whose leave-one-out distances set a threshold (common practice, no source)
 _MIN_CALIBRATION_ELEMENTS = 3
 _CONSTANT_SPREAD = 1e-12
 
@@ -101,6 +102,10 @@ class ElementDomain(BaseEstimator):
     quantile : float, default 0.95
         Share of training elements whose leave-one-out nearest-neighbour distance lies
         within the threshold; in (0, 1].
+    descriptor_values : DataFrame or None, default=None
+        Full descriptor table the elements' numbers are read from (``values`` of
+        ``elements.descriptor_table``; a model's ``descriptor_values_``); None: the
+        installed mendeleev's.
 
     Attributes
     ----------
@@ -135,9 +140,13 @@ class ElementDomain(BaseEstimator):
     (False, True)
     """
 
-    def __init__(self, descriptors=None, quantile=0.95):
+    def __init__(self, descriptors=None, quantile=0.95, descriptor_values=None):
         self.descriptors = descriptors
         self.quantile = quantile
+        self.descriptor_values = descriptor_values
+
+    def _table(self, symbols):
+        return elements.descriptor_table(symbols, values=self.descriptor_values)
 
     def _check_parameters(self):
         names = DEFAULT_DESCRIPTORS if self.descriptors is None else self.descriptors
@@ -168,7 +177,7 @@ class ElementDomain(BaseEstimator):
 
     def _raw_matrix(self, symbols, names):
         """Descriptor values (log10 where applicable) and canonical symbols."""
-        table = elements.descriptor_table(symbols)
+        table = self._table(symbols)
         columns = []
         for name in names:
             column = table[name].to_numpy(dtype=float, copy=True)
@@ -213,7 +222,7 @@ class ElementDomain(BaseEstimator):
                 "table's elements"
             )
         # canonical spelling first, so that "ga" and "Ga" collapse into one element
-        canonical = list(elements.descriptor_table(symbols).index)
+        canonical = list(self._table(symbols).index)
         unique = np.array(sorted(set(canonical)), dtype=object)
         raw, _ = self._raw_matrix(list(unique), names)
 
@@ -241,7 +250,7 @@ class ElementDomain(BaseEstimator):
         self.points_ = points
         self.loo_distances_ = loo
         self.threshold_ = threshold
-        self.blocks_ = np.unique(elements.descriptor_table(list(unique))["block_index"].to_numpy(dtype=float))
+        self.blocks_ = np.unique(self._table(list(unique))["block_index"].to_numpy(dtype=float))
         return self
 
     def _standardised(self, element_symbols):
@@ -325,11 +334,11 @@ class ElementDomain(BaseEstimator):
         symbols = _symbol_list(element_symbols)
         if not symbols:
             return np.zeros(0, dtype=bool)
-        blocks = elements.descriptor_table(symbols)["block_index"].to_numpy(dtype=float)
+        blocks = self._table(symbols)["block_index"].to_numpy(dtype=float)
         known = self.blocks_
         if reference is not None:
             reference = _symbol_list(reference)
-            known = elements.descriptor_table(reference)["block_index"].to_numpy(dtype=float) if reference else []
+            known = self._table(reference)["block_index"].to_numpy(dtype=float) if reference else []
         return ~np.isin(blocks, known)
 
     def nearest(self, element_symbols, reference=None):
@@ -352,7 +361,7 @@ class ElementDomain(BaseEstimator):
         index = self._nearest(element_symbols, reference)[1]
         if reference is None:
             return np.asarray(self.symbols_[index], dtype=object)
-        canonical = list(elements.descriptor_table(_symbol_list(reference)).index)
+        canonical = list(self._table(_symbol_list(reference)).index)
         return np.asarray([canonical[position] for position in index], dtype=object)
 
 
@@ -377,6 +386,8 @@ class LevelDomain(BaseEstimator):
     min_host_elements : int, default 3
         Fewest elements computed at a level in one host for that host's own set to
         serve as the reference.
+    descriptor_values : DataFrame or None, default=None
+        As in :class:`ElementDomain`.
 
     Attributes
     ----------
@@ -398,10 +409,11 @@ class LevelDomain(BaseEstimator):
     [False, True]
     """
 
-    def __init__(self, descriptors=None, quantile=0.95, min_host_elements=3):
+    def __init__(self, descriptors=None, quantile=0.95, min_host_elements=3, descriptor_values=None):
         self.descriptors = descriptors
         self.quantile = quantile
         self.min_host_elements = min_host_elements
+        self.descriptor_values = descriptor_values
 
     def fit(self, table, y=None):
         """Learn the reference elements of every level (and host) of a long table.
@@ -417,9 +429,9 @@ class LevelDomain(BaseEstimator):
         -------
         LevelDomain
         """
-        self.elements_ = ElementDomain(descriptors=self.descriptors, quantile=self.quantile).fit(
-            list(table["element"])
-        )
+        self.elements_ = ElementDomain(
+            descriptors=self.descriptors, quantile=self.quantile, descriptor_values=self.descriptor_values
+        ).fit(list(table["element"]))
         computed = {}
         for key, rows in table.groupby(["quantity", "method"], sort=False):
             computed[tuple(key)] = sorted(set(rows["element"]))

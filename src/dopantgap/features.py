@@ -54,6 +54,11 @@ class CellEncoder:
         Elemental descriptor names (see ``elements.DESCRIPTOR_NAMES``).
     compositions : dict
         Host label -> {element symbol: count}.
+    descriptor_values : DataFrame or None, default=None
+        Full descriptor table the elements' numbers are read from (``values`` of
+        ``elements.descriptor_table``): a model's ``descriptor_values_``, so that it
+        encodes cells with the numbers it was fitted with. None: the installed
+        mendeleev's.
 
     Attributes
     ----------
@@ -69,12 +74,13 @@ class CellEncoder:
         Number of leading descriptor and host-relative columns.
     """
 
-    def __init__(self, descriptors, compositions):
+    def __init__(self, descriptors, compositions, descriptor_values=None):
         self.descriptors = tuple(descriptors)
         self.compositions = compositions
+        self.descriptor_values = descriptor_values
 
     def _physical(self, cells):
-        table = elements.descriptor_table(list(cells["element"]))
+        table = elements.descriptor_table(list(cells["element"]), values=self.descriptor_values)
         values = {}
         for name in self.descriptors:
             column = table[name].to_numpy(dtype=float)
@@ -82,7 +88,8 @@ class CellEncoder:
                 column = np.log10(np.maximum(column, 1e-3))
             values[_display_name(name)] = column
         relative = elements.host_relative_table(
-            list(cells["element"]), list(cells["host"]), list(cells["site"]), self.compositions
+            list(cells["element"]), list(cells["host"]), list(cells["site"]), self.compositions,
+            values=self.descriptor_values,
         )
         for name in relative.columns:
             values[name] = relative[name].to_numpy(dtype=float)

@@ -121,7 +121,7 @@ def unfamiliar_elements(surrogate, element_symbols):
     new_block = domain.new_block(symbols)
     distance = domain.distance(symbols)
     nearest = domain.nearest(symbols)
-    blocks = elements.descriptor_table(symbols)["block_index"]
+    blocks = elements.descriptor_table(symbols, values=surrogate.descriptor_values_)["block_index"]
     reasons = {}
     for position, symbol in enumerate(symbols):
         if not outside[position]:

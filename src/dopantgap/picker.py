@@ -76,6 +76,7 @@ from numpy.polynomial.hermite_e import hermegauss
 from scipy.special import ndtr
 
 from dopantgap.errors import DopantgapError
+from dopantgap.reproducible import seed_integer
 from dopantgap.sites import site_quantities
 from dopantgap.symbols import normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
@@ -115,16 +116,18 @@ _INFORMED_SHARE = 0.05
 # degree 17 exactly, ample for the smooth entropies here.
 _NODES, _NODE_WEIGHTS = hermegauss(9)
 _NODE_WEIGHTS = _NODE_WEIGHTS / math.sqrt(2.0 * math.pi)
-# Monte Carlo draws per site question; common random numbers across candidates keep
-# the differences between candidates far more precise than each entropy.
+# Monte Carlo draws per site question (common practice, no source); common random
+# numbers across candidates keep the differences between candidates far more precise
+# than each entropy.
 _SITE_SAMPLES = 1024
 # After a pick, a site question is scored again only if its covariance moved by more
-# than this share of its largest variance.
+# than this share of its largest variance (common practice, no source).
 _SITE_RESCORE_SHARE = 1e-3
-# Candidate rows scored together in the window goal (memory: rows x nodes x targets).
+# Candidate rows scored together in the window goal (memory: rows x nodes x targets;
+# common practice, no source).
 _WINDOW_CHUNK = 64
 # Most missing cells of one quantity held in one joint covariance (8 bytes each squared:
-# 6000 cells take 290 MB).
+# 6000 cells take 290 MB; common practice, no source).
 _MAX_BLOCK_CELLS = 6000
 
 
@@ -768,8 +771,9 @@ def pick_next(
         the window goal.
     element_symbols : sequence of str, default=()
         Elements to add to those of the table (their cells are all missing).
-    random_state : int, default=0
-        Seed of the site goal's Monte Carlo draws.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the site goal's Monte Carlo draws (``reproducible.seed_integer``,
+        checked before any work).
 
     Returns
     -------
@@ -787,6 +791,7 @@ def pick_next(
         site goal on a table without two sites in any host.
     """
     count = _check_count(count)
+    random_state = seed_integer(random_state)
     if goal not in GOALS:
         raise DopantgapError(f"--goal: {goal!r} is not a goal; choose one of {', '.join(GOALS)}.")
     levels = list(surrogate.levels_)

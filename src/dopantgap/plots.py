@@ -1,36 +1,36 @@
 """Figures of a filled table, its validation, explanations and campaigns.
 
 Every function returns a :class:`matplotlib.figure.Figure` built without pyplot's
-global state (Agg canvas), so figures can be made in threads and tests. Colour maps
+global state (Agg canvas), so figures can be made in threads and tests; importing this
+module leaves matplotlib's backend as it was. Text is drawn as written: a ``$`` in a
+label is a dollar sign, never the start of mathtext. Colour maps
 are perceptually uniform and keep their order in grey (cividis, viridis); categories
 use the Okabe-Ito palette (Okabe & Ito 2008, "Color Universal Design", colour-blind
 safe) together with hatching or letters, so that a greyscale print still reads.
 """
 
 import base64
+import functools
 import io
 import sys
 
 import matplotlib
+import numpy as np
+import pandas as pd
+from matplotlib import colormaps
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.cm import ScalarMappable
+from matplotlib.colors import Normalize, to_rgb
+from matplotlib.figure import Figure
+from matplotlib.patches import Patch, Rectangle
+from matplotlib.ticker import MaxNLocator
+from scipy.stats import norm
 
-matplotlib.use("Agg")
-
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib import colormaps  # noqa: E402
-from matplotlib.cm import ScalarMappable  # noqa: E402
-from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
-from matplotlib.colors import Normalize, to_rgb  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.patches import Patch, Rectangle  # noqa: E402
-from matplotlib.ticker import MaxNLocator  # noqa: E402
-from scipy.stats import norm  # noqa: E402
-
-from dopantgap import elements  # noqa: E402
-from dopantgap.atomic import write_bytes_atomic  # noqa: E402
-from dopantgap.calibration import SCENARIOS, cross_conformal_covered  # noqa: E402
-from dopantgap.errors import DopantgapError  # noqa: E402
-from dopantgap.symbols import SYMBOLS  # noqa: E402
+from dopantgap import elements
+from dopantgap.atomic import write_bytes_atomic
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered
+from dopantgap.errors import DopantgapError
+from dopantgap.symbols import SYMBOLS
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -78,6 +78,22 @@ _TOP = 0.38
 
 
 # ----------------------------------------------------------------------------- helpers
+# Labels come from the user's table (hosts, sites, methods, quantities, elements): drawn
+# with mathtext they could fail to parse (``$x^$``) or say something else than written.
+_PLAIN_TEXT = {"text.parse_math": False, "text.usetex": False}
+
+
+def _plain_text(function):
+    """Run ``function`` with every text it creates drawn as written (no mathtext, no TeX)."""
+
+    @functools.wraps(function)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(_PLAIN_TEXT):
+            return function(*args, **kwargs)
+
+    return wrapper
+
+
 def _figure(width, height):
     figure = Figure(figsize=(width, height), layout="constrained")
     FigureCanvasAgg(figure)
@@ -233,6 +249,7 @@ def _axes_fraction(column, row):
     return (column - 0.5) / 18.0, (_BOTTOM - row) / (_BOTTOM - _TOP)
 
 
+@_plain_text
 def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=None,
                  annotate=True, value_format="{:.2f}"):
     """A periodic table coloured by one value per element.
@@ -318,6 +335,7 @@ def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=
     return figure
 
 
+@_plain_text
 def spread_map(column, title, unit="eV", tags=None):
     """The uncertainty (calibrated std) of one filled column as a periodic map.
 
@@ -340,6 +358,7 @@ def spread_map(column, title, unit="eV", tags=None):
     )
 
 
+@_plain_text
 def site_preference_map(preference, host, method, quantity, tags=None):
     """Most probable lowest-energy site of each element in one host, as a periodic map.
 
@@ -421,6 +440,7 @@ def _calibrated_std(residuals, calibration):
     return raw * scale
 
 
+@_plain_text
 def parity_figure(cv_residuals, scenario=None, calibration=None):
     """Cross-validated predictions against the computed values they hid.
 
@@ -479,6 +499,7 @@ def parity_figure(cv_residuals, scenario=None, calibration=None):
 _DEFAULT_LEVELS = np.round(np.concatenate([np.arange(0.1, 0.95, 0.05), [0.95, 0.975, 0.99]]), 3)
 
 
+@_plain_text
 def calibration_figure(cv_residuals, calibration, levels=None, show_raw=True, out_of_fold=False):
     """Share of hidden cells inside their central interval, against the interval's level.
 
@@ -547,6 +568,7 @@ def _strategy_label(strategy, n_seeds):
     return f"{strategy} ({n_seeds} seed{'s' if n_seeds != 1 else ''})"
 
 
+@_plain_text
 def learning_curve_figure(curves, cost_unit="cost units"):
     """Error against cost spent for each picking strategy, over replayed seeds.
 
@@ -589,6 +611,7 @@ def learning_curve_figure(curves, cost_unit="cost units"):
     return figure
 
 
+@_plain_text
 def history_figure(history, cost_unit="cost units"):
     """How a campaign's uncertainty and decisions moved, round by round.
 
@@ -621,6 +644,7 @@ def history_figure(history, cost_unit="cost units"):
 
 
 # ----------------------------------------------------------------------------- explanations
+@_plain_text
 def importance_figure(importance, shap_values, target, top_n=12):
     """Which features move one target's predictions, and how.
 
@@ -678,6 +702,7 @@ def importance_figure(importance, shap_values, target, top_n=12):
     return figure
 
 
+@_plain_text
 def breakdown_figure(shap_values, base_values, target, element, top_n=10):
     """Steps from the base value to one element's prediction, feature by feature.
 
@@ -755,6 +780,7 @@ def _short(value):
 
 
 # ----------------------------------------------------------------------------- output
+@_plain_text
 def _png_bytes(figure, dpi):
     buffer = io.BytesIO()
     # no software stamp: the same figure gives the same bytes

@@ -1,4 +1,4 @@
-"""A quiet progress bar: drawn on a terminal's stderr, silent everywhere else.
+"""A quiet progress bar (tqdm): drawn on a terminal's stderr, silent everywhere else.
 
 Long commands (fit, explain, replay, report) tell the user how far they are; output
 redirected to a file or a pipe, and ``--quiet`` runs, stay free of bar characters.
@@ -6,17 +6,18 @@ redirected to a file or a pipe, and ``--quiet`` runs, stay free of bar character
 
 import contextlib
 import sys
-import time
+
+from tqdm import tqdm
 
 __all__ = ["Progress", "bar"]
 
-_WIDTH = 28
 # redraw at most this often (seconds): a terminal flooded with redraws slows the work
+# (common practice, no source; tqdm's own default)
 _MIN_REDRAW = 0.1
 
 
 class Progress:
-    """Counts finished steps and, when ``visible``, redraws a one-line bar.
+    """Counts finished steps and, when ``visible``, shows them as a tqdm bar.
 
     The object is also a plain callback: ``progress(2)`` is ``progress.update(2)``.
 
@@ -36,37 +37,23 @@ class Progress:
         self.total = max(int(total), 1)
         self.label = str(label)
         self.done = 0
-        self._stream = stream
-        self._visible = bool(visible)
-        self._last_draw = 0.0
-        self._started = time.perf_counter()
+        self._bar = tqdm(
+            total=self.total, desc=self.label, file=stream, disable=not visible,
+            mininterval=_MIN_REDRAW, leave=True, unit="step",
+        )
 
     def update(self, n=1):
-        """Mark ``n`` more steps finished."""
-        self.done = min(self.done + int(n), self.total)
-        now = time.perf_counter()
-        if self._visible and (now - self._last_draw >= _MIN_REDRAW or self.done == self.total):
-            self._draw(now)
+        """Mark ``n`` more steps finished (never past the total)."""
+        step = min(self.done + int(n), self.total) - self.done
+        self.done += step
+        if step:
+            self._bar.update(step)
 
     __call__ = update
 
-    def _draw(self, now):
-        share = self.done / self.total
-        filled = int(round(share * _WIDTH))
-        elapsed = now - self._started
-        line = (
-            f"\r{self.label} |{'#' * filled}{'.' * (_WIDTH - filled)}| "
-            f"{self.done}/{self.total} {elapsed:5.1f} s"
-        )
-        self._stream.write(line)
-        self._stream.flush()
-        self._last_draw = now
-
-    def _finish(self):
-        if self._visible:
-            self._draw(time.perf_counter())
-            self._stream.write("\n")
-            self._stream.flush()
+    def close(self):
+        """Draw the final state and end the bar's line."""
+        self._bar.close()
 
 
 def _is_terminal(stream):
@@ -109,4 +96,4 @@ def bar(total, label, quiet=False, stream=None):
     try:
         yield progress
     finally:
-        progress._finish()
+        progress.close()

@@ -58,6 +58,7 @@ import pandas as pd
 from sklearn.base import clone
 
 from dopantgap.atomic import write_text_atomic
+from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.campaign import DECIDED_PROBABILITY
 from dopantgap.errors import DopantgapError
 from dopantgap.sites import site_preference, site_quantities
@@ -85,6 +86,7 @@ SUMMARY_COLUMNS = (
     "ratio", "random_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "note",
 )
 RANDOM = "random"
+# fewest elements that keep their replayed-level cells visible (common practice, no source)
 _KEEP_MIN_ELEMENTS = 2
 
 
@@ -130,7 +132,9 @@ def hide_cells(table, method=None, keep_fraction=0.2, random_state=0, levels=Non
         Level replayed; None: the most expensive (``order_levels(table, levels)``).
     keep_fraction : float, default=0.2
         Share of the elements with ``method`` cells that keep them visible.
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the draw (``reproducible.seed_integer``); the elements kept do not
+        depend on the order of the table's rows.
     levels : sequence of str or None, default=None
         Methods cheapest first, as for ``Surrogate(levels=...)``.
 
@@ -142,6 +146,7 @@ def hide_cells(table, method=None, keep_fraction=0.2, random_state=0, levels=Non
         The hidden rows (all columns, in table order).
     method : str
     """
+    seed = seed_integer(random_state)
     methods = order_levels(table, levels)
     if method is None:
         method = methods[-1]
@@ -157,7 +162,7 @@ def hide_cells(table, method=None, keep_fraction=0.2, random_state=0, levels=Non
         )
     n_keep = int(round(float(keep_fraction) * len(with_method)))
     n_keep = min(max(n_keep, _KEEP_MIN_ELEMENTS), len(with_method) - 1)
-    rng = np.random.default_rng(random_state)
+    rng = np.random.default_rng(seed)
     kept = set(rng.choice(with_method, size=n_keep, replace=False).tolist())
     is_hidden = ((table["method"] == method) & ~table["element"].isin(kept)).to_numpy()
     return table[~is_hidden], table[is_hidden], method
@@ -392,8 +397,10 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         Method -> cost of one cell (``picker.parse_cost`` output); None: 1 each. The
         picker sees it; ``cost_spent`` uses the cost of ``method``.
     n_random_seeds : int, default=5
-    random_state : int, default=0
-        Seed of the hiding, the fit, the picker and the random draws.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the hiding, the fit, the picker and the random draws
+        (``reproducible.seed_integer``, checked before any work). The table's rows are
+        put in ``reproducible.canonical_order`` first, so their order changes nothing.
     progress : object or None, default=None
         Told ``update(1)`` after the fit and after each strategy round (``progress.bar``).
     keep_fraction : float, default=0.2
@@ -411,6 +418,8 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     -------
     ReplayResult
     """
+    random_state = seed_integer(random_state)
+    table = canonical_order(table)
     goals = [goal] if isinstance(goal, str) else list(goal)
     from dopantgap.picker import GOALS
 

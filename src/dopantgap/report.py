@@ -50,7 +50,8 @@ _REPLAY_COLUMNS = ("strategy", "seed", "round", "cost_spent", "error", "decided"
 #: Stages of ``build_report`` reported to its ``progress`` callback.
 REPORT_STEPS = 8
 # the page stays readable and small: at most this many main columns get maps,
-# explanation targets get figures, and elements get a breakdown per target
+# explanation targets get figures, and elements get a breakdown per target; pick rows
+# and figure resolution likewise (all common practice, no source)
 _MAX_MAP_COLUMNS = 6
 _MAX_TARGETS = 4
 _MAX_BREAKDOWNS = 2
@@ -275,10 +276,12 @@ def _table(frame, table_id=None, sortable=False, row_classes=None, digits=3):
 
 
 def _figure_html(figure, caption, alt):
+    """A figure as an inline image with its caption; ``caption`` and ``alt`` are plain
+    text (user labels welcome: they are escaped here, not by each caller)."""
     uri = plots.figure_to_data_uri(figure, dpi=_DPI)
     return (
         f'<figure><img src="{uri}" alt="{_text(alt)}">'
-        f"<figcaption>{caption}</figcaption></figure>"
+        f"<figcaption>{_text(caption)}</figcaption></figure>"
     )
 
 
@@ -428,7 +431,7 @@ def _maps(filled, columns, tags):
         parts.append(f"<h3>{_text(name)}</h3><div class=\"pair\">")
         parts.append(_figure_html(
             value_figure,
-            f"Value (eV) of {_text(name)}. Bold frame: computed; thin dashed frame: predicted; grey: "
+            f"Value (eV) of {name}. Bold frame: computed; thin dashed frame: predicted; grey: "
             f"not in the table or the request. {_TAG_CAPTION}",
             f"periodic table map of {name}",
         ))
@@ -452,7 +455,7 @@ def _site_maps(preference, surrogate, tags):
         figure = plots.site_preference_map(preference, host, method, quantity, tags=tags)
         parts.append(_figure_html(
             figure,
-            f"Most probable lowest site of {_text(quantity)} in {_text(host)} at {_text(method)}, "
+            f"Most probable lowest site of {quantity} in {host} at {method}, "
             "from 4000 joint draws of each element's sites. Colour, hatch and letter name the site; "
             f"a pale box means the choice is uncertain. {_TAG_CAPTION}",
             f"site preference map of {host}",
@@ -491,7 +494,7 @@ def _explanations(explanations, element_symbols):
         for symbol in chosen[:_MAX_BREAKDOWNS]:
             parts.append(_figure_html(
                 plots.breakdown_figure(shap_values, base_values, target, symbol),
-                f"How the prediction of {_text(symbol)} is built from the base value, step by step.",
+                f"How the prediction of {symbol} is built from the base value, step by step.",
                 f"prediction breakdown of {symbol} for {target}",
             ))
     return "\n".join(parts)

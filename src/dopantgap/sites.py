@@ -13,6 +13,8 @@ which sites are comparable (for example a solution energy with a common referenc
 import numpy as np
 import pandas as pd
 
+from dopantgap.reproducible import seed_integer
+
 __all__ = ["site_quantities", "site_preference"]
 
 
@@ -43,7 +45,8 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
     n_samples : int, default=4000
         Joint draws per element, host and method (the probabilities' sampling error
         is at most 0.5 / sqrt(n_samples), 0.008 for 4000).
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the draws (``reproducible.seed_integer``).
 
     Returns
     -------
@@ -52,8 +55,8 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
         ``value`` (mean), ``std`` and ``status`` of the site's cell, and ``rank``
         (1 = most probable lowest site).
     """
+    rng = np.random.default_rng(seed_integer(random_state))
     table = surrogate.table_
-    rng = np.random.default_rng(random_state)
     symbols = list(dict.fromkeys(table["element"])) if element_symbols is None else list(element_symbols)
     quantities = site_quantities(table) if quantities is None else list(quantities)
     records = []

@@ -19,9 +19,11 @@ elements is sensitive to how many it sees, so its folds hide as few of them as
 possible, and each fold optimises the correction's hyperparameters afresh.
 """
 
+import numbers
+
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
+from joblib import delayed
 from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
@@ -31,7 +33,9 @@ from dopantgap.domain import ElementDomain, LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS, CellEncoder
 from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, ShiftPriorLearner
-from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+from dopantgap.reproducible import canonical_order, learner_seed, seed_integer
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, check_frame
+from dopantgap.workers import worker_pool
 
 __all__ = ["LEARNERS", "Surrogate", "order_levels"]
 
@@ -42,29 +46,30 @@ LEARNERS = ("gp", "boost")
 # no source: a Gaussian process with ~15 length scales needs several rows per scale).
 _MIN_ROWS_FOR_LEARNER = 8
 # Below this many cells computed at both levels a level is learned directly
-# instead of as a correction: one is enough, since a correction with few cells stays
-# at the column's shift (``learners.ShiftPriorLearner``), which is never worse than a
-# level learned on its own from those same few cells.
+# instead of as a correction (common practice, no source): one is enough, since a
+# correction with few cells stays at the column's shift (``learners.ShiftPriorLearner``),
+# which is never worse than a level learned on its own from those same few cells.
 _MIN_ROWS_FOR_CORRECTION = 1
 # A correction learns what the column shifts leave only from this many elements
 # (common practice, no source: with two, any pattern across elements is a guess).
 _MIN_ELEMENTS_FOR_RESIDUAL = 3
 # L-BFGS-B iterations for a full fit, and for a cross-validation fold, whose search
 # starts from the full fit's optimum (common practice, no source: a warm start near
-# the optimum converges in a fraction of the iterations; measured on the invented demo
-# table, 30 left the out-of-fold errors within 1 % of 80).
+# the optimum converges in a fraction of the iterations; measured once on the invented
+# demo table, no benchmark script: 30 left the out-of-fold errors within 1 % of 80).
 _OPTIMISER_ITERATIONS = 80
 _FOLD_OPTIMISER_ITERATIONS = 30
 # A refreshed model (campaign rounds, replay) re-optimises a stage's hyperparameters once
 # it has this many times the rows they were optimised on (common practice, no source:
 # hyperparameters fitted on a handful of elements go stale as the stage grows; measured
-# on the invented demo world, a replay that never re-optimised learned the expensive level
-# half as fast).
+# in benchmarks/bench_replay.py on the invented demo world: a replay that never
+# re-optimised learned the expensive level half as fast).
 _REOPTIMISE_GROWTH = 1.25
 # Folds of the upgrade loop: at most this many, over the elements computed at both
-# levels (leave-one-element-out when there are fewer).
+# levels (leave-one-element-out when there are fewer; common practice, no source).
 _UPGRADE_FOLDS = 12
-# Cells predicted together (their joint covariance is formed in memory).
+# Cells predicted together (their joint covariance is formed in memory: 1500^2 doubles
+# are 18 MB; common practice, no source).
 _CHUNK_CELLS = 1500
 
 _CELL = ["element", "host", "site"]
@@ -105,6 +110,41 @@ def order_levels(table, levels=None):
     if len(set(levels)) != len(levels):
         raise DopantgapError(f"--levels lists a method twice: {','.join(levels)}.")
     return levels
+
+
+def _checked_descriptors(descriptors):
+    """The descriptors a surrogate uses, refused in one line when none or unknown."""
+    if descriptors is None:
+        return tuple(DEFAULT_DESCRIPTORS)
+    if isinstance(descriptors, str):
+        descriptors = [descriptors]
+    try:
+        names = tuple(descriptors)
+    except TypeError:
+        raise DopantgapError(
+            f"descriptors must be a list of descriptor names or None, got {descriptors!r}."
+        ) from None
+    if not names:
+        # with no descriptor every element would sit at distance 0 from every other
+        raise DopantgapError(
+            "descriptors is empty: give at least one descriptor name, or None for the default set "
+            f"({', '.join(DEFAULT_DESCRIPTORS)})."
+        )
+    unknown = [str(name) for name in names if name not in elements.DESCRIPTOR_NAMES]
+    if unknown:
+        raise DopantgapError(
+            f"Unknown descriptor(s) {', '.join(unknown)}; "
+            f"available: {', '.join(elements.DESCRIPTOR_NAMES)}."
+        )
+    if len(set(names)) != len(names):
+        raise DopantgapError(f"descriptors names a descriptor twice: {', '.join(names)}.")
+    return names
+
+
+def _check_folds(n_folds):
+    """Refuse a fold count that is not a whole number of at least 2."""
+    if isinstance(n_folds, bool) or not isinstance(n_folds, numbers.Integral) or n_folds < 2:
+        raise DopantgapError(f"n_folds must be a whole number of at least 2, got {n_folds!r}.")
 
 
 def _host_compositions(table, host_map):
@@ -217,13 +257,23 @@ class Surrogate(BaseEstimator):
         Host label -> formula composition, for labels that are not formulas.
     n_folds : int, default=5
         Cross-validation folds for calibration and the learner choice.
-    random_state : int, default=0
-        Seed for everything random; the same table and seed give the same model.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed for everything random; the same table and seed give the same model,
+        whatever the order of the table's rows. Anything scikit-learn's
+        ``check_random_state`` takes, and a NumPy ``Generator``; ``fit`` turns it into
+        the integer ``seed_`` (``reproducible.seed_integer``).
+    suspect_values : {"refuse", "warn"}, default="refuse"
+        Values that a meV or kJ/mol slip or a flipped sign would explain
+        (``table.suspect_values``): ``fit`` refuses the table, or keeps them with a
+        ``SuspectValueWarning`` each. The table passes ``table.check_frame`` first,
+        the reader's checks, whether it was read from a file or built in memory.
 
     Attributes
     ----------
     table_ : DataFrame
-        The training table, as given.
+        The training table, its rows unchanged, in ``reproducible.canonical_order``.
+    seed_ : int
+        The seed every random draw of the fit was derived from.
     levels_ : list of str
     learner_ : str
         The learner kept.
@@ -247,6 +297,9 @@ class Surrogate(BaseEstimator):
         widths the other folds' residuals give, ``calibration.cross_conformal_covered``).
     domain_ : ElementDomain
         Distance of any element from the table's elements (``domain.ElementDomain``).
+    descriptor_values_ : DataFrame
+        Every element's descriptors (``elements.descriptor_table()``) as they were when
+        the model was fitted; encoders, domains and explanations read them from here.
 
     Examples
     --------
@@ -263,6 +316,7 @@ class Surrogate(BaseEstimator):
         host_compositions=None,
         n_folds=5,
         random_state=0,
+        suspect_values="refuse",
     ):
         self.learner = learner
         self.levels = levels
@@ -271,6 +325,7 @@ class Surrogate(BaseEstimator):
         self.host_compositions = host_compositions
         self.n_folds = n_folds
         self.random_state = random_state
+        self.suspect_values = suspect_values
 
     # ------------------------------------------------------------------ fitting
     def fit(self, table, progress=None):
@@ -289,6 +344,12 @@ class Surrogate(BaseEstimator):
         -------
         self : Surrogate
         """
+        # the arguments first: a bad seed or option is refused before any work
+        seed = seed_integer(self.random_state)
+        descriptors = _checked_descriptors(self.descriptors)
+        _check_folds(self.n_folds)
+        # the reader's checks, for a table built in memory as for one read from a file
+        table = check_frame(table, suspect_values=self.suspect_values)
         missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]
         if missing:
             raise DopantgapError(
@@ -301,15 +362,16 @@ class Surrogate(BaseEstimator):
             )
         if len(table) == 0:
             raise DopantgapError("The table has no rows to learn from.")
-        self.table_ = table.copy()
+        # one row order whatever order the rows came in: the folds and every draw
+        # depend on the cells, not on where they stood in the file
+        table = canonical_order(table)
+        self.seed_ = seed
+        self.table_ = table
         self.levels_ = order_levels(table, self.levels)
-        self.descriptors_ = tuple(self.descriptors or DEFAULT_DESCRIPTORS)
-        unknown = [name for name in self.descriptors_ if name not in elements.DESCRIPTOR_NAMES]
-        if unknown:
-            raise DopantgapError(
-                f"Unknown descriptor(s) {', '.join(unknown)}; "
-                f"available: {', '.join(elements.DESCRIPTOR_NAMES)}."
-            )
+        self.descriptors_ = descriptors
+        # every element's numbers as this installation gives them, kept with the model
+        # (and its folder) so that it predicts with them whatever mendeleev comes later
+        self.descriptor_values_ = elements.descriptor_table()
         self.compositions_ = _host_compositions(table, self.host_compositions)
         self.quantity_levels_ = {
             quantity: [m for m in self.levels_ if m in set(rows["method"])]
@@ -320,7 +382,7 @@ class Surrogate(BaseEstimator):
         # the candidates are independent: on two cores they fit side by side, each
         # worker held to one BLAS/OpenMP thread so that they do not fight for cores
         outcomes = []
-        for outcome in Parallel(n_jobs=min(len(candidates), 2), return_as="generator")(
+        for outcome in worker_pool(n_jobs=min(len(candidates), 2), return_as="generator")(
             delayed(self._fit_candidate)(core, name) for name in candidates
         ):
             outcomes.append(outcome)
@@ -338,8 +400,8 @@ class Surrogate(BaseEstimator):
         self.cv_residuals_by_learner_ = residuals
         self.selection_residuals_ = _selection_residuals(residuals) if len(candidates) > 1 else None
         self.calibration_ = _calibration(self.cv_residuals_)
-        self.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
-        self.level_domain_ = LevelDomain(descriptors=self.descriptors_).fit(core)
+        self.domain_ = ElementDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(list(table["element"]))
+        self.level_domain_ = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(core)
         self.cv_metrics_ = pd.concat(
             [self._metrics(name, residuals[name]) for name in candidates], ignore_index=True
         )
@@ -378,9 +440,12 @@ class Surrogate(BaseEstimator):
                 f"fit a new model instead."
             )
         fresh = clone(self)
-        fresh.table_ = table.copy()
+        table = canonical_order(table)
+        fresh.seed_ = self._seed()
+        fresh.table_ = table
         fresh.levels_ = [level for level in self.levels_ if level in set(table["method"])]
         fresh.descriptors_ = self.descriptors_
+        fresh.descriptor_values_ = self.descriptor_values_
         fresh.compositions_ = dict(self.compositions_)
         new_hosts = table.loc[~table["host"].isin(list(self.compositions_)), :]
         if len(new_hosts):
@@ -399,9 +464,15 @@ class Surrogate(BaseEstimator):
         fresh.cv_residuals_ = self.cv_residuals_
         fresh.cv_metrics_ = self.cv_metrics_
         fresh.cv_residuals_by_learner_ = getattr(self, "cv_residuals_by_learner_", {})
-        fresh.domain_ = ElementDomain(descriptors=self.descriptors_).fit(list(table["element"]))
-        fresh.level_domain_ = LevelDomain(descriptors=self.descriptors_).fit(core)
+        fresh.domain_ = ElementDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(list(table["element"]))
+        fresh.level_domain_ = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(core)
         return fresh
+
+    def _seed(self):
+        """The integer every draw derives from: ``seed_``, or ``random_state`` checked for a
+        model saved before ``seed_`` existed (or not fitted yet)."""
+        seed = getattr(self, "seed_", None)
+        return seed_integer(self.random_state) if seed is None else seed
 
     def _fit_candidate(self, core, name):
         """Fitted stages of one learner, their cross-validated residuals, and the
@@ -473,9 +544,9 @@ class Surrogate(BaseEstimator):
                 fixed_kernel=fixed,
                 initial_kernel=initial,
                 max_optimiser_iterations=iterations,
-                random_state=self.random_state,
+                random_state=learner_seed(self._seed()),
             )
-        return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=self.random_state)
+        return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=learner_seed(self._seed()))
 
     def _fit_stages(self, core, name, template, mode="fresh", shift_only=frozenset()):
         """Fit one stage per quantity and level; ``template`` (fitted stages) warm-starts
@@ -489,7 +560,7 @@ class Surrogate(BaseEstimator):
                 if len(cells) == 0:
                     continue
                 model_template = None if template is None else template.get((quantity, method))
-                encoder = CellEncoder(self.descriptors_, self.compositions_)
+                encoder = CellEncoder(self.descriptors_, self.compositions_, self.descriptor_values_)
                 columns = None if model_template is None else model_template.encoder.columns_
                 if columns is not None and not set(zip(cells["host"], cells["site"])) <= set(columns):
                     # a column the template never saw: its input layout cannot be kept
@@ -711,7 +782,7 @@ class Surrogate(BaseEstimator):
         check_is_fitted(self)
         domain = getattr(self, "level_domain_", None)
         if domain is None:
-            domain = LevelDomain(descriptors=self.descriptors_).fit(self.table_[list(REQUIRED_COLUMNS)])
+            domain = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(self.table_[list(REQUIRED_COLUMNS)])
             self.level_domain_ = domain
         return domain
 
@@ -721,7 +792,7 @@ class Surrogate(BaseEstimator):
         check_is_fitted(self)
         domain = getattr(self, "domain_", None)
         if domain is None:
-            domain = ElementDomain(descriptors=self.descriptors_).fit(list(self.table_["element"]))
+            domain = ElementDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(list(self.table_["element"]))
             self.domain_ = domain
         return domain
 
@@ -754,7 +825,7 @@ class Surrogate(BaseEstimator):
     # ------------------------------------------------------- cross-validation
     def _fold_masks(self, core):
         """Boolean test masks over ``core`` rows, one per fold (see module docstring)."""
-        rng = np.random.default_rng(self.random_state)
+        rng = np.random.default_rng(self._seed())
         table_elements = np.array(sorted(core["element"].unique()))
         rng.shuffle(table_elements)
         n_folds = int(min(max(self.n_folds, 2), len(table_elements)))
@@ -818,7 +889,7 @@ class Surrogate(BaseEstimator):
             part["raw_std"] = std
             part["scenario"] = self._scenarios(training, held_out)
             part["fold"] = fold
-            level_domain = LevelDomain(descriptors=self.descriptors_).fit(training)
+            level_domain = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(training)
             part = pd.concat([part, _difficulty_features(level_domain, training, held_out)], axis=1)
             records.append(part)
         if not records:
@@ -849,7 +920,7 @@ class Surrogate(BaseEstimator):
             (quantity, method) of the corrections that keep the prior alone.
         """
         records, shift_only = [], set()
-        rng = np.random.default_rng(self.random_state + 1)
+        rng = np.random.default_rng(self._seed() + 1)
         # fold numbers continue after the main loop's, so that every fold id is unique
         fold = int(min(max(self.n_folds, 2), core["element"].nunique()))
         for quantity, methods in self.quantity_levels_.items():
@@ -865,7 +936,7 @@ class Surrogate(BaseEstimator):
                 forms = {"learner": [], "shift": []}
                 for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
                     test = cells["element"].isin(group).to_numpy()
-                    encoder = CellEncoder(self.descriptors_, self.compositions_)
+                    encoder = CellEncoder(self.descriptors_, self.compositions_, self.descriptor_values_)
                     encoder.fit(cells[~test])
                     training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
                     part = cells[test].reset_index(drop=True)
@@ -883,7 +954,7 @@ class Surrogate(BaseEstimator):
                         & core["element"].isin(group)
                     )
                     known = core[~hidden]
-                    level_domain = LevelDomain(descriptors=self.descriptors_).fit(known)
+                    level_domain = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(known)
                     part = pd.concat([part, _difficulty_features(level_domain, known, part)], axis=1)
                     n_elements = cells.loc[~test, "element"].nunique()
                     for form in forms:

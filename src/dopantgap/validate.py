@@ -36,15 +36,17 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
+from joblib import delayed
 from sklearn.base import clone
 
 from dopantgap import plots
 from dopantgap.baselines import BASELINES, predict_baseline
 from dopantgap.breakdown import breakdown_text, element_breakdown, fold_honesty, group_breakdown
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered
+from dopantgap.reproducible import learner_seed, seed_integer
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
+from dopantgap.workers import worker_pool
 
 __all__ = [
     "METRIC_COLUMNS",
@@ -111,7 +113,8 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
     surrogate : Surrogate
         Fitted; its ``cv_residuals_`` give the folds (cells hidden together).
     baselines : sequence of str, default=BASELINES
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the tree baseline (``reproducible.seed_integer``).
 
     Returns
     -------
@@ -119,6 +122,7 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
         Columns of ``predictions`` (``_PREDICTION_COLUMNS``), one row per baseline and
         hidden cell.
     """
+    seed = learner_seed(seed_integer(random_state))
     core = surrogate.table_[list(REQUIRED_COLUMNS)].reset_index(drop=True)
     core_keys = pd.MultiIndex.from_frame(core[list(KEY_COLUMNS)])
     residuals = surrogate.cv_residuals_
@@ -129,9 +133,9 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
         for name in baselines:
             tasks.append((fold, name, core[~is_hidden], hidden))
     # the tree baseline refits once per fold (some 30 folds): two workers halve the wait
-    means = Parallel(n_jobs=2)(
+    means = worker_pool(n_jobs=2)(
         delayed(predict_baseline)(name, training, hidden[list(KEY_COLUMNS)], surrogate.levels_,
-                                  random_state=random_state)
+                                  random_state=seed)
         for _, name, training, hidden in tasks
     )
     carried = [column for column in _CARRIED_COLUMNS if column in residuals]
@@ -176,7 +180,8 @@ def validation_metrics(surrogate, baselines=BASELINES, random_state=0):
         A fitted surrogate.
     baselines : sequence of str, default=BASELINES
         Baselines to score (``baselines.BASELINES``); empty: learners only.
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the tree baseline (``reproducible.seed_integer``).
 
     Returns
     -------
@@ -187,6 +192,7 @@ def validation_metrics(surrogate, baselines=BASELINES, random_state=0):
     predictions : DataFrame
         Every out-of-fold prediction (``ValidationResult.predictions``).
     """
+    random_state = seed_integer(random_state)
     learners = _learner_predictions(surrogate)
     frames = [learners]
     if baselines:
@@ -226,7 +232,9 @@ def validate(table, estimator=None, baselines=BASELINES, random_state=0, progres
     estimator : Surrogate or None, default=None
         Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
     baselines : sequence of str, default=BASELINES
-    random_state : int, default=0
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the fit and the tree baseline (``reproducible.seed_integer``,
+        checked before any work).
     progress : object with ``update(n)`` or None
         Passed to ``Surrogate.fit``.
 
@@ -234,6 +242,7 @@ def validate(table, estimator=None, baselines=BASELINES, random_state=0, progres
     -------
     ValidationResult
     """
+    random_state = seed_integer(random_state)
     estimator = Surrogate(random_state=random_state) if estimator is None else clone(estimator)
     surrogate = estimator.fit(table, progress=progress)
     metrics, predictions = validation_metrics(surrogate, baselines, random_state)

@@ -205,7 +205,8 @@ SECOND_ELEMENTS = tuple(
     "Li Na K Cs Ca Sr Ba B Al In C Sn N P As Sb O S Se Te F Cl Br I "
     "Sc Ti V Cr Mn Fe Co Ni Cu Zn Zr Ag".split()
 )
-# Electronegativity above which the expensive level's correction grows (second world).
+# Electronegativity above which the expensive level's correction grows (second world;
+# an invented value).
 _HALOGEN_ONSET = 2.8
 
 

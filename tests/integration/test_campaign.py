@@ -129,7 +129,7 @@ def test_cli_bad_input_is_one_line_and_status_2(files, tmp_path, capsys, argumen
 
 
 @pytest.fixture(scope="module")
-def campaign(tmp_path_factory):
+def campaign(tmp_path_factory, demo_model_dir):
     """Two rounds on the invented demo table, recorded with the shipped demo model."""
     folder = tmp_path_factory.mktemp("campaign")
     table_path = folder / "table.csv"
@@ -142,7 +142,7 @@ def campaign(tmp_path_factory):
     write_table(hyb[hyb["element"] == "Cu"], folder / "results_2.csv")
     (folder / "picks_1.csv").write_text("element,host,site,method,quantity\nFe,ZnS,sub_Zn,hyb,E_sol\n")
     campaign_dir = folder / "campaign"
-    model = "models/demo"
+    model = str(demo_model_dir)
     first = main(["add", str(table_path), str(folder / "results_1.csv"), "--out", str(folder / "t1.csv"),
                   "--campaign", str(campaign_dir), "--picks", str(folder / "picks_1.csv"),
                   "--model", model, "--cost", "gga=1,hyb=30", "--quiet"])
@@ -188,15 +188,15 @@ def test_history_prints_a_row_per_round(campaign, capsys):
     assert "--model" in "\n".join(lines)
 
 
-def test_history_writes_a_png(campaign, tmp_path, capsys):
+def test_history_writes_a_png(campaign, tmp_path, capsys, demo_model_dir):
     out = tmp_path / "history.png"
-    assert main(["history", str(campaign["dir"]), "--model", "models/demo", "--out", str(out)]) == 0
+    assert main(["history", str(campaign["dir"]), "--model", str(demo_model_dir), "--out", str(out)]) == 0
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, W3C 2003, 5.2)
     assert "computed now" in capsys.readouterr().out
 
 
-def test_history_with_a_model_computes_the_missing_round(campaign):
-    surrogate, _ = load_model("models/demo")
+def test_history_with_a_model_computes_the_missing_round(campaign, demo_model_dir):
+    surrogate, _ = load_model(demo_model_dir)
     history = campaign_history(campaign["dir"], surrogate=surrogate)
     assert history["figures"].tolist() == ["recorded", "recorded", "computed now"]
     # more hyb cells computed: the mean std of the missing hyb cells does not grow

@@ -4,8 +4,6 @@ Every table here is INVENTED (dopantgap.world or a made-up function written belo
 none of it is physics or data.
 """
 
-from pathlib import Path
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -26,7 +24,6 @@ from dopantgap.store import load_model, save_model
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import invent_world, observe
 
-DEMO_MODEL = Path(__file__).resolve().parents[2] / "models" / "demo"
 SMALL_ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As", "Sn", "Sb", "Ba", "Pb", "Zr")
 SMALL_HOSTS = {"ZnS": ("sub_Zn", "int_tet_Zn", "int_hex")}
 
@@ -38,8 +35,8 @@ def _small_table(seed=2):
 
 
 @pytest.fixture(scope="module")
-def demo_model():
-    surrogate, _manifest = load_model(DEMO_MODEL)
+def demo_model(demo_model_dir):
+    surrogate, _manifest = load_model(demo_model_dir)
     return surrogate
 
 
@@ -237,8 +234,8 @@ def test_cli_writes_tables_and_figures(tmp_path, capsys):
     assert (out / "breakdown_E_sol_ZnS_sub_Zn_gga_Ti.png").stat().st_size > 0
 
 
-def test_cli_bad_element_is_one_line(tmp_path, capsys):
-    status = main(["explain", str(DEMO_MODEL), "--out", str(tmp_path / "x"), "--elements", "Ti,Qq"])
+def test_cli_bad_element_is_one_line(tmp_path, capsys, demo_model_dir):
+    status = main(["explain", str(demo_model_dir), "--out", str(tmp_path / "x"), "--elements", "Ti,Qq"])
     captured = capsys.readouterr()
     assert status == 2
     lines = captured.err.strip().splitlines()

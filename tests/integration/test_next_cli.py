@@ -9,18 +9,15 @@ from dopantgap.table import KEY_COLUMNS
 
 pytestmark = pytest.mark.slow
 
-DEMO = "models/demo"
-
-
 @pytest.fixture(scope="module")
-def computed():
-    surrogate, _manifest = load_model(DEMO)
+def computed(demo_model_dir):
+    surrogate, _manifest = load_model(str(demo_model_dir))
     return set(surrogate.table_[list(KEY_COLUMNS)].itertuples(index=False, name=None))
 
 
-def test_next_writes_ranked_missing_cells(tmp_path, capsys, computed):
+def test_next_writes_ranked_missing_cells(tmp_path, capsys, computed, demo_model_dir):
     out = tmp_path / "picks" / "next.csv"
-    status = main(["next", DEMO, "--count", "6", "--method", "hyb", "--cost", "gga=1,hyb=30", "--out", str(out)])
+    status = main(["next", str(demo_model_dir), "--count", "6", "--method", "hyb", "--cost", "gga=1,hyb=30", "--out", str(out)])
     assert status == 0
     printed = capsys.readouterr().out
     assert "do not replace calculation" in printed
@@ -35,10 +32,10 @@ def test_next_writes_ranked_missing_cells(tmp_path, capsys, computed):
     assert len(keys) == 6 and not keys & computed
 
 
-def test_next_window_implies_its_goal_and_cautions_new_elements(tmp_path, capsys, computed):
+def test_next_window_implies_its_goal_and_cautions_new_elements(tmp_path, capsys, computed, demo_model_dir):
     out = tmp_path / "next.csv"
     status = main(
-        ["next", DEMO, "--count", "4", "--window", "E_bind:-1.2:-0.4", "--elements", "pu,Hg", "--out", str(out)]
+        ["next", str(demo_model_dir), "--count", "4", "--window", "E_bind:-1.2:-0.4", "--elements", "pu,Hg", "--out", str(out)]
     )
     assert status == 0
     printed = capsys.readouterr().out
@@ -50,9 +47,9 @@ def test_next_window_implies_its_goal_and_cautions_new_elements(tmp_path, capsys
     assert (picks["quantity"] == "E_bind").all() and (picks["benefit_unit"] == "bits").all()
 
 
-def test_next_site_goal(tmp_path, capsys):
+def test_next_site_goal(tmp_path, capsys, demo_model_dir):
     out = tmp_path / "next.csv"
-    assert main(["next", DEMO, "--count", "3", "--goal", "site", "--seed", "2", "--quiet", "--out", str(out)]) == 0
+    assert main(["next", str(demo_model_dir), "--count", "3", "--goal", "site", "--seed", "2", "--quiet", "--out", str(out)]) == 0
     assert capsys.readouterr().out == ""
     picks = pd.read_csv(out, keep_default_na=False)
     assert len(picks) == 3 and picks["reason"].str.contains("site preference").all()
@@ -74,9 +71,9 @@ def test_next_site_goal(tmp_path, capsys):
         (["--elements", "Ti,Xq"], "--elements"),
     ],
 )
-def test_next_bad_option_exits_2_with_one_line(tmp_path, capsys, options, named):
+def test_next_bad_option_exits_2_with_one_line(tmp_path, capsys, options, named, demo_model_dir):
     out = tmp_path / "next.csv"
-    assert main(["next", DEMO, "--out", str(out)] + options) == 2
+    assert main(["next", str(demo_model_dir), "--out", str(out)] + options) == 2
     captured = capsys.readouterr()
     lines = captured.err.strip().splitlines()
     assert len(lines) == 1 and named in lines[0], captured.err

@@ -22,11 +22,11 @@ from threadpoolctl import threadpool_limits
 
 from dopantgap import report
 from dopantgap.cli import main
+from dopantgap.demo import demo_table
 from dopantgap.fill import fill_table, outside_levels, unfamiliar_elements
 from dopantgap.store import load_model
+from dopantgap.table import table_hash
 
-ROOT = Path(__file__).resolve().parents[2]
-MODEL = ROOT / "models" / "demo"
 TARGET = "ZnS/sub_Zn/hyb/E_sol"
 # the page must travel by e-mail and open from a disk (common practice, no source)
 MAX_BYTES = 10 * 1024 * 1024
@@ -61,20 +61,20 @@ def _campaign(folder):
 
 
 @pytest.fixture(scope="module")
-def built(tmp_path_factory):
+def built(tmp_path_factory, demo_model_dir):
     folder = tmp_path_factory.mktemp("report")
     picks = folder / "next.csv"
     pd.DataFrame({"element": ["Tc", "Fe"], "host": ["ZnS", "C"], "site": ["sub_Zn", "sub_C"],
                   "method": ["hyb", "hyb"], "quantity": ["E_sol", "E_sol"], "gain": [0.4, 0.2]}
                  ).to_csv(picks, index=False)
     history, curves = report.read_campaign_folder(_campaign(folder / "campaign"))
-    surrogate, manifest = load_model(MODEL)
+    surrogate, manifest = load_model(demo_model_dir)
     steps = []
     with threadpool_limits(limits=1):
         path = report.build_report(
             surrogate, manifest, folder / "report.html", element_symbols=("Tc",),
             explanation_dir=_explanations(folder / "explain"), picks=picks, history=history,
-            replay_curves=curves, progress=steps.append, model_dir=MODEL,
+            replay_curves=curves, progress=steps.append, model_dir=demo_model_dir,
         )
     return {"path": path, "html": path.read_text(encoding="utf-8"), "steps": steps, "folder": folder}
 
@@ -106,13 +106,19 @@ def test_report_sections(built):
                     "Site preference", "What drives the predictions", "How well the error bars hold",
                     "Next calculations", "Campaign", "The filled table"):
         assert f"<h2>{heading}</h2>" in page
-    assert "17d505e651af21a78d4610faf361fafb24b4e7256cf16b5d9be6d4b37a40b21c" in page  # table hash
-    assert page.count("<tr") > 1368  # every filled cell is a row
+    # the hash and the filled grid, both computed here from the shipped demo table itself
+    demo = demo_table()
+    assert f"<dd>{table_hash(demo)}</dd>" in page
+    columns = demo[["host", "site", "method", "quantity"]].drop_duplicates()
+    n_elements = demo["element"].nunique() + 1  # the table's elements and the added Tc
+    filled = page[page.index('<table id="filled"'):]
+    filled = filled[filled.index("<tbody>"):filled.index("</tbody>")]
+    assert filled.count("<tr") == n_elements * len(columns)  # every cell is a row
 
 
-def test_report_compares_learners_with_the_baselines_fit_stored(built):
+def test_report_compares_learners_with_the_baselines_fit_stored(built, demo_model_dir):
     page = built["html"]
-    _, manifest = load_model(MODEL)
+    _, manifest = load_model(demo_model_dir)
     stored = [row for row in manifest["validation"] if row["quantity"] == "all"]
     assert stored, "the demo model folder should carry fit's validation metrics"
     section = page[page.index("The same folds"):]
@@ -122,15 +128,13 @@ def test_report_compares_learners_with_the_baselines_fit_stored(built):
     assert f'<td class="num">{kept["mae"]:.3f}</td>' in section
 
 
-def test_report_without_explanations_says_how_to_make_them(tmp_path):
-    surrogate, manifest = load_model(MODEL)
+def test_report_without_explanations_says_how_to_make_them():
     page = report._explanations(None, ())
     assert "dopantgap explain" in page and "--explanations" in page
-    assert surrogate.levels_ == manifest["levels"]
 
 
-def test_cli_report_errors_are_one_line(tmp_path, capsys):
-    status = main(["report", str(MODEL), "--out", str(tmp_path / "r.html"),
+def test_cli_report_errors_are_one_line(tmp_path, capsys, demo_model_dir):
+    status = main(["report", str(demo_model_dir), "--out", str(tmp_path / "r.html"),
                    "--explanations", str(tmp_path / "missing"), "--quiet"])
     error = capsys.readouterr().err
     assert status == 2
@@ -140,13 +144,13 @@ def test_cli_report_errors_are_one_line(tmp_path, capsys):
     wrong.mkdir()
     for name in ("importance.csv", "shap_values.csv", "base_values.csv"):
         (wrong / name).write_text("a,b\n1,2\n", encoding="utf-8")
-    assert main(["report", str(MODEL), "--out", str(tmp_path / "r.html"), "--explanations", str(wrong)]) == 2
+    assert main(["report", str(demo_model_dir), "--out", str(tmp_path / "r.html"), "--explanations", str(wrong)]) == 2
     assert "lacks the column(s)" in capsys.readouterr().err
-    assert main(["report", str(MODEL), "--campaign", str(tmp_path), "--out", str(tmp_path / "r.html")]) == 2
+    assert main(["report", str(demo_model_dir), "--campaign", str(tmp_path), "--out", str(tmp_path / "r.html")]) == 2
     capsys.readouterr()
     not_picks = tmp_path / "not_picks.csv"
     not_picks.write_text("element,host\nTi,ZnS\n", encoding="utf-8")
-    assert main(["report", str(MODEL), "--picks", str(not_picks), "--out", str(tmp_path / "r.html")]) == 2
+    assert main(["report", str(demo_model_dir), "--picks", str(not_picks), "--out", str(tmp_path / "r.html")]) == 2
     error = capsys.readouterr().err
     assert error.count("\n") == 1 and "not_picks.csv:1" in error and "site" in error
 
@@ -203,10 +207,10 @@ def test_report_screenshot_is_not_blank(built, tmp_path):
     assert len(np.unique(np.round(grey, 2))) > 20
 
 
-def test_report_marks_an_element_outside_the_training_data(tmp_path):
+def test_report_marks_an_element_outside_the_training_data(tmp_path, demo_model_dir):
     """Nd (f block) against the demo table, which has no f-block element: the domain rule's
     new-block clause flags it, and the report lists it and tints its rows."""
-    surrogate, manifest = load_model(MODEL)
+    surrogate, manifest = load_model(demo_model_dir)
     assert surrogate.domain_.outside(["Nd"])[0]
     with threadpool_limits(limits=1):
         path = report.build_report(surrogate, manifest, tmp_path / "r.html", element_symbols=("Nd",))
@@ -216,10 +220,10 @@ def test_report_marks_an_element_outside_the_training_data(tmp_path):
     assert nd_rows and all("outside the training data" in row for row in nd_rows)
 
 
-def test_report_lists_elements_outside_their_level_once_per_level(built):
+def test_report_lists_elements_outside_their_level_once_per_level(built, demo_model_dir):
     """Elements unlike every element computed at the expensive level (fill.outside_levels)
     are listed in one caution per level, and their rows there carry the level's note."""
-    surrogate, _manifest = load_model(MODEL)
+    surrogate, _manifest = load_model(demo_model_dir)
     outside = outside_levels(surrogate, fill_table(surrogate, element_symbols=("Tc",)),
                              skip=unfamiliar_elements(surrogate, ("Tc",)))
     page = built["html"]

@@ -278,7 +278,7 @@ def test_unfitted_domain_raises_not_fitted_error(method):
 
 def test_clone_and_get_params_round_trip(demo_domain):
     domain = ElementDomain(descriptors=TWO_DESCRIPTORS, quantile=0.8)
-    assert domain.get_params() == {"descriptors": TWO_DESCRIPTORS, "quantile": 0.8}
+    assert domain.get_params() == {"descriptors": TWO_DESCRIPTORS, "quantile": 0.8, "descriptor_values": None}
     copy = clone(domain)
     assert copy is not domain
     assert copy.get_params() == domain.get_params()
@@ -287,7 +287,7 @@ def test_clone_and_get_params_round_trip(demo_domain):
 
     fitted_copy = clone(demo_domain)
     assert not hasattr(fitted_copy, "threshold_")
-    assert fitted_copy.get_params() == {"descriptors": None, "quantile": 0.95}
+    assert fitted_copy.get_params() == {"descriptors": None, "quantile": 0.95, "descriptor_values": None}
     refitted = fitted_copy.fit(TRAINING)
     assert refitted.threshold_ == demo_domain.threshold_
     assert refitted.descriptors_ == tuple(DEFAULT_DESCRIPTORS)

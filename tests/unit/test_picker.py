@@ -46,7 +46,6 @@ from dopantgap.store import load_model
 from dopantgap.surrogate import Surrogate, _Stage
 from dopantgap.table import KEY_COLUMNS
 
-DEMO = "models/demo"
 
 
 # ------------------------------------------------------------ a stand-in surrogate
@@ -114,8 +113,8 @@ def padded(values, n_anchor):
 
 
 @pytest.fixture(scope="module")
-def demo():
-    surrogate, _manifest = load_model(DEMO)
+def demo(demo_model_dir):
+    surrogate, _manifest = load_model(demo_model_dir)
     return surrogate
 
 

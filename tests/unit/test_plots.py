@@ -352,7 +352,7 @@ def test_progress_bar_draws_only_on_a_terminal():
             shown.update()
             hidden(1)  # usable as a plain callback
     assert shown.done == hidden.done == 4
-    assert "work |" in terminal.getvalue() and "4/4" in terminal.getvalue()
+    assert "work" in terminal.getvalue() and "4/4" in terminal.getvalue()
     assert pipe.getvalue() == ""
 
 

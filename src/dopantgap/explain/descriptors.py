@@ -56,7 +56,7 @@ def _raw_name(feature):
     return feature[len(_LOG_PREFIX):] if feature.startswith(_LOG_PREFIX) else feature
 
 
-def descriptor_matrix(features, element_symbols):
+def descriptor_matrix(features, element_symbols, values=None):
     """Descriptor values of elements, one row each, as the encoder uses them.
 
     Parameters
@@ -66,12 +66,15 @@ def descriptor_matrix(features, element_symbols):
         descriptor (floored at 1e-3 as in ``features.CellEncoder``).
     element_symbols : sequence of str
         Canonical element symbols.
+    values : DataFrame or None, default=None
+        The model's descriptor table (``Surrogate.descriptor_values_``); None: the
+        installed mendeleev's numbers.
 
     Returns
     -------
     ndarray of shape (n_elements, n_features)
     """
-    table = elements.descriptor_table(list(element_symbols))
+    table = elements.descriptor_table(list(element_symbols), values=values)
     columns = []
     for feature in features:
         values = table[_raw_name(feature)].to_numpy(dtype=float).copy()
@@ -94,7 +97,7 @@ class _ColumnEncoding:
             raise DopantgapError(f"host {host!r} has no composition in the model")
         site_key = site if isinstance(site, str) else None
         reference = elements.reference_atoms(site_key, compositions[host])
-        reference_table = elements.descriptor_table(list(reference))
+        reference_table = elements.descriptor_table(list(reference), values=encoder.descriptor_values)
         weights = np.array(list(reference.values()), dtype=float)
         index, slope, intercept = [], [], []
         for position, name in enumerate(encoder.physical_names_):

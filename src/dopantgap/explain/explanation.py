@@ -87,6 +87,7 @@ from dopantgap.explain.descriptors import descriptor_matrix, explanation_feature
 from dopantgap.explain.shapley import _MAX_EXACT_FEATURES, shapley_values
 from dopantgap.explain.targets import _target_table, _TargetFunction
 from dopantgap.explain.trees import _tree_ensembles, tree_shapley_values
+from dopantgap.reproducible import seed_integer
 from dopantgap.symbols import normalise_symbol
 
 __all__ = ["BACKGROUND_SIZE", "OFFSET_FEATURE", "Explanation", "explain_model"]
@@ -159,8 +160,9 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
         Elements to explain besides the table's own (new elements are fine).
     targets : sequence of str or None, default=None
         Target names to explain (see ``Explanation.targets``); None: all.
-    random_state : int, default=0
-        Seed of the background sample.
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the background sample and of sampled orderings
+        (``reproducible.seed_integer``, checked before any work).
     progress : object with ``update(n)`` or None, default=None
         Told once per explained element (total: the table's elements plus added ones).
 
@@ -168,6 +170,7 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
     -------
     Explanation
     """
+    random_state = seed_integer(random_state)
     table = surrogate.table_
     table_symbols = list(dict.fromkeys(table["element"]))
     symbols = list(table_symbols)
@@ -185,7 +188,7 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
             )
         target_table = target_table.set_index("target").loc[wanted].reset_index()
     features = explanation_features(surrogate)
-    descriptors = descriptor_matrix(features, symbols)
+    descriptors = descriptor_matrix(features, symbols, values=surrogate.descriptor_values_)
     rng = np.random.default_rng(random_state)
     n_background = min(BACKGROUND_SIZE, len(table_symbols))
     chosen = np.sort(rng.choice(len(table_symbols), size=n_background, replace=False))

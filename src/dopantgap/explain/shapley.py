@@ -4,9 +4,12 @@ import warnings
 
 import numpy as np
 
+from dopantgap.reproducible import learner_seed, seed_integer
+
 __all__ = ["shapley_values"]
 
-# Up to this many features every subset is enumerated (2^12 coalitions per element).
+# Up to this many features every subset is enumerated (2^12 coalitions per element;
+# common practice, no source).
 _MAX_EXACT_FEATURES = 12
 # Orderings sampled per element beyond that (antithetic pairs; common practice, no source).
 _PERMUTATION_EVALS_PER_FEATURE = 40
@@ -40,8 +43,9 @@ def shapley_values(model, X, background, random_state=0, progress=None):
     X : ndarray of shape (n_samples, n_features)
         Rows to explain.
     background : ndarray of shape (n_background, n_features)
-    random_state : int, default=0
-        Seed of the sampled orderings (unused when enumerating).
+    random_state : None, int, RandomState or Generator, default=0
+        Seed of the sampled orderings (unused when enumerating;
+        ``reproducible.seed_integer``).
     progress : object with ``update(n)`` or None
         Told after each explained row.
 
@@ -50,6 +54,7 @@ def shapley_values(model, X, background, random_state=0, progress=None):
     values : ndarray of shape (n_samples, n_features, n_outputs)
     base_values : ndarray of shape (n_samples, n_outputs)
     """
+    seed = learner_seed(seed_integer(random_state))
     shap = _import_shap()
     X = np.asarray(X, dtype=float)
     background = np.asarray(background, dtype=float)
@@ -65,7 +70,7 @@ def shapley_values(model, X, background, random_state=0, progress=None):
         explainer = shap.explainers.Exact(as_matrix, masker)
         options = {"max_evals": 2**n_features + 1}
     else:
-        explainer = shap.explainers.Permutation(as_matrix, masker, seed=int(random_state))
+        explainer = shap.explainers.Permutation(as_matrix, masker, seed=seed)
         options = {"max_evals": 2 * _PERMUTATION_EVALS_PER_FEATURE * n_features + 1}
     values = np.empty((len(X), n_features, n_outputs))
     base_values = np.empty((len(X), n_outputs))

@@ -7,7 +7,7 @@ from dopantgap.explain.descriptors import _ColumnEncoding
 from dopantgap.learners import BoostLearner, GPLearner, OnColumns, ShiftPriorLearner
 
 # Rows of descriptor matrices evaluated at once (keeps kernel blocks in cache, and
-# the covariance a learner's own predict forms small).
+# the covariance a learner's own predict forms small; common practice, no source).
 _CHUNK_ROWS = 1024
 # Label of an element the model never saw: no atomic number is 0.
 _UNSEEN_LABEL = 0.0
@@ -78,6 +78,34 @@ class _PhysicalFactor:
         return distance
 
 
+# Training rows used to read a regressor's target normalisation from its predictions
+# (common practice, no source: two would do in exact arithmetic; more average rounding).
+_NORMALISATION_PROBES = 64
+
+
+def _target_normalisation(regressor, train, alpha):
+    """Mean and scale a fitted ``GaussianProcessRegressor`` puts its target back with.
+
+    With ``normalize_y`` its mean at x is ``mean + scale * kernel_(x, X_train_) @ alpha_``
+    (Rasmussen & Williams 2006, "Gaussian Processes for Machine Learning", eq. 2.25, on
+    the standardised target). Both numbers are read from that identity through public
+    attributes and ``predict`` at some training rows (a straight-line fit), instead of
+    the regressor's private attributes, which change without notice between releases.
+    """
+    probes = train[:: max(1, len(train) // _NORMALISATION_PROBES)][:_NORMALISATION_PROBES]
+    latent = regressor.kernel_(probes, train) @ alpha
+    predicted = np.asarray(regressor.predict(probes), dtype=float).ravel()
+    spread = latent - latent.mean()
+    if len(probes) < 2 or float(spread @ spread) <= 1e-12 * max(1.0, float(latent @ latent)):
+        # too little variation among the probes to separate mean from scale
+        raise _Unsupported
+    scale = float(spread @ (predicted - predicted.mean()) / (spread @ spread))
+    mean = float(predicted.mean() - scale * latent.mean())
+    if not (np.isfinite(scale) and scale > 0 and np.isfinite(mean)):
+        raise _Unsupported
+    return mean, scale
+
+
 def _inner_learner(learner):
     """The learner that carries a stage's descriptors, and the constant added to it: a
     correction's shift prior around a learner predicts its pooled shift plus that learner."""
@@ -128,8 +156,9 @@ class _StageColumns:
         physical = set(range(n_physical))
         train = regressor.X_train_
         alpha = np.asarray(regressor.alpha_, dtype=float)
-        if alpha.ndim != 1 or np.ndim(regressor._y_train_std) != 0:
+        if alpha.ndim != 1:
             raise _Unsupported
+        target_mean, target_scale = _target_normalisation(regressor, train, alpha)
         terms = []
         for term in _flatten(regressor.kernel_, Sum):
             factors = _flatten(term, Product)
@@ -165,8 +194,8 @@ class _StageColumns:
         return {
             "terms": terms,
             "groups": [(self.encodings[members[0]], np.array(members)) for members in groups.values()],
-            "mean": float(regressor._y_train_mean) + self.offset,
-            "scale": float(regressor._y_train_std),
+            "mean": target_mean + self.offset,
+            "scale": target_scale,
         }
 
     def _predict_boost(self, descriptors):
