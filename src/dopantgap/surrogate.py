@@ -529,10 +529,12 @@ class Surrogate(BaseEstimator):
             if mode == "grown" and kernel is not None and n_rows <= _REOPTIMISE_GROWTH * _tuned_rows(template):
                 fixed = kernel
             elif mode == "fold" and kernel is not None:
-                # every fold tunes its own kernel on its own rows, so the hidden elements
-                # never shape the covariance that predicts them; the warm start only
-                # makes the search short
-                initial, iterations = kernel, _FOLD_OPTIMISER_ITERATIONS
+                # every fold tunes its own kernel and chooses its own descriptors on its
+                # own rows, so the hidden elements never shape the covariance that
+                # predicts them; the warm start (from before the full fit's descriptor
+                # choice) only makes the search short
+                initial = getattr(process, "ard_kernel_", kernel)
+                iterations = _FOLD_OPTIMISER_ITERATIONS
             element_label, column_label = encoder.label_columns_
             # the column indicators already give each column its own behaviour; a
             # random offset per column on top of them was measured to hurt
@@ -543,6 +545,7 @@ class Surrogate(BaseEstimator):
                 ignored_columns=(column_label,),
                 fixed_kernel=fixed,
                 initial_kernel=initial,
+                selection_group_column=element_label,
                 max_optimiser_iterations=iterations,
                 random_state=learner_seed(self._seed()),
             )

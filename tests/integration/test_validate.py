@@ -206,7 +206,9 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
 
     def recording_gp_fit(self, X, y):
         labels = np.asarray(X)[:, self.label_columns[0]]
-        gp_fits.append((phase["now"], {int(z) for z in labels}, self.fixed_kernel is None))
+        # optimised afresh, and choosing its own descriptors on these rows
+        gp_fits.append((phase["now"], {int(z) for z in labels},
+                        self.fixed_kernel is None and self.selection_group_column is not None))
         return original_gp_fit(self, X, y)
 
     monkeypatch.setattr(surrogate_module.Surrogate, "_fit_stages", recording_fit_stages)
@@ -230,7 +232,7 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
         fold_encoders = [seen for when, seen in calls if when == position]
         assert fold_encoders and all(seen <= set(training["element"]) for seen in fold_encoders)
         assert all(not seen & new_elements for seen in fold_encoders)
-        # hyperparameters: every fold optimises its own kernel, on its own rows only
+        # hyperparameters and descriptor choice: every fold makes its own, on its own rows only
         fold_gps = [(seen, optimised) for when, seen, optimised in gp_fits if when == position]
         assert fold_gps and all(optimised for _, optimised in fold_gps)
         hidden_numbers = {atomic_number(symbol) for symbol in new_elements}

@@ -404,3 +404,39 @@ def test_gp_warm_start_starts_from_the_given_kernel_and_checks_its_size():
     other = GPLearner(random_state=0).fit(X[:, :1], y).kernel_
     with pytest.raises(ValueError, match="initial_kernel has"):
         GPLearner(initial_kernel=other).fit(X, y)
+
+
+def test_gp_descriptor_selection_switches_off_what_does_not_help_unseen_groups():
+    """A search stuck where four noise descriptors look relevant (short length scales,
+    no iterations to escape): grouped-CV selection keeps the one descriptor that drives
+    the target, pins the noise at its bound, and predicts unseen groups far better than
+    the same kernel without selection. Where keeping every descriptor does as well,
+    nothing is switched off."""
+    rng = np.random.default_rng(0)
+    n_groups, n_descriptors = 20, 5
+    descriptors = rng.standard_normal((n_groups, n_descriptors))
+    X = np.array([[*descriptors[g], g, c] for g in range(n_groups) for c in range(4)])
+    y = np.sin(X[:, 0]) + 0.05 * rng.standard_normal(len(X))
+    layout = dict(label_columns=(n_descriptors,), ignored_columns=(n_descriptors + 1,), random_state=0)
+    kernel = GPLearner(**layout).fit(X, y).kernel_
+    theta = kernel.theta.copy()
+    descriptor_positions = slice(1, 1 + n_descriptors)  # after the amplitude
+    assert kernel.hyperparameters[1].name.endswith("length_scale")
+    theta[descriptor_positions] = np.log([0.5, 0.7, 0.7, 0.7, 0.7])
+    stuck = kernel.clone_with_theta(theta)
+    chosen = GPLearner(selection_group_column=n_descriptors, initial_kernel=stuck,
+                       max_optimiser_iterations=0, **layout).fit(X, y)
+    unselected = GPLearner(initial_kernel=stuck, max_optimiser_iterations=0, **layout).fit(X, y)
+    assert chosen.kept_descriptor_columns_ == (0,)
+    assert unselected.kept_descriptor_columns_ == (0, 1, 2, 3, 4)
+    assert chosen.selection_errors_.shape == (n_descriptors,)
+    assert np.argmin(chosen.selection_errors_) == 0
+    # the search's own optimum is kept for warm starts, before anything was switched off
+    ard_scales = chosen.ard_kernel_.theta[descriptor_positions]
+    assert np.all(ard_scales[1:] < chosen.kernel_.bounds[descriptor_positions, 1][1:])
+    unseen = np.column_stack([rng.standard_normal((200, n_descriptors)), np.full(200, 99.0), np.zeros(200)])
+    truth = np.sin(unseen[:, 0])
+    assert np.mean((chosen.predict(unseen) - truth) ** 2) < 0.1 * np.mean((unselected.predict(unseen) - truth) ** 2)
+    # a well-found optimum: nothing to gain, nothing switched off by the selection
+    settled = GPLearner(selection_group_column=n_descriptors, **layout).fit(X, y)
+    assert settled.kernel_.theta == pytest.approx(settled.ard_kernel_.theta)
