@@ -78,7 +78,7 @@ def test_periodic_map_prints_each_symbol_in_its_box():
     boxes = [p for p in figure.axes[0].patches if str(p.get_gid()).startswith("box-")]
     assert len(boxes) == 118
     assert _patch(figure, "box-Cu").get_facecolor()[:3] == pytest.approx(
-        matplotlib.colors.to_rgb(plots._EMPTY_FACE)
+        matplotlib.colors.to_rgb(plots.maps._EMPTY_FACE)
     )
 
 
