@@ -27,6 +27,8 @@ from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = [
     "BASELINES",
+    "BASELINE_SCENARIOS",
+    "baseline_applies",
     "boosted_trees_baseline",
     "column_mean_baseline",
     "group_neighbour_baseline",
@@ -37,6 +39,12 @@ __all__ = [
 #: Names accepted by :func:`predict_baseline`, in the order reports list them.
 BASELINES = ("column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline")
 
+#: Validation scenarios where a rule differs from another one; elsewhere it is not scored
+#: or listed. The level-shift rule needs the cell's cheaper level computed, which only
+#: the upgrade scenario guarantees (a new element has every level hidden, a new cell's
+#: cheaper twin is its own upgrade case): anywhere else it would repeat the column mean.
+BASELINE_SCENARIOS = {"level-shift baseline": ("upgrade",)}
+
 _COLUMN_KEYS = ("host", "site", "method", "quantity")
 # Ever coarser groupings for the column-mean rule; the last resort is all values.
 _MEAN_FALLBACKS = (_COLUMN_KEYS, ("method", "quantity"), ("quantity",))
@@ -44,6 +52,32 @@ _CATEGORY_COLUMNS = ("host", "site", "method", "quantity")
 # Below this many rows a tree ensemble only re-learns the mean, so say so plainly
 # (common practice, no source).
 _MIN_TREE_ROWS = 5
+
+
+def baseline_applies(name, scenario):
+    """Whether the baseline ``name`` is scored in the validation ``scenario``.
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`BASELINES`.
+    scenario : str
+        A validation scenario (``calibration.SCENARIOS``).
+
+    Returns
+    -------
+    bool
+        False where the rule would only repeat another (:data:`BASELINE_SCENARIOS`).
+
+    Examples
+    --------
+    >>> baseline_applies("level-shift baseline", "new-element")
+    False
+    >>> baseline_applies("column-mean baseline", "new-element")
+    True
+    """
+    scenarios = BASELINE_SCENARIOS.get(name)
+    return scenarios is None or scenario in scenarios
 
 
 # ---------------------------------------------------------------- input handling

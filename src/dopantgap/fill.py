@@ -7,9 +7,20 @@ import pandas as pd
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
 from dopantgap.symbols import SYMBOLS, normalise_symbol
-from dopantgap.table import KEY_COLUMNS
+from dopantgap.table import KEY_COLUMNS, WIDE_SEPARATOR, to_wide
 
-__all__ = ["FILLED_COLUMNS", "fill_table", "outside_levels", "parse_element_list", "unfamiliar_elements"]
+__all__ = [
+    "FILLED_COLUMNS",
+    "FILL_FORMATS",
+    "WIDE_CAUTION",
+    "WIDE_COMPANIONS",
+    "check_fill_format",
+    "fill_table",
+    "outside_levels",
+    "parse_element_list",
+    "unfamiliar_elements",
+    "wide_filled",
+]
 
 _BLOCK_NAMES = {0: "s", 1: "p", 2: "d", 3: "f"}
 
@@ -18,6 +29,30 @@ FILLED_COLUMNS = (
     "element", "host", "site", "method", "quantity",
     "value", "std", "lo", "hi", "status", "scenario", "domain_distance", "outside_domain", "caution",
 )
+
+
+#: Layouts of a filled table: one row per cell, or one row per element.
+FILL_FORMATS = ("long", "wide")
+#: Per-cell columns written beside each value column of the wide layout.
+WIDE_COMPANIONS = ("std", "lo", "hi", "status")
+#: Name of the wide layout's per-element caution column ("caution" alone is a name the
+#: reader keeps for dopantgap's own outputs).
+WIDE_CAUTION = "element caution"
+# In a companion's name the parts are joined by "|", not by WIDE_SEPARATOR: the reader
+# takes every "host/site/method/quantity" column for energies, and anything else for a
+# note, so the file reads back into exactly the cells it was written from.
+_COMPANION_JOIN = "|"
+
+
+def check_fill_format(text, option="--format"):
+    """A filled table's layout, ``"long"`` or ``"wide"``; anything else refused in one line."""
+    layout = str(text).strip().lower()
+    if layout not in FILL_FORMATS:
+        raise DopantgapError(
+            f"{option} {text!r} is not a layout of the filled table; choose {' or '.join(FILL_FORMATS)} "
+            f"(long: one row per cell; wide: one row per element)."
+        )
+    return layout
 
 
 def parse_element_list(text, option="--elements"):
@@ -96,6 +131,55 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
         for column in extras:
             filled[column] = filled[column].astype(object).where(filled[column].notna(), "")
     return filled[list(FILLED_COLUMNS) + extras]
+
+
+def _companion_name(column, kind):
+    return f"{column.replace(WIDE_SEPARATOR, _COMPANION_JOIN)} {kind}"
+
+
+def wide_filled(filled):
+    """A filled table in the wide layout: one row per element, one column per cell kind.
+
+    Parameters
+    ----------
+    filled : DataFrame
+        As returned by :func:`fill_table`.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``element``; the table's extra columns that hold one value per element
+        (as the reader's wide layout keeps them) and ``element caution``; then, per
+        ``host/site/method/quantity`` column, its value and the companions
+        ``host|site|method|quantity std``, ``... lo``, ``... hi``, ``... status``
+        (:data:`WIDE_COMPANIONS`), and ``... <extra>`` for an extra column whose text
+        differs between an element's cells. Values come from :func:`table.to_wide`, so
+        computed cells are the table's own numbers, unchanged; the scenario and domain
+        columns stay in the long layout. Read back with ``read_table``, the file gives
+        every cell its value (the status columns say which were computed).
+    """
+    extras = [column for column in filled.columns if column not in FILLED_COLUMNS]
+    values = to_wide(filled)
+    computed = filled[filled["status"] == "computed"]
+    per_element, per_cell = [], []
+    for column in extras:
+        distinct = computed.groupby("element", sort=False)[column].nunique()
+        (per_element if (distinct <= 1).all() else per_cell).append(column)
+    wide = pd.DataFrame({"element": values.index.to_numpy(dtype=object)})
+    for column in per_element:
+        first = computed.groupby("element", sort=False)[column].first()
+        wide[column] = wide["element"].map(first).fillna("").to_numpy(dtype=object)
+    caution = filled.groupby("element", sort=False)["caution"].first()
+    wide[WIDE_CAUTION] = wide["element"].map(caution).fillna("").to_numpy(dtype=object)
+    spread = {kind: to_wide(filled, values=kind) for kind in WIDE_COMPANIONS}
+    # a note that differs between cells: blank where the cell was not computed
+    spread.update({kind: to_wide(filled, values=kind).fillna("") for kind in per_cell})
+    parts = [wide]
+    for column in values.columns:
+        block = {column: values[column].to_numpy()}
+        block.update({_companion_name(column, kind): frame[column].to_numpy() for kind, frame in spread.items()})
+        parts.append(pd.DataFrame(block))
+    return pd.concat(parts, axis=1)
 
 
 def unfamiliar_elements(surrogate, element_symbols):

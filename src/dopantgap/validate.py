@@ -23,8 +23,9 @@ same training cells the learners saw.
 Outputs of :func:`write_validation`: ``metrics.csv`` (``METRIC_COLUMNS``; one row per
 scenario, model and quantity plus a pooled row with quantity ``all``),
 ``predictions.csv`` (every out-of-fold prediction of every model), and per scenario
-``parity_<scenario>.png`` and ``calibration_<scenario>.png`` of the learner ``fit``
-keeps; and where that learner fails (``breakdown``): ``elements.csv`` (per element and
+``parity_<scenario>.png`` (predicted against computed, one panel per quantity, host and
+level grouping, the worst cells labelled) and ``calibration_<scenario>.png`` of the
+learner ``fit`` keeps; and where that learner fails (``breakdown``): ``elements.csv`` (per element and
 scenario, worst first), ``groups.csv`` (per periodic-table block and per tercile of
 distance from the other elements) and ``folds.csv`` (per new-element fold, the error
 the model claimed against the error it made). Their columns are described in the
@@ -40,7 +41,7 @@ from joblib import delayed
 from sklearn.base import clone
 
 from dopantgap import plots
-from dopantgap.baselines import BASELINES, predict_baseline
+from dopantgap.baselines import BASELINES, baseline_applies, predict_baseline
 from dopantgap.breakdown import breakdown_text, element_breakdown, fold_honesty, group_breakdown
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered
 from dopantgap.reproducible import learner_seed, seed_integer
@@ -120,7 +121,8 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
     -------
     DataFrame
         Columns of ``predictions`` (``_PREDICTION_COLUMNS``), one row per baseline and
-        hidden cell.
+        hidden cell of a scenario where the baseline applies
+        (``baselines.baseline_applies``: the level-shift rule in upgrade only).
     """
     seed = learner_seed(seed_integer(random_state))
     core = surrogate.table_[list(REQUIRED_COLUMNS)].reset_index(drop=True)
@@ -131,7 +133,10 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
         hidden = hidden.reset_index(drop=True)
         is_hidden = core_keys.isin(pd.MultiIndex.from_frame(hidden[list(KEY_COLUMNS)]))
         for name in baselines:
-            tasks.append((fold, name, core[~is_hidden], hidden))
+            # a rule is scored only where it differs from the others (level-shift: upgrade)
+            applies = np.array([baseline_applies(name, scenario) for scenario in hidden["scenario"]], dtype=bool)
+            if applies.any():
+                tasks.append((fold, name, core[~is_hidden], hidden[applies].reset_index(drop=True)))
     # the tree baseline refits once per fold (some 30 folds): two workers halve the wait
     means = worker_pool(n_jobs=2)(
         delayed(predict_baseline)(name, training, hidden[list(KEY_COLUMNS)], surrogate.levels_,
@@ -205,7 +210,12 @@ def validation_metrics(surrogate, baselines=BASELINES, random_state=0):
     extra = [column for column in learners.columns if column not in standard]
     predictions = pd.concat(frames, ignore_index=True)[standard + extra]
     rows = []
-    models = list(dict.fromkeys(predictions["model"]))
+    present = set(predictions["model"])
+    # learners as fitted, then the baselines in BASELINES order (one seen in some
+    # scenarios only would otherwise come last)
+    models = [m for m in dict.fromkeys(predictions["model"]) if m not in BASELINES] + [
+        name for name in BASELINES if name in present
+    ]
     for scenario in SCENARIOS:
         for model in models:
             part = predictions[(predictions["scenario"] == scenario) & (predictions["model"] == model)]
@@ -303,7 +313,9 @@ def write_validation(result, out_dir):
         if len(rows) == 0:
             continue
         figures = {
-            f"parity_{scenario}.png": plots.parity_figure(rows, scenario=scenario, calibration=surrogate.calibration_),
+            f"parity_{scenario}.png": plots.parity_figure(
+                rows, scenario=scenario, calibration=surrogate.calibration_, levels=surrogate.levels_
+            ),
             f"calibration_{scenario}.png": plots.calibration_figure(
                 rows, surrogate.calibration_, out_of_fold=True
             ),

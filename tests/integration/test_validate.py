@@ -7,7 +7,7 @@ from sklearn.model_selection import GroupKFold, KFold
 
 from dopantgap import features as features_module
 from dopantgap import surrogate as surrogate_module
-from dopantgap.baselines import BASELINES
+from dopantgap.baselines import BASELINES, baseline_applies
 from dopantgap.breakdown import ELEMENT_COLUMNS, FOLD_COLUMNS, GROUP_COLUMNS
 from dopantgap.calibration import SCENARIOS
 from dopantgap.cli import main
@@ -50,7 +50,10 @@ def test_metrics_layout_rows_and_chosen_learner(result):
     assert set(pooled["scenario"]) == set(SCENARIOS)
     for scenario in SCENARIOS:
         models = set(pooled.loc[pooled["scenario"] == scenario, "model"])
-        assert models == {"gp", "boost", SELECTION_MODEL} | set(BASELINES)
+        # the level-shift rule is listed only where it applies (upgrade)
+        applying = {name for name in BASELINES if baseline_applies(name, scenario)}
+        assert models == {"gp", "boost", SELECTION_MODEL} | applying
+        assert ("level-shift baseline" in models) == (scenario == "upgrade")
     assert all("baseline" in name for name in BASELINES)
     chosen = metrics[metrics["chosen"]]
     assert set(chosen["model"]) == {result.surrogate.learner_}
@@ -93,10 +96,11 @@ def test_baselines_use_the_learners_folds_and_cells(result):
     predictions = result.predictions
     kept = predictions[predictions["model"] == result.surrogate.learner_]
     keys = list(KEY_COLUMNS) + ["fold", "scenario"]
-    reference = kept[keys].sort_values(keys).reset_index(drop=True)
     for name in BASELINES:
+        applying = kept[np.array([baseline_applies(name, scenario) for scenario in kept["scenario"]], dtype=bool)]
+        expected = applying[keys].sort_values(keys).reset_index(drop=True)
         rows = predictions[predictions["model"] == name][keys].sort_values(keys).reset_index(drop=True)
-        pd.testing.assert_frame_equal(rows, reference)
+        pd.testing.assert_frame_equal(rows, expected)
 
 
 def test_write_validation_files(result, tmp_path):

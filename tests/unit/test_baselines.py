@@ -12,6 +12,7 @@ from sklearn.ensemble import HistGradientBoostingRegressor
 
 from dopantgap.baselines import (
     BASELINES,
+    baseline_applies,
     boosted_trees_baseline,
     column_mean_baseline,
     group_neighbour_baseline,
@@ -329,4 +330,19 @@ def test_missing_column_and_bad_symbol_are_user_errors(training):
 def test_names_are_the_documented_ones():
     assert BASELINES == (
         "column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline"
+    )
+
+
+def test_level_shift_is_scored_in_the_upgrade_scenario_only(training):
+    """Without the cheaper twin (a new element, or a cell with no cheaper level computed)
+    the level-shift rule is the column mean, so validation lists it for upgrade only."""
+    from dopantgap.calibration import SCENARIOS
+
+    assert [s for s in SCENARIOS if baseline_applies("level-shift baseline", s)] == ["upgrade"]
+    for name in BASELINES:
+        if name != "level-shift baseline":
+            assert all(baseline_applies(name, scenario) for scenario in SCENARIOS)
+    no_twin = make_cells(("Ga", "ZnS", "sub_Zn", "hyb", FORMATION), ("B", "ZnS", "int_hex", "hyb", FORMATION))
+    np.testing.assert_array_equal(
+        level_shift_baseline(training, no_twin, LEVELS), column_mean_baseline(training, no_twin)
     )

@@ -9,7 +9,7 @@ One module per concept:
 ``labels``     labels that differ only in letter case; where a row came from
 ``suspects``   :func:`suspect_values`: values a unit slip or a flipped sign explains
 ``frames``     :func:`check_frame`: the reader's checks for a DataFrame built in memory
-``writing``    :func:`write_table`
+``writing``    :func:`write_table` (CSV or workbook), :func:`write_workbook`
 ``reshaping``  :func:`to_wide`
 ``summary``    :func:`coverage`, :func:`coverage_text`
 ``identity``   :func:`table_hash`
@@ -34,12 +34,13 @@ from dopantgap.table.reading import read_table
 from dopantgap.table.reshaping import to_wide
 from dopantgap.table.summary import coverage, coverage_text
 from dopantgap.table.suspects import SUSPECT_COLUMNS, SUSPECT_THRESHOLD, suspect_values
-from dopantgap.table.writing import write_table
+from dopantgap.table.writing import OUTPUT_SUFFIXES, check_output_suffix, write_table, write_workbook
 
 __all__ = [
     "KEY_COLUMNS",
     "MAX_ABS_VALUE",
     "ORIGINAL_LABEL",
+    "OUTPUT_SUFFIXES",
     "PROVENANCE_COLUMN",
     "REQUIRED_COLUMNS",
     "RESERVED_COLUMNS",
@@ -48,6 +49,7 @@ __all__ = [
     "SUSPECT_THRESHOLD",
     "WIDE_SEPARATOR",
     "check_frame",
+    "check_output_suffix",
     "coverage",
     "coverage_text",
     "merge_results",
@@ -58,4 +60,5 @@ __all__ = [
     "table_hash",
     "to_wide",
     "write_table",
+    "write_workbook",
 ]

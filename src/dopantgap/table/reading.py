@@ -303,6 +303,7 @@ def _read_wide(header, records, path_text, fixed_width):
             path=path_text,
             line=header.line,
         )
+    _refuse_filled_wide(header, path_text)
     wide_columns = []  # (position, parts, name)
     extra_names = []
     seen_parts = {}
@@ -380,6 +381,24 @@ def _read_wide(header, records, path_text, fixed_width):
             line=header.line,
         )
     return _assemble(columns, extra_names, lines, path_text, register.notices)
+
+
+# fill --format wide writes "host|site|method|quantity std" (and lo, hi, status) beside
+# each value column; read back, its predictions would pass for computed values
+_FILLED_COMPANIONS = ("std", "lo", "hi", "status")
+
+
+def _refuse_filled_wide(header, path_text):
+    for name in header.named.values():
+        stem, _, kind = name.rpartition(" ")
+        if kind in _FILLED_COMPANIONS and len(stem.split("|")) == len(WIDE_PARTS):
+            raise TableError(
+                f"column {name!r} marks a table filled by dopantgap (fill --format wide): read "
+                f"back, its predicted values would count as computed ones; give the table of "
+                f"your computed values, or the long filled table's rows whose status is 'computed'",
+                path=path_text,
+                line=header.line,
+            )
 
 
 def _check_wide_label_case(wide_columns, header, path_text):

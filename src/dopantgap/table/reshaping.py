@@ -26,31 +26,36 @@ def _check_unique_cells(frame):
                         f"cell ({described}) appears more than once; keep one row per cell")
 
 
-def to_wide(frame):
+def to_wide(frame, values="value"):
     """One row per element, one column per ``host/site/method/quantity``.
 
     Parameters
     ----------
     frame : pandas.DataFrame
-        Long table as returned by :func:`read_table`.
+        Long table as returned by :func:`read_table` (or any long frame with one row per
+        cell, such as a filled table).
+    values : str, default="value"
+        Column spread into the cells (``"std"`` or ``"status"`` of a filled table, say).
 
     Returns
     -------
     pandas.DataFrame
         Index ``element`` (order of first appearance), columns ``host/site/method/quantity``
-        (order of first appearance), float64 values, NaN where not computed.
+        (order of first appearance); float64 values with NaN where not computed, or, for
+        a column that does not hold numbers, objects with NaN where absent.
     """
     _check_unique_cells(frame)
     names = _column_names(frame)
     elements = list(dict.fromkeys(frame["element"]))
     column_order = list(dict.fromkeys(names))
+    numeric = pd.api.types.is_numeric_dtype(frame[values]) and not pd.api.types.is_bool_dtype(frame[values])
     long = pd.DataFrame({
         "element": frame["element"].to_numpy(dtype=object),
         "column": names.to_numpy(dtype=object),
-        "value": frame["value"].to_numpy(dtype=np.float64),
+        "value": frame[values].to_numpy(dtype=np.float64 if numeric else object),
     })
     wide = long.pivot(index="element", columns="column", values="value")
-    wide = wide.reindex(index=elements, columns=column_order).astype(np.float64)
+    wide = wide.reindex(index=elements, columns=column_order).astype(np.float64 if numeric else object)
     wide.index.name = "element"
     wide.columns.name = None
     return wide
