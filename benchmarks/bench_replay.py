@@ -1,10 +1,10 @@
-"""Benchmark of the picker in a replayed campaign on the INVENTED demo world.
+"""Benchmark of the picker in replayed rounds on the INVENTED demo world.
 
 The demo world (``dopantgap.demo.demo_world()``: every cell of an invented function,
 not DFT data) is taken as a completed table: its noisy ``value`` column, the
 ``truth`` column dropped. ``dopantgap.replay.replay`` hides the expensive level
 (``hyb``) of all but a seeded 20 % of the elements (the cheap level ``gga`` stays known
-everywhere, as in a real campaign), fits a surrogate once on the rest and reveals
+everywhere, as in real rounds of calculations), fits a surrogate once on the rest and reveals
 hidden ``hyb`` cells round by round: with the picker's ``table`` and ``site`` goals,
 and at random among the same hidden cells (median over the random seeds).
 

@@ -16,15 +16,7 @@ The Python API mirrors the command line::
 
 __version__ = "0.1.0"
 
-from dopantgap.calibration import SCENARIOS
-from dopantgap.elements import DESCRIPTORS, descriptor_table, element_flags
 from dopantgap.errors import DopantgapError, ModelFolderError, ModelVersionWarning, TableError
-from dopantgap.fill import fill_table
-from dopantgap.picker import pick_next
-from dopantgap.sites import site_preference
-from dopantgap.store import load_model, save_model
-from dopantgap.surrogate import Surrogate
-from dopantgap.table import coverage, read_table, to_wide, write_table
 
 __all__ = [
     "DESCRIPTORS",
@@ -54,8 +46,23 @@ __all__ = [
     "write_table",
 ]
 
-# the heavier consumers (shap, matplotlib) load on first use, so the command line starts fast
+# Everything but the exceptions loads on first use: numpy, pandas, scipy and scikit-learn
+# take seconds to import, and `dopantgap --help` or a mistyped option should answer at once
 _LAZY = {
+    "DESCRIPTORS": ("dopantgap.elements", "DESCRIPTORS"),
+    "SCENARIOS": ("dopantgap.calibration", "SCENARIOS"),
+    "Surrogate": ("dopantgap.surrogate", "Surrogate"),
+    "coverage": ("dopantgap.table", "coverage"),
+    "descriptor_table": ("dopantgap.elements", "descriptor_table"),
+    "element_flags": ("dopantgap.elements", "element_flags"),
+    "fill_table": ("dopantgap.fill", "fill_table"),
+    "load_model": ("dopantgap.store", "load_model"),
+    "pick_next": ("dopantgap.picker", "pick_next"),
+    "read_table": ("dopantgap.table", "read_table"),
+    "save_model": ("dopantgap.store", "save_model"),
+    "site_preference": ("dopantgap.sites", "site_preference"),
+    "to_wide": ("dopantgap.table", "to_wide"),
+    "write_table": ("dopantgap.table", "write_table"),
     "build_report": ("dopantgap.report", "build_report"),
     "element_breakdown": ("dopantgap.breakdown", "element_breakdown"),
     "explain_model": ("dopantgap.explain", "explain_model"),
@@ -71,5 +78,11 @@ def __getattr__(name):
         import importlib
 
         module, attribute = _LAZY[name]
-        return getattr(importlib.import_module(module), attribute)
+        value = getattr(importlib.import_module(module), attribute)
+        globals()[name] = value  # looked up once
+        return value
     raise AttributeError(f"module 'dopantgap' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))

@@ -1,4 +1,4 @@
-"""Replay a finished campaign: would the picker have found the answers sooner than chance?
+"""Replay finished rounds of calculations: would the picker have found the answers sooner than chance?
 
 On a table the user has already completed, part of it is hidden, a surrogate learns
 the rest, and calculations are "run" round by round by revealing hidden values: once
@@ -8,7 +8,7 @@ curves show how fast each strategy brings the hidden cells within reach.
 
 Hiding rule
 -----------
-It mimics a real campaign: the cheap level is known everywhere, the expensive level
+It mimics real rounds of calculations: the cheap level is known everywhere, the expensive level
 for a few elements. With ``method`` the level replayed (default the most costly in ``cost``;
 without costs the last of :func:`dopantgap.surrogate.order_levels`): a seeded ``keep_fraction``
 (default 20 %, at least 2 and at most all but one) of the elements that have cells of
@@ -59,7 +59,7 @@ from sklearn.base import clone
 
 from dopantgap.atomic import write_text_atomic
 from dopantgap.reproducible import canonical_order, seed_integer
-from dopantgap.campaign import DECIDED_PROBABILITY
+from dopantgap.rounds import DECIDED_PROBABILITY
 from dopantgap.errors import DopantgapError
 from dopantgap.sites import site_preference, site_quantities
 from dopantgap.surrogate import Surrogate, order_levels

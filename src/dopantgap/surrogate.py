@@ -59,7 +59,7 @@ _MIN_ELEMENTS_FOR_RESIDUAL = 3
 # demo table, no benchmark script: 30 left the out-of-fold errors within 1 % of 80).
 _OPTIMISER_ITERATIONS = 80
 _FOLD_OPTIMISER_ITERATIONS = 30
-# A refreshed model (campaign rounds, replay) re-optimises a stage's hyperparameters once
+# A refreshed model (recorded rounds, replay) re-optimises a stage's hyperparameters once
 # it has this many times the rows they were optimised on (common practice, no source:
 # hyperparameters fitted on a handful of elements go stale as the stage grows; measured
 # in benchmarks/bench_replay.py on the invented demo world: a replay that never
@@ -414,7 +414,7 @@ class Surrogate(BaseEstimator):
         The learner kept, the Gaussian processes' hyperparameters and the interval
         calibration are carried over; every stage is conditioned on the new table's
         cells. A stage that has grown past ``_REOPTIMISE_GROWTH`` (1.25) times the rows
-        its hyperparameters were optimised on gets them optimised anew. Seconds instead of a full ``fit``: meant for campaign rounds and
+        its hyperparameters were optimised on gets them optimised anew. Seconds instead of a full ``fit``: meant for recorded rounds and
         replays, where a table grows by a few cells at a time. Refit in full when the
         table has changed much (the calibration describes the old one).
 

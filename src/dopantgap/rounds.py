@@ -1,20 +1,20 @@
-"""Campaign rounds: merge new results into the table and keep a record of each round.
+"""Rounds: merge new results into the table and keep a record of each round.
 
-A campaign grows a table round by round: pick cells to compute, compute them, add the
+A table grows round by round: pick cells to compute, compute them, add the
 results. :func:`add_results` merges results into a table with provenance (see
 :func:`dopantgap.table.merge_results`: the ``source`` column; rows of a table that had
 none get ``"original"``, new rows get the label). Earlier values, rows and extra columns
 are never changed or dropped; a result that contradicts an earlier value is refused.
 
-The default label is the results file's name (``results_march.csv``) when no campaign
-folder is used, and ``"round K"`` inside a campaign folder.
+The default label is the results file's name (``results_march.csv``) when no rounds
+folder is used, and ``"round K"`` inside a rounds folder.
 
-Campaign folder layout
-----------------------
+Rounds folder layout
+--------------------
 ::
 
-    CAMPAIGN_DIR/
-      round_0/            the table the campaign started from (written by the first add)
+    ROUNDS_DIR/
+      round_0/            the table the rounds started from (written by the first add)
         table.csv
         metrics.json
       round_1/            one folder per add, numbered from 1
@@ -38,7 +38,7 @@ calibration of the given model kept):
   more sites) whose most probable lowest site has ``p_lowest > 0.9``
   (:func:`dopantgap.sites.site_preference`), overall and per method.
 
-:func:`campaign_history` reads these files back; rounds recorded without a model get
+:func:`rounds_history` reads these files back; rounds recorded without a model get
 their figures computed then, if a model is given to it, the same way.
 """
 
@@ -55,7 +55,6 @@ from dopantgap.reproducible import seed_integer
 from dopantgap.sites import site_preference
 from dopantgap.table import (
     KEY_COLUMNS,
-    PROVENANCE_COLUMN,
     merge_results,
     read_table,
     table_hash,
@@ -66,19 +65,19 @@ __all__ = [
     "DECIDED_PROBABILITY",
     "METRICS_NAME",
     "add_results",
-    "add_to_campaign",
-    "campaign_history",
-    "campaign_rounds",
     "decided_preferences",
     "history_costs_are_counts",
     "history_text",
+    "record_round",
+    "round_folders",
     "round_metrics",
+    "rounds_history",
 ]
 
 #: A site preference counts as decided above this probability (common practice, no source).
 DECIDED_PROBABILITY = 0.9
 METRICS_NAME = "metrics.json"
-_FORMAT = "dopantgap-campaign-round"
+_FORMAT = "dopantgap-round"
 _ROUND = re.compile(r"round_(\d+)")
 
 
@@ -198,8 +197,8 @@ def round_metrics(surrogate, random_state=0):
 # ------------------------------------------------------------------ the folder
 
 
-def campaign_rounds(campaign_dir):
-    """The complete round folders of a campaign, as (round number, folder), in order.
+def round_folders(rounds_dir):
+    """The complete round folders in ``rounds_dir``, as (round number, folder), in order.
 
     Raises
     ------
@@ -207,11 +206,11 @@ def campaign_rounds(campaign_dir):
         For a round folder without ``metrics.json`` (an interrupted add) or a gap in the
         numbering.
     """
-    folder = Path(campaign_dir)
+    folder = Path(rounds_dir)
     if not folder.exists():
         return []
     if not folder.is_dir():
-        raise DopantgapError(f"{folder}: not a folder; give a campaign folder (created by 'dopantgap add --campaign').")
+        raise DopantgapError(f"{folder}: not a folder; give a rounds folder (created by 'dopantgap add --rounds-dir').")
     rounds = []
     for child in folder.iterdir():
         match = _ROUND.fullmatch(child.name)
@@ -222,7 +221,7 @@ def campaign_rounds(campaign_dir):
         if number != expected:
             raise DopantgapError(
                 f"{folder}: round folders jump to {child.name} after round_{expected - 1}; "
-                f"a campaign's rounds are numbered 0, 1, 2 ... without gaps."
+                f"rounds are numbered 0, 1, 2 ... without gaps."
             )
         if not (child / METRICS_NAME).is_file():
             raise DopantgapError(
@@ -239,7 +238,7 @@ def _read_metrics(round_dir):
     except (UnicodeDecodeError, json.JSONDecodeError) as error:
         raise DopantgapError(f"{path}: not readable ({error}); remove the round folder and add the round again.") from error
     if not isinstance(metrics, dict) or metrics.get("format") != _FORMAT:
-        raise DopantgapError(f"{path}: not a dopantgap campaign round file.")
+        raise DopantgapError(f"{path}: not a dopantgap round file.")
     return metrics
 
 
@@ -276,9 +275,9 @@ def _write_round(round_dir, number, table, label, new_cells, cost, cost_spent_be
     return metrics
 
 
-def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
+def record_round(rounds_dir, table, results, source=None, picks_path=None,
                     surrogate=None, model_label=None, cost=None, out_path=None, random_state=0):
-    """Merge results into the table and record the round in a campaign folder.
+    """Merge results into the table and record the round in a rounds folder.
 
     The first add to a folder also writes ``round_0`` with ``table`` as given. Later adds
     must start from the latest round's table (same :func:`table_hash`), so that the
@@ -286,8 +285,8 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
 
     Parameters
     ----------
-    campaign_dir : str or Path
-        Campaign folder (created if needed); layout in the module docstring.
+    rounds_dir : str or Path
+        Rounds folder (created if needed); layout in the module docstring.
     table, results : DataFrame
         As for :func:`add_results`; ``results`` should come from ``read_table`` so that
         its file can be copied into the round folder.
@@ -304,7 +303,7 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
         Method -> cost of one cell; methods not named cost 1.
     out_path : str or Path or None, default=None
         Where to write the merged table, after the merge succeeded and before the round
-        folder is written (so a failed write leaves the campaign as it was).
+        folder is written (so a failed write leaves the rounds folder as it was).
     random_state : None, int, RandomState or Generator, default=0
         Seed of the site-preference draws (``reproducible.seed_integer``, checked
         before any work).
@@ -315,15 +314,15 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
     round_dir : Path
     """
     random_state = seed_integer(random_state)
-    campaign_dir = Path(campaign_dir)
-    rounds = campaign_rounds(campaign_dir)
+    rounds_dir = Path(rounds_dir)
+    rounds = round_folders(rounds_dir)
     if rounds:
         last_number, last_dir = rounds[-1]
         last = _read_metrics(last_dir)
         if last.get("table_sha256") != table_hash(table):
             raise DopantgapError(
-                f"the table given is not the campaign's latest table ({last_dir / 'table.csv'}); "
-                f"add to that table (or the --out table of the last add), or start a new campaign folder."
+                f"the table given is not the latest table of {rounds_dir} ({last_dir / 'table.csv'}); "
+                f"add to that table (or the --out table of the last add), or start a new rounds folder."
             )
         cost_spent = float(last.get("cost_spent") or 0.0)
     else:
@@ -337,7 +336,7 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
     if out_path is not None:
         write_table(merged, out_path)
     if not rounds:
-        _write_round(campaign_dir / "round_0", 0, table, "start", table.iloc[0:0], cost, 0.0,
+        _write_round(rounds_dir / "round_0", 0, table, "start", table.iloc[0:0], cost, 0.0,
                      surrogate, model_label, {}, random_state)
     new_cells = merged.iloc[len(merged) - merged.attrs["n_added"]:]
     files = {}
@@ -345,18 +344,18 @@ def add_to_campaign(campaign_dir, table, results, source=None, picks_path=None,
         files["results.csv"] = str(results["_file"].iat[0])
     if picks_path is not None:
         files["picks.csv"] = str(picks_path)
-    round_dir = campaign_dir / f"round_{number}"
+    round_dir = rounds_dir / f"round_{number}"
     _write_round(round_dir, number, merged, label, new_cells, cost, cost_spent,
                  surrogate, model_label, files, random_state)
     return merged, round_dir
 
 
-def campaign_history(campaign_dir, surrogate=None, random_state=0):
+def rounds_history(rounds_dir, surrogate=None, random_state=0):
     """How uncertainty and decided site preferences evolved, one row per round.
 
     Parameters
     ----------
-    campaign_dir : str or Path
+    rounds_dir : str or Path
     surrogate : Surrogate or None, default=None
         Used only for rounds recorded without a model: their figures are computed now
         with ``surrogate.refreshed(round table)``.
@@ -372,11 +371,11 @@ def campaign_history(campaign_dir, surrogate=None, random_state=0):
         ``mean_std_<method>`` and ``decided_<method>`` per method.
     """
     random_state = seed_integer(random_state)
-    rounds = campaign_rounds(campaign_dir)
+    rounds = round_folders(rounds_dir)
     if not rounds:
         raise DopantgapError(
-            f"{campaign_dir}: no campaign rounds found; record rounds with "
-            f"'dopantgap add TABLE RESULTS.csv --out NEW.csv --campaign {campaign_dir}'."
+            f"{rounds_dir}: no rounds found; record rounds with "
+            f"'dopantgap add TABLE RESULTS.csv --out NEW.csv --rounds-dir {rounds_dir}'."
         )
     rows = []
     methods = []
@@ -421,14 +420,14 @@ def campaign_history(campaign_dir, surrogate=None, random_state=0):
     return history
 
 
-def history_costs_are_counts(campaign_dir):
-    """True when no round of the campaign was given costs (cost spent = cells computed)."""
+def history_costs_are_counts(rounds_dir):
+    """True when no round in the folder was given costs (cost spent = cells computed)."""
     return all(_read_metrics(folder).get("cost_per_cell") in (None, {})
-               for _number, folder in campaign_rounds(campaign_dir))
+               for _number, folder in round_folders(rounds_dir))
 
 
 def history_text(history):
-    """Aligned plain-text table of :func:`campaign_history` output, lines ending ``\\n``."""
+    """Aligned plain-text table of :func:`rounds_history` output, lines ending ``\\n``."""
     methods = [name[len("mean_std_"):] for name in history.columns if name.startswith("mean_std_")]
     headings = ["round", "source", "cells", "new", "cost spent", "mean std eV"]
     headings += [f"std {m} eV" for m in methods] + ["decided sites"]

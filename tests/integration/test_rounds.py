@@ -1,4 +1,4 @@
-"""Campaign rounds: merging results with provenance, the campaign folder, the history."""
+"""Rounds: merging results with provenance, the rounds folder, the history."""
 
 import json
 import struct
@@ -7,17 +7,17 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from dopantgap.campaign import (
-    add_results,
-    add_to_campaign,
-    campaign_history,
-    campaign_rounds,
-    decided_preferences,
-    history_text,
-)
 from dopantgap.cli import main
 from dopantgap.demo import demo_table, demo_world
 from dopantgap.errors import DopantgapError, TableError
+from dopantgap.rounds import (
+    add_results,
+    decided_preferences,
+    history_text,
+    record_round,
+    round_folders,
+    rounds_history,
+)
 from dopantgap.store import load_model
 from dopantgap.table import KEY_COLUMNS, read_table, write_table
 
@@ -125,13 +125,13 @@ def test_cli_bad_input_is_one_line_and_status_2(files, tmp_path, capsys, argumen
     assert error.count("\n") == 1
 
 
-# ----------------------------------------------------------------- campaign folder
+# ----------------------------------------------------------------- rounds folder
 
 
 @pytest.fixture(scope="module")
-def campaign(tmp_path_factory, demo_model_dir):
+def recorded(tmp_path_factory, demo_model_dir):
     """Two rounds on the invented demo table, recorded with the shipped demo model."""
-    folder = tmp_path_factory.mktemp("campaign")
+    folder = tmp_path_factory.mktemp("rounds")
     table_path = folder / "table.csv"
     write_table(demo_table(), table_path)
     world = demo_world().drop(columns="truth")
@@ -141,25 +141,25 @@ def campaign(tmp_path_factory, demo_model_dir):
     write_table(hyb[hyb["element"] == "Fe"], folder / "results_1.csv")
     write_table(hyb[hyb["element"] == "Cu"], folder / "results_2.csv")
     (folder / "picks_1.csv").write_text("element,host,site,method,quantity\nFe,ZnS,sub_Zn,hyb,E_sol\n")
-    campaign_dir = folder / "campaign"
+    rounds_dir = folder / "rounds"
     model = str(demo_model_dir)
     first = main(["add", str(table_path), str(folder / "results_1.csv"), "--out", str(folder / "t1.csv"),
-                  "--campaign", str(campaign_dir), "--picks", str(folder / "picks_1.csv"),
+                  "--rounds-dir", str(rounds_dir), "--picks", str(folder / "picks_1.csv"),
                   "--model", model, "--cost", "gga=1,hyb=30", "--quiet"])
     second = main(["add", str(folder / "t1.csv"), str(folder / "results_2.csv"), "--out", str(folder / "t2.csv"),
-                   "--campaign", str(campaign_dir), "--cost", "gga=1,hyb=30", "--quiet"])
-    return {"folder": folder, "dir": campaign_dir, "status": (first, second), "table": table_path}
+                   "--rounds-dir", str(rounds_dir), "--cost", "gga=1,hyb=30", "--quiet"])
+    return {"folder": folder, "dir": rounds_dir, "status": (first, second), "table": table_path}
 
 
-def test_campaign_folder_layout_and_metrics(campaign):
-    assert campaign["status"] == (0, 0)
-    rounds = campaign_rounds(campaign["dir"])
+def test_rounds_folder_layout_and_metrics(recorded):
+    assert recorded["status"] == (0, 0)
+    rounds = round_folders(recorded["dir"])
     assert [number for number, _ in rounds] == [0, 1, 2]
     assert sorted(p.name for p in rounds[1][1].iterdir()) == ["metrics.json", "picks.csv", "results.csv", "table.csv"]
-    assert (rounds[1][1] / "picks.csv").read_bytes() == (campaign["folder"] / "picks_1.csv").read_bytes()
+    assert (rounds[1][1] / "picks.csv").read_bytes() == (recorded["folder"] / "picks_1.csv").read_bytes()
     metrics = [json.loads((folder / "metrics.json").read_text()) for _, folder in rounds]
-    n_fe = len(read_table(campaign["folder"] / "results_1.csv"))
-    n_cu = len(read_table(campaign["folder"] / "results_2.csv"))
+    n_fe = len(read_table(recorded["folder"] / "results_1.csv"))
+    n_cu = len(read_table(recorded["folder"] / "results_2.csv"))
     assert [m["n_new_cells"] for m in metrics] == [0, n_fe, n_cu]
     assert [m["cost_spent"] for m in metrics] == [0.0, 30.0 * n_fe, 30.0 * (n_fe + n_cu)]
     # with a model: figures recorded; the second round had none given
@@ -170,17 +170,17 @@ def test_campaign_folder_layout_and_metrics(campaign):
                                                                "round 2": n_cu}
 
 
-def test_campaign_refuses_a_table_that_is_not_the_latest(campaign, capsys):
-    status = main(["add", str(campaign["table"]), str(campaign["folder"] / "results_2.csv"),
-                   "--out", str(campaign["folder"] / "t3.csv"), "--campaign", str(campaign["dir"])])
+def test_rounds_refuses_a_table_that_is_not_the_latest(recorded, capsys):
+    status = main(["add", str(recorded["table"]), str(recorded["folder"] / "results_2.csv"),
+                   "--out", str(recorded["folder"] / "t3.csv"), "--rounds-dir", str(recorded["dir"])])
     assert status == 2
     error = capsys.readouterr().err
     assert error.count("\n") == 1 and "latest table" in error
-    assert [number for number, _ in campaign_rounds(campaign["dir"])] == [0, 1, 2]
+    assert [number for number, _ in round_folders(recorded["dir"])] == [0, 1, 2]
 
 
-def test_history_prints_a_row_per_round(campaign, capsys):
-    assert main(["history", str(campaign["dir"])]) == 0
+def test_history_prints_a_row_per_round(recorded, capsys):
+    assert main(["history", str(recorded["dir"])]) == 0
     lines = capsys.readouterr().out.splitlines()
     rows = [line for line in lines if line.split() and line.split()[0].isdigit()]
     assert [row.split()[0] for row in rows] == ["0", "1", "2"]
@@ -188,16 +188,16 @@ def test_history_prints_a_row_per_round(campaign, capsys):
     assert "--model" in "\n".join(lines)
 
 
-def test_history_writes_a_png(campaign, tmp_path, capsys, demo_model_dir):
+def test_history_writes_a_png(recorded, tmp_path, capsys, demo_model_dir):
     out = tmp_path / "history.png"
-    assert main(["history", str(campaign["dir"]), "--model", str(demo_model_dir), "--out", str(out)]) == 0
+    assert main(["history", str(recorded["dir"]), "--model", str(demo_model_dir), "--out", str(out)]) == 0
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, W3C 2003, 5.2)
     assert "computed now" in capsys.readouterr().out
 
 
-def test_history_with_a_model_computes_the_missing_round(campaign, demo_model_dir):
+def test_history_with_a_model_computes_the_missing_round(recorded, demo_model_dir):
     surrogate, _ = load_model(demo_model_dir)
-    history = campaign_history(campaign["dir"], surrogate=surrogate)
+    history = rounds_history(recorded["dir"], surrogate=surrogate)
     assert history["figures"].tolist() == ["recorded", "recorded", "computed now"]
     # more hyb cells computed: the mean std of the missing hyb cells does not grow
     assert history["mean_std_hyb"].is_monotonic_decreasing
@@ -216,10 +216,10 @@ def test_decided_counts_rank_one_above_threshold():
     assert decided["element"].tolist() == ["Fe"]  # 0.9 itself is not above 0.9
 
 
-def test_add_to_campaign_refuses_an_incomplete_round(tmp_path):
+def test_record_round_refuses_an_incomplete_round(tmp_path):
     (tmp_path / "round_0").mkdir()
     table = pd.DataFrame([{"element": "Fe", "host": "ZnS", "site": "sub_Zn", "method": "gga",
                            "quantity": "E_sol", "value": 1.0}])
     with pytest.raises(DopantgapError, match="not completed"):
-        add_to_campaign(tmp_path, table, table.assign(element="Cu"))
+        record_round(tmp_path, table, table.assign(element="Cu"))
     assert np.array_equal(table["value"].to_numpy(), [1.0])
