@@ -33,7 +33,6 @@ import time
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from dopantgap.fill import fill_table
 from dopantgap.surrogate import Surrogate

@@ -98,7 +98,15 @@ def _build_parser():
 
     fill = commands.add_parser("fill", help="estimate every missing cell with an interval")
     fill.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
-    fill.add_argument("--out", required=True, metavar="FILLED.csv", help="filled table to write")
+    fill.add_argument(
+        "--out", required=True, metavar="FILLED.csv",
+        help="filled table to write: .csv, or .xlsx for an Excel workbook",
+    )
+    fill.add_argument(
+        "--format", default="long", metavar="long|wide",
+        help="long: one row per cell (default); wide: one row per element, one column per "
+             "host/site/method/quantity with its std, lo, hi and status beside it",
+    )
     fill.add_argument(
         "--elements", default=None, metavar="Ti,V,Cr",
         help="elements to add to those of the table, comma-separated",
@@ -109,7 +117,8 @@ def _build_parser():
     )
     fill.add_argument(
         "--sites-out", default=None, metavar="PATH",
-        help="site preference file (default: site_preference.csv beside FILLED.csv)",
+        help="site preference file, .csv or .xlsx (default: site_preference.csv, or .xlsx for a "
+             "workbook, beside FILLED.csv)",
     )
     fill.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -162,38 +171,42 @@ def _build_parser():
         "explain", help="SHAP values of the model's columns and site choices in element descriptors"
     )
     explain.add_argument("model", metavar="MODEL_DIR", help="model folder written by 'fit'")
-    explain.add_argument("--out", required=True, metavar="DIR", help="folder for the CSV files and figures")
+    explain.add_argument(
+        "--out", required=True, metavar="DIR",
+        help="folder for targets.csv, importance.csv, shap_values.csv, breakdowns.csv and one "
+        "explain_<group>.png per target group (site choices first)",
+    )
     explain.add_argument(
         "--elements", default=None, metavar="Ti,V,Cr",
-        help="elements to break down (default: the table's first 3); new elements are explained too",
+        help="elements to break down in every figure (default: the table's first 3); new elements are explained too",
     )
     explain.add_argument("--seed", type=_seed, default=0, help="seed of the background sample (default: 0)")
     explain.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     add = commands.add_parser(
-        "add", help="merge new results into the table, with provenance; optionally record a campaign round"
+        "add", help="merge new results into the table, with provenance; optionally record the round"
     )
     add.add_argument("table", metavar="TABLE", help="the table so far (CSV or XLSX)")
     add.add_argument("results", metavar="RESULTS.csv", help="new computed cells, long layout")
     add.add_argument("--out", required=True, metavar="NEW_TABLE.csv", help="merged table to write")
     add.add_argument(
         "--source", default=None, metavar="LABEL",
-        help="provenance of the new rows (default: the results file's name; 'round K' with --campaign)",
+        help="provenance of the new rows (default: the results file's name; 'round K' with --rounds-dir)",
     )
     add.add_argument(
-        "--campaign", default=None, metavar="DIR",
-        help="campaign folder: record this round in DIR/round_K (table, results, picks, metrics)",
+        "--rounds-dir", default=None, metavar="DIR",
+        help="rounds folder: record this round in DIR/round_K (table, results, picks, metrics)",
     )
     add.add_argument("--picks", default=None, metavar="NEXT.csv", help="the picks of this round, kept in the round folder")
     add.add_argument(
         "--model", default=None, metavar="MODEL_DIR",
-        help="with --campaign: record predicted uncertainty and decided sites of the round (model relearned on it)",
+        help="with --rounds-dir: record predicted uncertainty and decided sites of the round (model relearned on it)",
     )
     add.add_argument("--cost", default=None, metavar="gga=1,hyb=30", help="cost of one cell per method (default: 1 each)")
     add.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     history = commands.add_parser("history", help="how uncertainty and decided site preferences evolved per round")
-    history.add_argument("campaign", metavar="CAMPAIGN_DIR", help="campaign folder written by 'add --campaign'")
+    history.add_argument("rounds_dir", metavar="ROUNDS_DIR", help="rounds folder written by 'add --rounds-dir'")
     history.add_argument("--out", default=None, metavar="history.png", help="figure to write")
     history.add_argument(
         "--model", default=None, metavar="MODEL_DIR",
@@ -237,7 +250,12 @@ def _build_parser():
     report.add_argument("--elements", default=None, metavar="Ti,V,Cr", help="elements to add to those of the table")
     report.add_argument("--explanations", default=None, metavar="DIR", help="folder written by 'explain'")
     report.add_argument("--picks", default=None, metavar="NEXT.csv", help="picks written by 'next'")
-    report.add_argument("--campaign", default=None, metavar="DIR", help="campaign folder or replay folder")
+    report.add_argument("--rounds-dir", default=None, metavar="DIR", help="rounds folder (from 'add') or replay folder")
+    report.add_argument(
+        "--columns", default=None, metavar="HOST/SITE/METHOD/QUANTITY,...",
+        help="table columns to draw on the periodic table, e.g. ZnS/sub_Zn/hyb/E_sol (default: per host "
+             "and quantity, the site computed for the most elements, at the dearest level)",
+    )
     report.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     demo = commands.add_parser("demo", help="run the whole job on an invented table")
@@ -273,6 +291,17 @@ def _load_model(arguments, folder, say):
 _OUTPUT_OPTIONS = {"out": "--out", "sites_out": "--sites-out"}
 
 
+# store.MANIFEST_NAME, repeated so that a path with no manifest above it is passed without
+# importing store (numpy, pandas, scikit-learn: seconds); a test keeps the two equal
+_MANIFEST_NAME = "manifest.json"
+
+
+def _manifest_above(path):
+    """Whether ``path`` or a folder above it holds a file named like a model manifest."""
+    path = Path(os.path.abspath(path))
+    return any((folder / _MANIFEST_NAME).is_file() for folder in (path, *path.parents))
+
+
 def _refuse_outputs_in_model_folders(arguments):
     """Refuse, before any work, an output inside a model folder: the folder would then
     refuse to load (it holds only the files its manifest lists) or lose a file."""
@@ -280,6 +309,8 @@ def _refuse_outputs_in_model_folders(arguments):
         path = getattr(arguments, attribute, None)
         if path is None or (arguments.command == "fit" and attribute == "out"):
             continue  # fit's --out is a model folder: store.check_model_target judges it
+        if not _manifest_above(path):
+            continue  # no manifest anywhere above: certainly not inside a model folder
         from dopantgap.store import model_folder_containing
 
         folder = model_folder_containing(path)
@@ -401,8 +432,8 @@ def _command_validate(arguments, say):
         "elements; upgrade: expensive cells whose cheap level is computed.")
     say("gp, boost: the learners ('fit' keeps the marked one); 'auto, chosen per fold': the choice "
         "between them judged out of fold (each fold predicted by the learner the other folds chose). "
-        "Baselines are rules one could follow by hand, for comparison; level-shift takes the column "
-        "mean where no cheaper level is computed.")
+        "Baselines are rules one could follow by hand, for comparison; level-shift is listed for "
+        "upgrade only (elsewhere no cheaper level is computed and it would repeat the column mean).")
     say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
     say()
     say(f"Where the kept learner ({result.surrogate.learner_}) fails, element by element "
@@ -426,7 +457,11 @@ def _fill_outputs(arguments, surrogate, manifest, say):
     would destroy the user's own numbers; an existing site preference file beside the
     filled table is replaced only with a note saying so.
     """
-    sites_out = arguments.sites_out or str(Path(arguments.out).with_name("site_preference.csv"))
+    from dopantgap.table import check_output_suffix
+
+    suffix = check_output_suffix(arguments.out, "--out")
+    sites_out = arguments.sites_out or str(Path(arguments.out).with_name(f"site_preference{suffix}"))
+    check_output_suffix(sites_out, "--sites-out")
     inputs = set(surrogate.table_["_file"]) if "_file" in surrogate.table_.columns else set()
     recorded = manifest.get("table") if isinstance(manifest, dict) else None
     source = recorded.get("source") if isinstance(recorded, dict) else None
@@ -451,21 +486,28 @@ def _fill_outputs(arguments, surrogate, manifest, say):
 
 
 def _command_fill(arguments, say):
-    from dopantgap.fill import fill_table, outside_levels, parse_element_list, unfamiliar_elements
+    from dopantgap.fill import (
+        check_fill_format, fill_table, outside_levels, parse_element_list, unfamiliar_elements, wide_filled,
+    )
     from dopantgap.sites import site_preference
-    from dopantgap.table import write_table
+    from dopantgap.table import check_output_suffix, write_table
 
+    layout = check_fill_format(arguments.format)
+    check_output_suffix(arguments.out, "--out")
+    if arguments.sites_out:
+        check_output_suffix(arguments.sites_out, "--sites-out")
     extra = parse_element_list(arguments.elements) if arguments.elements else []
     surrogate, manifest = _load_model(arguments, arguments.model, say)
     sites_out = _fill_outputs(arguments, surrogate, manifest, say)
     filled = fill_table(surrogate, element_symbols=extra, level=arguments.level)
-    write_table(filled, arguments.out)
+    write_table(wide_filled(filled) if layout == "wide" else filled, arguments.out)
     preference = site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))
     write_table(preference, sites_out)
     predicted = filled[filled["status"] == "predicted"]
     say(
         f"{len(filled)} cells: {len(filled) - len(predicted)} computed (unchanged), "
         f"{len(predicted)} predicted with {arguments.level:.0%} intervals -> {arguments.out}"
+        + (f" (wide: {filled['element'].nunique()} element rows)" if layout == "wide" else "")
     )
     for scenario, part in predicted.groupby("scenario"):
         say(f"  {scenario:<12} {len(part):>6} cells, median interval width {float((part['hi'] - part['lo']).median()):.2f} eV")
@@ -580,16 +622,17 @@ def _command_explain(arguments, say):
         )
     explained = time.perf_counter() - started
     out = Path(arguments.out)
-    write_explanation(explanation, out)
+    write_explanation(explanation, out, shown)
     n_targets = len(explanation.targets)
-    with bar(n_targets, "figures", quiet=arguments.quiet) as progress:
+    n_groups = explanation.targets["group"].nunique()
+    with bar(n_groups, "figures", quiet=arguments.quiet) as progress:
         write_figures(explanation, out, shown, progress=progress)
     say(
-        f"{n_targets} targets explained for {n_elements} elements in {explained:.0f} s "
-        f"(SHAP by {explanation.shap_method}, background: {len(explanation.background)} elements "
-        f"of the table); CSV files, "
-        f"summary_*.png and breakdown_*.png of {', '.join(shown)} -> {out} "
-        f"({time.perf_counter() - started:.0f} s in all)"
+        f"{n_targets} targets in {n_groups} groups explained for {n_elements} elements in "
+        f"{explained:.0f} s (SHAP by {explanation.shap_method}, background: "
+        f"{len(explanation.background)} elements of the table); targets.csv, importance.csv, "
+        f"shap_values.csv, breakdowns.csv and one explain_<group>.png per group (breakdowns of "
+        f"{', '.join(shown)}) -> {out} ({time.perf_counter() - started:.0f} s in all)"
     )
     choices = explanation.targets[explanation.targets["kind"] == "site-choice"]["target"]
     listed = list(choices) if len(choices) else list(explanation.targets["target"])
@@ -614,19 +657,23 @@ def _command_explain(arguments, say):
 def _command_report(arguments, say):
     from dopantgap.fill import parse_element_list
     from dopantgap.progress import bar
-    from dopantgap.report import REPORT_STEPS, build_report, read_campaign_folder
+    from dopantgap.report import REPORT_STEPS, build_report, map_columns, read_rounds_folder
 
     extra = parse_element_list(arguments.elements) if arguments.elements else []
     started = time.perf_counter()
     surrogate, manifest = _load_model(arguments, arguments.model, say)
+    columns = None
+    if arguments.columns is not None:
+        columns = [label.strip() for label in arguments.columns.split(",") if label.strip()]
+        map_columns(surrogate.table_, columns)  # an unknown label is refused before any work
     history = replay_curves = None
-    if arguments.campaign:
-        history, replay_curves = read_campaign_folder(arguments.campaign, surrogate=surrogate)
+    if arguments.rounds_dir:
+        history, replay_curves = read_rounds_folder(arguments.rounds_dir, surrogate=surrogate)
     with bar(REPORT_STEPS, "report", quiet=arguments.quiet) as progress:
         path = build_report(
             surrogate, manifest, arguments.out, element_symbols=extra,
             explanation_dir=arguments.explanations, picks=arguments.picks, history=history,
-            replay_curves=replay_curves, progress=progress, model_dir=arguments.model,
+            replay_curves=replay_curves, progress=progress, model_dir=arguments.model, columns=columns,
         )
     size = path.stat().st_size / 1e6
     say(f"Report written: {path} ({size:.1f} MB, {time.perf_counter() - started:.1f} s); open it in a browser.")
@@ -641,7 +688,7 @@ def _command_demo(arguments, say):
     say(f"Demo finished in {time.perf_counter() - started:.0f} s; files in {arguments.out}")
 
 
-def _campaign_number(text, option, minimum, kind=int):
+def _number_option(text, option, minimum, kind=int):
     """A whole (or real) number option, refused with a one-line message."""
     try:
         value = kind(str(text).strip())
@@ -654,19 +701,20 @@ def _campaign_number(text, option, minimum, kind=int):
 
 
 def _command_add(arguments, say):
-    from dopantgap.campaign import add_results, add_to_campaign
+    # options are judged before the heavy imports, so a mistyped command answers at once
+    if arguments.rounds_dir is None and (arguments.picks or arguments.model):
+        raise DopantgapError("--picks and --model are kept in a rounds folder; add --rounds-dir DIR.")
     from dopantgap.picker import parse_cost
+    from dopantgap.rounds import add_results, record_round
     from dopantgap.table import read_table, write_table
 
     cost = parse_cost(arguments.cost) if arguments.cost else None
-    if arguments.campaign is None and (arguments.picks or arguments.model):
-        raise DopantgapError("--picks and --model are kept in a campaign folder; add --campaign DIR.")
     table = read_table(arguments.table)
     results = read_table(arguments.results)
     for notice in table.attrs.get("notices", []) + results.attrs.get("notices", []):
         say(f"note: {notice}")
     table.attrs["notices"] = []
-    if arguments.campaign is None:
+    if arguments.rounds_dir is None:
         merged = add_results(table, results, source=arguments.source)
         write_table(merged, arguments.out)
         round_dir = None
@@ -674,8 +722,8 @@ def _command_add(arguments, say):
         surrogate = None
         if arguments.model:
             surrogate, _manifest = _load_model(arguments, arguments.model, say)
-        merged, round_dir = add_to_campaign(
-            arguments.campaign, table, results, source=arguments.source, picks_path=arguments.picks,
+        merged, round_dir = record_round(
+            arguments.rounds_dir, table, results, source=arguments.source, picks_path=arguments.picks,
             surrogate=surrogate, model_label=arguments.model, cost=cost, out_path=arguments.out,
         )
     for notice in merged.attrs.get("notices", []):
@@ -690,32 +738,33 @@ def _command_add(arguments, say):
 
 
 def _command_history(arguments, say):
-    from dopantgap.campaign import campaign_history, history_costs_are_counts, history_text
+    from dopantgap.rounds import history_costs_are_counts, history_text, rounds_history
 
     surrogate = None
     if arguments.model:
         surrogate, _manifest = _load_model(arguments, arguments.model, say)
-    history = campaign_history(arguments.campaign, surrogate=surrogate)
+    history = rounds_history(arguments.rounds_dir, surrogate=surrogate)
     say(history_text(history).rstrip("\n"))
     if arguments.out:
         from dopantgap import plots
 
-        unit = "calculations" if history_costs_are_counts(arguments.campaign) else "cost units"
+        unit = "calculations" if history_costs_are_counts(arguments.rounds_dir) else "cost units"
         plots.save_png(plots.history_figure(history, cost_unit=unit), arguments.out)
         say(f"Figure -> {arguments.out}")
 
 
 def _command_replay(arguments, say):
+    # options are judged before the heavy imports, so a mistyped number answers at once
+    rounds = _number_option(arguments.rounds, "--rounds", 1)
+    per_round = _number_option(arguments.per_round, "--per-round", 1)
+    seeds = _number_option(arguments.seeds, "--seeds", 1)
+    seed = _number_option(arguments.seed, "--seed", 0)
+    keep = _number_option(arguments.keep_fraction, "--keep-fraction", 0.0, kind=float)
     from dopantgap.picker import parse_cost
     from dopantgap.replay import replay, replay_text, write_replay
     from dopantgap.surrogate import Surrogate
     from dopantgap.table import read_table
 
-    rounds = _campaign_number(arguments.rounds, "--rounds", 1)
-    per_round = _campaign_number(arguments.per_round, "--per-round", 1)
-    seeds = _campaign_number(arguments.seeds, "--seeds", 1)
-    seed = _campaign_number(arguments.seed, "--seed", 0)
-    keep = _campaign_number(arguments.keep_fraction, "--keep-fraction", 0.0, kind=float)
     goals = [goal.strip() for goal in arguments.goal.split(",") if goal.strip()]
     cost = parse_cost(arguments.cost) if arguments.cost else None
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)

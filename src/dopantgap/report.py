@@ -2,18 +2,20 @@
 
 Everything the page needs is inside the file: figures as PNG data URIs, the style
 sheet and a small script (sorting and filtering the filled table). It opens from a
-disk or an e-mail attachment with no network. The page shows the job summary, the
-table's coverage, periodic-table maps of the main columns (value and uncertainty),
-site preferences, explanations (when an explanation folder is given), the
-cross-validation figures, next picks and campaign history when given, the filled table
-and the cautions (radioactive, toxic and extrapolated elements; estimates do not
-replace calculation, experiment or local safety rules).
+disk or an e-mail attachment with no network. The answer comes first: a summary of
+what was learned, how far to trust it (out-of-fold errors and coverage per scenario,
+against the hand rules), the candidates (lowest predicted values of the main columns)
+and the next picks, with the cautions (radioactive, toxic and extrapolated elements;
+estimates do not replace calculation, experiment or local safety rules); then site
+preferences, explanations (site choices first, then binding, then single columns;
+a breakdown of every element asked for), the cross-validation figures (coverage out
+of fold), periodic-table maps of the main columns, the table's coverage, next picks
+and the rounds' history when given, and the filled table. Long parts are folded
+(``<details>``); the maps of a section sit in one row scrolled sideways.
 """
 
-import html
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from dopantgap import elements, plots
@@ -21,6 +23,18 @@ from dopantgap.atomic import write_text_atomic
 from dopantgap.calibration import SCENARIOS
 from dopantgap.errors import DopantgapError
 from dopantgap.fill import fill_table, outside_levels, unfamiliar_elements
+from dopantgap.reporting.explanations import EXPLANATION_FILES, read_explanations
+from dopantgap.reporting.explanations import explanations_html as _explanations
+from dopantgap.reporting.findings import findings_html as _findings
+from dopantgap.reporting.page import (
+    escaped as _text,
+    figure_html as _figure_html,
+    folded as _folded,
+    read_csv as _read_csv,
+    section_html as _section,
+    strip as _strip,
+    table_html as _table,
+)
 from dopantgap.sites import site_preference
 from dopantgap.table import coverage
 
@@ -29,7 +43,9 @@ __all__ = [
     "EXPLANATION_FILES",
     "REPORT_STEPS",
     "build_report",
-    "read_campaign_folder",
+    "column_label",
+    "map_columns",
+    "read_rounds_folder",
     "read_explanations",
     "read_picks",
 ]
@@ -39,24 +55,14 @@ CAUTION = (
     "These numbers are estimates that help choose which calculations to run. They do not "
     "replace calculation, experiment or local safety rules."
 )
-#: Files read from an explanation folder, and the columns each must have.
-EXPLANATION_FILES = {
-    "importance": ("importance.csv", ("target", "feature", "importance")),
-    "shap_values": ("shap_values.csv", ("target", "element", "feature", "feature_value", "shap")),
-    "base_values": ("base_values.csv", ("target", "element", "base_value", "prediction")),
-}
 _HISTORY_COLUMNS = ("round", "mean_std", "decided", "cost_spent")
 _REPLAY_COLUMNS = ("strategy", "seed", "round", "cost_spent", "error", "decided")
 #: Stages of ``build_report`` reported to its ``progress`` callback.
 REPORT_STEPS = 8
-# the page stays readable and small: at most this many main columns get maps,
-# explanation targets get figures, and elements get a breakdown per target; pick rows
-# and figure resolution likewise (all common practice, no source)
+# the page stays readable and small: at most this many main columns get maps; pick
+# rows and figure resolution likewise (all common practice, no source)
 _MAX_MAP_COLUMNS = 6
-_MAX_TARGETS = 4
-_MAX_BREAKDOWNS = 2
 _MAX_PICK_ROWS = 200
-_DPI = 80
 _TAGS = {"radioactive": "R", "toxic": "T", "extrapolated": "X"}
 
 _STYLE = """
@@ -92,6 +98,14 @@ dl.facts dt{font-weight:600}
 dl.facts dd{margin:0;font-family:ui-monospace,monospace;font-size:.9em;word-break:break-all}
 .note{color:#555;font-size:.9em}
 input#filter{padding:.25em .5em;margin:.4em 0;width:22em}
+details{margin:.5em 0}
+.strip{display:flex;overflow-x:auto;scroll-snap-type:x mandatory;gap:1.5em;border-top:1px solid #ccc;border-bottom:1px solid #ccc}
+.strip>.slide{flex:0 0 100%;scroll-snap-align:start;min-width:0}
+.slide-count{float:right;color:#555;font-size:.85em;margin-top:.4em}
+details>summary{cursor:pointer;color:#23395b;font-weight:600;padding:.2em 0}
+.findings{background:#fff;border:1px solid #cfd6e0;border-left:6px solid #23395b;padding:.5em 1.2em;margin-top:1em}
+.findings h3{margin:.5em 0 .2em 0}
+.findings ul{margin:.2em 0 .4em 0}
 """
 
 _SCRIPT = """
@@ -125,53 +139,6 @@ _SCRIPT = """
 
 
 # ----------------------------------------------------------------------------- inputs
-def _read_csv(path, what, option):
-    path = Path(path)
-    if not path.is_file():
-        raise DopantgapError(f"{option} {path}: no such file; give the {what} written by dopantgap.")
-    try:
-        return pd.read_csv(path)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
-        first_line = str(error).splitlines()[0] if str(error) else type(error).__name__
-        raise DopantgapError(f"{option} {path}: not a readable CSV file ({first_line}).") from error
-
-
-def read_explanations(folder):
-    """The three tables of an explanation folder.
-
-    Parameters
-    ----------
-    folder : str or Path
-        Holds ``importance.csv``, ``shap_values.csv`` and ``base_values.csv``.
-
-    Returns
-    -------
-    dict
-        "importance", "shap_values", "base_values" -> DataFrame.
-
-    Raises
-    ------
-    DopantgapError
-        A missing folder or file, or a file without the expected columns.
-    """
-    folder = Path(folder)
-    if not folder.is_dir():
-        raise DopantgapError(
-            f"--explanations {folder}: no such folder; give the folder written by 'dopantgap explain'."
-        )
-    tables = {}
-    for key, (name, columns) in EXPLANATION_FILES.items():
-        frame = _read_csv(folder / name, "explanation file", "--explanations")
-        missing = [column for column in columns if column not in frame.columns]
-        if missing:
-            raise DopantgapError(
-                f"--explanations {folder / name}: lacks the column(s) {', '.join(missing)}; "
-                f"expected {', '.join(columns)}."
-            )
-        tables[key] = frame
-    return tables
-
-
 def read_picks(path):
     """A next-picks CSV (as written by ``dopantgap next``) as a DataFrame.
 
@@ -190,11 +157,11 @@ def read_picks(path):
     return picks
 
 
-def read_campaign_folder(folder, surrogate=None):
-    """Campaign history and replay curves found in a folder.
+def read_rounds_folder(folder, surrogate=None):
+    """History of the rounds and replay curves found in a folder.
 
-    A campaign folder (round_0, round_1 ... written by ``dopantgap add --campaign``)
-    gives the history through ``campaign.campaign_history``; a replay folder (its
+    A rounds folder (round_0, round_1 ... written by ``dopantgap add --rounds-dir``)
+    gives the history through ``rounds.rounds_history``; a replay folder (its
     ``curves.csv``) or any CSV with the columns strategy, seed, round, cost_spent,
     error, decided gives replay curves; a CSV with round, mean_std, decided,
     cost_spent is taken as a history too.
@@ -215,15 +182,15 @@ def read_campaign_folder(folder, surrogate=None):
     DopantgapError
         No such folder, or nothing of either kind in it.
     """
-    from dopantgap.campaign import campaign_history, campaign_rounds
+    from dopantgap.rounds import round_folders, rounds_history
 
     folder = Path(folder)
     if not folder.is_dir():
-        raise DopantgapError(f"--campaign {folder}: no such folder.")
-    history = campaign_history(folder, surrogate=surrogate) if campaign_rounds(folder) else None
+        raise DopantgapError(f"--rounds-dir {folder}: no such folder.")
+    history = rounds_history(folder, surrogate=surrogate) if round_folders(folder) else None
     histories, curves = [], []
     for path in sorted(folder.glob("*.csv")):
-        frame = _read_csv(path, "campaign file", "--campaign")
+        frame = _read_csv(path, "rounds file", "--rounds-dir")
         if all(column in frame.columns for column in _REPLAY_COLUMNS):
             curves.append(frame)
         elif all(column in frame.columns for column in _HISTORY_COLUMNS):
@@ -232,7 +199,7 @@ def read_campaign_folder(folder, surrogate=None):
         history = histories[0]
     if history is None and not curves:
         raise DopantgapError(
-            f"--campaign {folder}: neither a campaign folder (round_0, round_1 ...) nor a folder "
+            f"--rounds-dir {folder}: neither a rounds folder (round_0, round_1 ...) nor a folder "
             f"with a CSV of columns {', '.join(_HISTORY_COLUMNS)} (history) or "
             f"{', '.join(_REPLAY_COLUMNS)} (replay curves, e.g. 'dopantgap replay' output)."
         )
@@ -241,54 +208,6 @@ def read_campaign_folder(folder, surrogate=None):
 
 
 # ----------------------------------------------------------------------------- html helpers
-def _text(value):
-    return html.escape(str(value), quote=True)
-
-
-def _cell(value, digits=3):
-    if isinstance(value, (bool, np.bool_)):
-        return "<td>" + ("yes" if value else "no") + "</td>"
-    if isinstance(value, (int, np.integer)):
-        return f'<td class="num">{int(value)}</td>'
-    if isinstance(value, (float, np.floating)):
-        if not np.isfinite(value):
-            return "<td></td>"
-        return f'<td class="num">{float(value):.{digits}f}</td>'
-    if value is None or (isinstance(value, float) and np.isnan(value)):
-        return "<td></td>"
-    return f"<td>{_text(value)}</td>"
-
-
-def _table(frame, table_id=None, sortable=False, row_classes=None, digits=3):
-    attributes = []
-    if table_id:
-        attributes.append(f'id="{table_id}"')
-    if sortable:
-        attributes.append('class="sortable"')
-    head = "".join(f"<th>{_text(column)}</th>" for column in frame.columns)
-    lines = [f"<table {' '.join(attributes)}><thead><tr>{head}</tr></thead><tbody>"]
-    classes = [""] * len(frame) if row_classes is None else list(row_classes)
-    for row, extra in zip(frame.itertuples(index=False, name=None), classes):
-        opening = f'<tr class="{extra}">' if extra else "<tr>"
-        lines.append(opening + "".join(_cell(value, digits) for value in row) + "</tr>")
-    lines.append("</tbody></table>")
-    return "\n".join(lines)
-
-
-def _figure_html(figure, caption, alt):
-    """A figure as an inline image with its caption; ``caption`` and ``alt`` are plain
-    text (user labels welcome: they are escaped here, not by each caller)."""
-    uri = plots.figure_to_data_uri(figure, dpi=_DPI)
-    return (
-        f'<figure><img src="{uri}" alt="{_text(alt)}">'
-        f"<figcaption>{_text(caption)}</figcaption></figure>"
-    )
-
-
-def _section(section_id, title, body):
-    return f'<section id="{section_id}"><h2>{_text(title)}</h2>\n{body}\n</section>'
-
-
 # ----------------------------------------------------------------------------- content
 def _is_invented(table):
     if "note" not in table.columns:
@@ -308,6 +227,51 @@ def _main_columns(table, levels):
     return chosen[:_MAX_MAP_COLUMNS]
 
 
+def column_label(host, site, method, quantity):
+    """The label of a table column in ``--columns``: ``host/site/method/quantity``."""
+    return f"{host}/{site}/{method}/{quantity}"
+
+
+def map_columns(table, labels):
+    """The columns named by ``--columns`` labels, in the order given.
+
+    Parameters
+    ----------
+    table : DataFrame
+        The model's table (element, host, site, method, quantity, ...).
+    labels : sequence of str
+        ``host/site/method/quantity`` labels (:func:`column_label`).
+
+    Returns
+    -------
+    list of (host, site, method, quantity)
+
+    Raises
+    ------
+    DopantgapError
+        A label that names no column of the table (one line naming the valid ones).
+    """
+    known = {
+        column_label(*column): column
+        for column in table[["host", "site", "method", "quantity"]].drop_duplicates().itertuples(index=False, name=None)
+    }
+    chosen = []
+    for label in labels:
+        label = str(label).strip()
+        if label not in known:
+            raise DopantgapError(
+                f"--columns {label}: no such column in the model's table; give host/site/method/quantity, "
+                f"one of: {', '.join(known)}."
+            )
+        if known[label] not in chosen:
+            chosen.append(known[label])
+    if not chosen:
+        raise DopantgapError(
+            f"--columns: no column named; give host/site/method/quantity, one of: {', '.join(known)}."
+        )
+    return chosen
+
+
 def _tags(flags, extrapolated):
     tags = {}
     for symbol, row in flags.iterrows():
@@ -324,10 +288,12 @@ def _tags(flags, extrapolated):
 
 
 _TAG_CAPTION = (
-    "Corner letters: R radioactive, T toxic, X outside the training data (no element of its "
-    "block in the table, or farther from every table element than the domain limit). Colour "
-    "maps cividis (values) and viridis (uncertainty) keep their order in grey."
+    "Letters in a tile's corner: R radioactive, T toxic, X outside the training data (no element "
+    "of its block in the table, or farther from every table element than the domain limit)."
 )
+# maps are drawn wider and sharper than the other figures: their tile text must read at
+# 1400 px (plots.maps.MAP_WIDTH_INCHES x _MAP_DPI = 1300 px natural width)
+_MAP_DPI = 100
 
 
 def _summary(surrogate, manifest, model_dir, filled, level, invented):
@@ -356,9 +322,9 @@ def _summary(surrogate, manifest, model_dir, filled, level, invented):
         ("seed", manifest.get("seed", surrogate.random_state)),
         ("versions", ", ".join(f"{name} {version}" for name, version in sorted(versions.items()))),
     ]
-    lines.append('<dl class="facts">' + "".join(
+    lines.append(_folded("Model folder, table hash, levels, learner, seed and versions", '<dl class="facts">' + "".join(
         f"<dt>{_text(name)}</dt><dd>{_text(value)}</dd>" for name, value in facts
-    ) + "</dl>")
+    ) + "</dl>"))
     return "\n".join(lines)
 
 
@@ -419,83 +385,125 @@ def _coverage(table):
     )
 
 
-def _maps(filled, columns, tags):
-    parts = []
+def _map_html(figure, caption, alt):
+    """A periodic-table map as a full-width image with its caption.
+
+    ``data-tile-text-px`` is the map's smallest tile font in the PNG's own pixels
+    (points x dpi / 72): the size a reader sees is that times the image's displayed
+    width over its natural width (the browser test measures both).
+    """
+    text_px = figure.tile_text_points_ * _MAP_DPI / 72.0
+    uri = plots.figure_to_data_uri(figure, dpi=_MAP_DPI)
+    return (
+        f'<figure class="map"><img src="{uri}" alt="{_text(alt)}" data-tile-text-px="{text_px:.2f}">'
+        f"<figcaption>{_text(caption)}</figcaption></figure>"
+    )
+
+
+def _maps_rule(table, columns, levels, chosen_by_user):
+    """Why these columns have maps: the rule that picked them, and how to pick others."""
+    n_columns = len(table[["host", "site", "method", "quantity"]].drop_duplicates())
+    labels = ", ".join(f"<code>{_text(column_label(*column))}</code>" for column in columns)
+    if chosen_by_user:
+        return (
+            f"<p>Maps of the {len(columns)} column(s) chosen with <code>--columns</code>, in the order "
+            f"given: {labels} (the table has {n_columns}).</p>"
+        )
+    n_pairs = len(table[["host", "quantity"]].drop_duplicates())
+    capped = f" (the first {_MAX_MAP_COLUMNS} of {n_pairs})" if n_pairs > _MAX_MAP_COLUMNS else ""
+    example = next(
+        (column_label(*column) for column in table[["host", "site", "method", "quantity"]]
+         .drop_duplicates().itertuples(index=False, name=None) if column not in columns),
+        column_label(*columns[0]),
+    )
+    return (
+        f"<p>Why these columns: for each host and quantity{capped}, the site computed for the most "
+        f"elements, at the dearest level computed there ({_text(levels[-1])} is the dearest of "
+        f"{_text(' < '.join(levels))}). That gives {len(columns)} of the table's {n_columns} columns: "
+        f"{labels}. Choose others with <code>dopantgap report MODEL_DIR --columns "
+        f"HOST/SITE/METHOD/QUANTITY,...</code>, e.g. <code>--columns {_text(example)}</code>.</p>"
+    )
+
+
+def _maps(filled, columns, tags, table=None, levels=(), chosen_by_user=False):
+    parts = [] if table is None else [_maps_rule(table, columns, list(levels), chosen_by_user)]
     for host, site, method, quantity in columns:
         column = plots.column_values(filled, host, site, method, quantity)
         name = f"{quantity}, {host} {site}, {method}"
-        value_figure = plots.periodic_map(
-            column["value"], f"{name}: value", computed=column["computed"], tags=tags
+        figure = plots.periodic_map(
+            column["value"], name, computed=column["computed"], tags=tags, spread=column["std"],
+            outside=column["outside"],
         )
-        spread_figure = plots.spread_map(column, f"{name}: uncertainty (1 std)", tags=tags)
-        parts.append(f"<h3>{_text(name)}</h3><div class=\"pair\">")
-        parts.append(_figure_html(
-            value_figure,
-            f"Value (eV) of {name}. Bold frame: computed; thin dashed frame: predicted; grey: "
-            f"not in the table or the request. {_TAG_CAPTION}",
-            f"periodic table map of {name}",
+        scale = figure.spread_scale_
+        parts.append(f"<h3>{_text(name)}</h3>")
+        parts.append(_map_html(
+            figure,
+            f"Fill: the value (eV) of {name}, read on the colour strip under the table (cividis: its "
+            f"order holds in grey). A predicted tile prints its calibrated standard deviation as "
+            f"'± std' and draws it as the bar along its foot (a full bar is {scale:g} eV). Thick solid "
+            f"frame: computed, the table's own value; thick dashed frame: predicted for an element "
+            f"unlike those computed at {method} (outside the domain of the level); outline only: not "
+            f"in the table or the request. {_TAG_CAPTION}",
+            f"periodic table map of {name} with its uncertainty",
         ))
-        parts.append(_figure_html(
-            spread_figure,
-            "Calibrated standard deviation (eV) of the same column; computed cells have none.",
-            f"periodic table map of the uncertainty of {name}",
-        ))
-        parts.append("</div>")
     return "\n".join(parts)
+
+
+def _site_agreement(preference, host, quantity, methods):
+    """One sentence: where the cheapest and the dearest level disagree on the lowest site."""
+    if len(methods) < 2:
+        return ""
+    best = preference[
+        (preference["host"] == host) & (preference["quantity"] == quantity) & (preference["rank"] == 1)
+    ].drop_duplicates(["element", "method"])
+    sites = best.pivot(index="element", columns="method", values="site")
+    cheap, dear = methods[0], methods[-1]
+    differ = sites[sites[cheap] != sites[dear]]
+    if len(differ) == 0:
+        return (
+            f"<p>{_text(cheap)} and {_text(dear)} name the same most probable site for every "
+            f"element shown.</p>"
+        )
+    listed = ", ".join(
+        f"<b>{_text(element)}</b> ({_text(row[cheap])} at {_text(cheap)}, {_text(row[dear])} at {_text(dear)})"
+        for element, row in differ.iterrows()
+    )
+    return (
+        f"<p>{_text(cheap)} and {_text(dear)} name different most probable sites for "
+        f"{len(differ)} element(s): {listed}. The dearer level is usually the one to trust; "
+        f"computing it for these elements settles the question.</p>"
+    )
 
 
 def _site_maps(preference, surrogate, tags):
     if len(preference) == 0:
         return "<p>No quantity has two or more sites in a host: there is no site choice to show.</p>"
-    parts = []
+    parts = [(
+        "<p>One map per host, quantity and level, cheapest level first, so the levels can be "
+        "compared: a site choice that changes between levels is one the cheap level cannot settle.</p>"
+    )]
     keys = preference[["host", "quantity", "method"]].drop_duplicates()
     for (host, quantity), rows in keys.groupby(["host", "quantity"], sort=False):
         methods = [level for level in surrogate.levels_ if level in set(rows["method"])]
-        method = methods[-1]
-        figure = plots.site_preference_map(preference, host, method, quantity, tags=tags)
-        parts.append(_figure_html(
-            figure,
-            f"Most probable lowest site of {quantity} in {host} at {method}, "
-            "from 4000 joint draws of each element's sites. Colour, hatch and letter name the site; "
-            f"a pale box means the choice is uncertain. {_TAG_CAPTION}",
-            f"site preference map of {host}",
-        ))
-    return "\n".join(parts)
-
-
-def _explanations(explanations, element_symbols):
-    if explanations is None:
-        return (
-            "<p>No explanations in this report. Run <code>dopantgap explain</code> on this model "
-            "folder (see <code>dopantgap explain --help</code>) and pass its output folder with "
-            "<code>--explanations DIR</code>.</p>"
-        )
-    importance = explanations["importance"]
-    shap_values = explanations["shap_values"]
-    base_values = explanations["base_values"]
-    parts = [
-        "<p>SHAP values (Lundberg &amp; Lee 2017) split each prediction into a base value plus one "
-        "shift per feature; the shifts add up to the prediction.</p>"
-    ]
-    targets = list(dict.fromkeys(importance["target"].astype(str)))[:_MAX_TARGETS]
-    for target in targets:
-        parts.append(f"<h3>{_text(target)}</h3>")
-        parts.append(_figure_html(
-            plots.importance_figure(importance, shap_values, target),
-            "Bars: mean |SHAP value| of each feature (eV). Dots: each element's shift, coloured by "
-            "the feature's value.",
-            f"feature importance for {target}",
-        ))
-        bases = base_values[base_values["target"].astype(str) == target]
-        chosen = [symbol for symbol in element_symbols if symbol in set(bases["element"])]
-        if not chosen and len(bases):
-            shift = (bases["prediction"] - bases["base_value"]).abs()
-            chosen = [bases["element"].iat[int(np.argmax(shift.to_numpy()))]]
-        for symbol in chosen[:_MAX_BREAKDOWNS]:
-            parts.append(_figure_html(
-                plots.breakdown_figure(shap_values, base_values, target, symbol),
-                f"How the prediction of {symbol} is built from the base value, step by step.",
-                f"prediction breakdown of {symbol} for {target}",
+        parts.append(f"<h3>{_text(quantity)} in {_text(host)}</h3>")
+        parts.append(_site_agreement(preference, host, quantity, methods))
+        for position, method in enumerate(methods):
+            if len(methods) == 1:
+                role = "the only level"
+            elif position == 0:
+                role = "the cheapest level"
+            elif position == len(methods) - 1:
+                role = "the dearest level"
+            else:
+                role = "an intermediate level"
+            figure = plots.site_preference_map(preference, host, method, quantity, tags=tags)
+            parts.append(_map_html(
+                figure,
+                f"Most probable lowest site of {quantity} in {host} at {method} ({role}), from 4000 "
+                "joint draws of each element's sites. Colour, hatch and letter name the site; the "
+                "number after the letter and the bar along the tile's foot are the probability that it "
+                f"is the lowest (a pale tile: less sure). {_TAG_CAPTION}",
+                f"site preference map of {host} at {method}",
             ))
     return "\n".join(parts)
 
@@ -519,6 +527,27 @@ def _baseline_comparison(manifest):
     )
 
 
+def _calibration_html(surrogate):
+    """Out-of-fold coverage, as ``validate`` draws it: each fold's hidden cells judged by
+    the widths the other folds give; in-sample curves meet the diagonal by construction."""
+    residuals = surrogate.cv_residuals_
+    if "fold" in residuals.columns:
+        return _figure_html(
+            plots.calibration_figure(residuals, surrogate.calibration_, out_of_fold=True),
+            "Out of fold (as 'dopantgap validate' draws it): the share of hidden cells inside their "
+            "central interval at each level, each fold's cells judged by interval widths calibrated "
+            "on the other folds only, so the curves test the calibration instead of repeating it. "
+            "Solid: calibrated; dotted: raw Gaussian; on the diagonal is honest.",
+            "out-of-fold interval coverage against nominal level",
+        )
+    return _figure_html(
+        plots.calibration_figure(residuals, surrogate.calibration_),
+        "In sample (this model folder records no folds, so no out-of-fold test is possible): the "
+        "calibrated curve meets the nominal levels by construction. Refit to get the out-of-fold figure.",
+        "in-sample interval coverage against nominal level",
+    )
+
+
 def _validation(surrogate, manifest=None):
     metrics = surrogate.cv_metrics_.copy()
     metrics = metrics.rename(columns={
@@ -532,20 +561,16 @@ def _validation(surrogate, manifest=None):
         "(new-cell); the model was refitted on the rest and predicted what was hidden. The "
         "calibrated coverage is cross-conformal: each fold's cells are judged by the interval "
         "widths the other folds' residuals give.</p>",
-        _table(metrics, digits=3),
-        _baseline_comparison(manifest),
+        _table(metrics[metrics["quantity"] == "all"].reset_index(drop=True), digits=3),
+        _folded("Per quantity", _table(metrics, digits=3)),
+        _folded("Learners against hand rules (baselines)", _baseline_comparison(manifest)),
         '<div class="pair">',
         _figure_html(
             plots.parity_figure(surrogate.cv_residuals_, calibration=surrogate.calibration_),
             "Hidden cells: predicted against computed (eV), error bars 1 calibrated std.",
             "parity plot of cross-validated predictions",
         ),
-        _figure_html(
-            plots.calibration_figure(surrogate.cv_residuals_, surrogate.calibration_),
-            "Share of hidden cells inside their central interval at each level; solid: calibrated, "
-            "dotted: raw Gaussian.",
-            "interval coverage against nominal level",
-        ),
+        _calibration_html(surrogate),
         "</div>",
     ]
     return "\n".join(parts)
@@ -554,16 +579,20 @@ def _validation(surrogate, manifest=None):
 def _picks(picks):
     shown = picks.head(_MAX_PICK_ROWS)
     more = f"<p class=\"note\">First {_MAX_PICK_ROWS} of {len(picks)} rows.</p>" if len(picks) > _MAX_PICK_ROWS else ""
-    return "<p>The calculations proposed next, as given in the picks file.</p>" + _table(shown, sortable=True) + more
+    body = _table(shown, sortable=True) + more
+    return "<p>The calculations proposed next, as given in the picks file.</p>" + _folded(
+        f"Show the {len(shown)} picks", body, open_=len(shown) <= 10
+    )
 
 
-def _campaign(history, replay_curves):
+def _rounds(history, replay_curves):
     parts = []
     if history is not None:
         parts.append(_figure_html(
             plots.history_figure(history),
-            "Mean predicted standard deviation (eV), site questions decided (P > 0.9) and cost spent after each round.",
-            "campaign history",
+            "Left: mean predicted standard deviation (eV) of the missing cells against the cost spent, "
+            "each point a round. Right: site questions decided (P > 0.9) after each round.",
+            "history of the rounds",
         ))
     if replay_curves is not None:
         parts.append(_figure_html(
@@ -602,7 +631,8 @@ def _filled_table(filled, extrapolated):
 
 # ----------------------------------------------------------------------------- entry point
 def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_dir=None, picks=None,
-                 history=None, replay_curves=None, progress=None, model_dir=None, level=0.9):
+                 history=None, replay_curves=None, progress=None, model_dir=None, level=0.9,
+                 columns=None):
     """Write one self-contained HTML report of a fitted model.
 
     Parameters
@@ -620,7 +650,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
     picks : DataFrame, str, Path or None, default=None
         Next picks, shown as a table.
     history, replay_curves : DataFrame or None, default=None
-        Campaign history (round, mean_std, decided, cost_spent) and replay curves
+        History of the rounds (round, mean_std, decided, cost_spent) and replay curves
         (strategy, seed, round, cost_spent, error, decided).
     progress : callable or None, default=None
         Called with 1 after each of ``REPORT_STEPS`` stages (e.g. ``progress.bar``).
@@ -628,6 +658,10 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         Shown in the summary.
     level : float, default=0.9
         Probability content of the filled table's intervals.
+    columns : sequence of str or None, default=None
+        ``host/site/method/quantity`` labels of the columns to map (``--columns``);
+        None: per host and quantity, the site computed for the most elements at the
+        dearest level (at most six).
 
     Returns
     -------
@@ -640,6 +674,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         picks = read_picks(picks)
     table = surrogate.table_
     element_symbols = list(element_symbols or ())
+    chosen_columns = map_columns(table, columns) if columns is not None else _main_columns(table, surrogate.levels_)
 
     filled = fill_table(surrogate, element_symbols=element_symbols, level=level)
     shown_elements = list(dict.fromkeys(filled["element"]))
@@ -652,23 +687,29 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
     step(1)
 
     invented = _is_invented(table)
+    # the answer first (findings, site choice and what drives it, how far to trust it),
+    # the maps and the table's coverage after; long parts folded
     sections = [
-        ("summary", "What was done", _summary(surrogate, manifest, model_dir, filled, level, invented)
+        ("summary", "What was done",
+         _summary(surrogate, manifest, model_dir, filled, level, invented)
+         + _findings(surrogate, manifest, filled, preference, picks, chosen_columns, extrapolated)
          + _cautions(surrogate, flags, extrapolated, level, outside)),
-        ("coverage", "What the table covers", _coverage(table)),
-        ("maps", "Main columns on the periodic table", _maps(filled, _main_columns(table, surrogate.levels_), tags)),
     ]
     step(1)
-    sections.append(("sites", "Site preference", _site_maps(preference, surrogate, tags)))
+    sections.append(("sites", "Site preference", _strip(_site_maps(preference, surrogate, tags), "map")))
     step(1)
     sections.append(("explanations", "What drives the predictions", _explanations(explanations, element_symbols)))
     step(1)
     sections.append(("validation", "How well the error bars hold", _validation(surrogate, manifest)))
     step(1)
+    sections.append(("maps", "Main columns on the periodic table", _strip(
+        _maps(filled, chosen_columns, tags, table, surrogate.levels_, chosen_by_user=columns is not None), "map")))
+    sections.append(("coverage", "What the table covers", _folded("Show the coverage of every column", _coverage(table))))
     if picks is not None:
         sections.append(("picks", "Next calculations", _picks(picks)))
     if history is not None or replay_curves is not None:
-        sections.append(("campaign", "Campaign", _campaign(history, replay_curves)))
+        sections.append(("rounds", "Rounds and replays",
+                         _folded("Show the history of the rounds and the replays", _rounds(history, replay_curves))))
     step(1)
     sections.append(("filled", "The filled table", _filled_table(filled, extrapolated)))
 

@@ -208,7 +208,7 @@ def check_model_target(folder, inputs=()):
                 f"{folder}: holds {foreign[0]!r}"
                 + (f" and {len(foreign) - 1} other entries" if len(foreign) > 1 else "")
                 + ", which are not part of a model folder; writing the model replaces the whole "
-                f"folder, so choose a new folder (or move them out)."
+                "folder, so choose a new folder (or move them out)."
             )
     return folder
 

@@ -58,3 +58,20 @@ def test_demo_picks_carry_the_safety_notes_of_their_elements(demo_run):
         if note:
             assert f"caution: {symbol}: {note}" in text
     assert "do not replace calculation" in text
+
+
+def test_demo_explained_folder_has_the_figures_explain_writes(demo_run):
+    """One CSV per kind and one figure per target group, as 'dopantgap explain' writes,
+    with the elements absent from the table broken down (and in the report)."""
+    _, out, _text = demo_run
+    explained = out / "explained"
+    targets = pd.read_csv(explained / "targets.csv")
+    assert sorted(path.name for path in explained.glob("*.csv")) == [
+        "breakdowns.csv", "importance.csv", "shap_values.csv", "targets.csv"]
+    figures = sorted(path.name for path in explained.glob("*.png"))
+    assert len(figures) == targets["group"].nunique() and all(name.startswith("explain_") for name in figures)
+    assert "explain_site_choice_E_sol_ZnS_hyb.png" in figures
+    breakdowns = pd.read_csv(explained / "breakdowns.csv")
+    assert set(breakdowns.loc[breakdowns["broken_down"], "element"]) == set(DEMO_ABSENT)
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert "Breakdowns of: " + ", ".join(f"<b>{symbol}</b>" for symbol in DEMO_ABSENT) + "." in page

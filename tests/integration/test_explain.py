@@ -197,14 +197,16 @@ def test_size_driven_site_choice_ranks_a_size_descriptor_first():
 
 def test_explanation_tables_layout(boost_model, tmp_path):
     explanation = explain_model(boost_model, targets=["E_sol | ZnS | int_hex | gga"])
-    written = write_explanation(explanation, tmp_path)
-    assert [path.name for path in written] == ["targets.csv", "importance.csv", "shap_values.csv", "base_values.csv"]
+    written = write_explanation(explanation, tmp_path, ["Ti"])
+    assert [path.name for path in written] == ["targets.csv", "importance.csv", "shap_values.csv", "breakdowns.csv"]
     importance = pd.read_csv(tmp_path / "importance.csv")
     assert list(importance.columns) == ["target", "feature", "importance"]
     assert (np.diff(importance["importance"].to_numpy()) <= 0).all()
-    assert list(pd.read_csv(tmp_path / "shap_values.csv").columns) == [
-        "target", "element", "feature", "feature_value", "shap"]
-    assert list(pd.read_csv(tmp_path / "base_values.csv").columns) == ["target", "element", "base_value", "prediction"]
+    shap_values = pd.read_csv(tmp_path / "shap_values.csv", keep_default_na=False)
+    assert list(shap_values.columns) == ["target", "element", "feature", "feature_value", "unit", "shap"]
+    breakdowns = pd.read_csv(tmp_path / "breakdowns.csv")
+    assert list(breakdowns.columns) == ["target", "element", "base_value", "prediction", "broken_down"]
+    assert set(breakdowns.loc[breakdowns["broken_down"], "element"]) == {"Ti"}
     again = explain_model(boost_model, targets=["E_sol | ZnS | int_hex | gga"])
     pd.testing.assert_frame_equal(again.shap_values, explanation.shap_values)
 
@@ -218,7 +220,8 @@ def test_cli_writes_tables_and_figures(tmp_path, capsys):
     assert main(["explain", str(model_dir), "--out", str(out), "--elements", "Ti,Nb", "--quiet"]) == 0
     assert capsys.readouterr().out == ""
     targets = pd.read_csv(out / "targets.csv", keep_default_na=False)
-    assert list(targets.columns) == ["target", "kind", "quantity", "host", "method", "site", "site_a", "site_b"]
+    assert list(targets.columns) == ["target", "group", "kind", "quantity", "host", "method", "site", "site_a",
+                                     "site_b"]
     for row in targets.itertuples(index=False):
         assert row.quantity in row.target and row.host in row.target and row.method in row.target
         if row.kind == "column":
@@ -228,10 +231,14 @@ def test_cli_writes_tables_and_figures(tmp_path, capsys):
     assert "E_sol | ZnS | sub_Zn | gga" in set(targets["target"])
     shap_values = pd.read_csv(out / "shap_values.csv")
     assert {"Ti", "Nb"} <= set(shap_values["element"])
-    assert list(targets["kind"]) == ["column", "column", "site-choice"]
-    assert len(list(out.glob("summary_*.png"))) == len(targets)
-    assert len(list(out.glob("breakdown_*_Nb.png"))) == len(targets)
-    assert (out / "breakdown_E_sol_ZnS_sub_Zn_gga_Ti.png").stat().st_size > 0
+    # the scientific question first: the site choice, then the single columns
+    assert list(targets["kind"]) == ["site-choice", "column", "column"]
+    assert list(targets["group"]) == ["site choice | E_sol | ZnS | gga"] + ["column | E_sol | ZnS | gga"] * 2
+    # one CSV per kind and one figure per target group, whatever the elements asked
+    figures = sorted(path.name for path in out.glob("*.png"))
+    assert figures == ["explain_column_E_sol_ZnS_gga.png", "explain_site_choice_E_sol_ZnS_gga.png"]
+    assert sorted(path.name for path in out.glob("*.csv")) == [
+        "breakdowns.csv", "importance.csv", "shap_values.csv", "targets.csv"]
 
 
 def test_cli_bad_element_is_one_line(tmp_path, capsys, demo_model_dir):

@@ -191,7 +191,7 @@ def test_fit_reports_progress_once_per_candidate_learner():
 
 
 def test_refreshed_model_reoptimises_only_stages_that_outgrew_their_hyperparameters(rough):
-    """Campaign rounds and replay relearn with the fitted kernels; a stage grown past
+    """Recorded rounds and replay relearn with the fitted kernels; a stage grown past
     ``_REOPTIMISE_GROWTH`` times the rows its kernel was tuned on gets a new one."""
     world, table, model, _ = rough
     stage_key = ("E_sol", "hyb")

@@ -7,7 +7,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from dopantgap import elements
 from dopantgap.elements import descriptors as element_descriptors
 from dopantgap.elements import (
     DESCRIPTOR_NAMES,

@@ -324,7 +324,7 @@ def test_a_loaded_model_predicts_with_its_own_descriptors(saved, surrogate, worl
     expected = surrogate.predict(cells)
     loaded, _ = load_model(saved)
     pd.testing.assert_frame_equal(loaded.predict(cells), expected, check_exact=True)
-    # refreshed on a grown table, it keeps them too (campaign rounds, replays)
+    # refreshed on a grown table, it keeps them too (recorded rounds, replays)
     refreshed = loaded.refreshed(loaded.table_)
     assert refreshed.descriptor_values_ is loaded.descriptor_values_
     # the changed numbers would have mattered: an encoder reading the installed table

@@ -6,13 +6,12 @@ invented, not physics.
 
 import io
 
-import matplotlib.colors
 import matplotlib.image
 import numpy as np
 import pandas as pd
 import pytest
 from matplotlib import colormaps
-from matplotlib.patches import Rectangle
+from matplotlib.patches import FancyBboxPatch
 from scipy.stats import norm
 
 from dopantgap import plots
@@ -35,10 +34,12 @@ def _patch(figure, gid):
     return patches[0]
 
 
-def _labels(figure):
-    # the maps' colour bar is an inset (child) axes of the table's axes
-    axes = list(figure.axes) + [child for ax in figure.axes for child in ax.child_axes]
-    return [ax.get_xlabel() for ax in axes] + [ax.get_ylabel() for ax in axes]
+def _texts(figure, gid):
+    return [t.get_text() for t in figure.axes[0].texts if t.get_gid() == gid]
+
+
+def _gid_prefix(figure, prefix):
+    return [p for p in figure.axes[0].patches if str(p.get_gid()).startswith(prefix)]
 
 
 # ----------------------------------------------------------------------------- periodic map
@@ -74,26 +75,101 @@ def test_periodic_map_prints_each_symbol_in_its_box():
     assert box.get_x() < fe_x < box.get_x() + box.get_width()
     assert box.get_y() < fe_y < box.get_y() + box.get_height()
     assert round(fe_x) == 8 and round(fe_y) == 4
-    # every element has a box, those without a value too (greyed)
-    boxes = [p for p in figure.axes[0].patches if str(p.get_gid()).startswith("box-")]
+    # every element has a tile (Ce puts the f-block rows on the map), those without a
+    # value as an outline only: no fill at all
+    boxes = _gid_prefix(figure, "box-")
     assert len(boxes) == 118
-    assert _patch(figure, "box-Cu").get_facecolor()[:3] == pytest.approx(
-        matplotlib.colors.to_rgb(plots.maps._EMPTY_FACE)
-    )
+    assert _patch(figure, "box-Cu").get_facecolor()[3] == 0.0
+    assert _patch(figure, "box-Fe").get_facecolor()[3] == 1.0
+
+
+def test_f_block_rows_are_drawn_only_when_an_f_element_has_a_value():
+    without = plots.periodic_map({"Fe": 1.0, "Ti": 2.0}, "E_sol")
+    with_f = plots.periodic_map({"Fe": 1.0, "Nd": 2.0}, "E_sol")
+    assert len(_gid_prefix(without, "box-")) == 118 - 28
+    assert len(_gid_prefix(with_f, "box-")) == 118
+    # the figure grows by the two rows, keeping its width
+    assert with_f.get_figheight() > without.get_figheight()
+    assert with_f.get_figwidth() == without.get_figwidth() == plots.maps.MAP_WIDTH_INCHES
 
 
 def test_computed_and_predicted_marks_differ():
     figure = plots.periodic_map({"Fe": 1.0, "Ti": 1.0}, "E_sol", computed={"Fe": True, "Ti": False})
     computed, predicted = _patch(figure, "box-Fe"), _patch(figure, "box-Ti")
+    # told apart by the frame's width alone, so a greyscale print keeps them apart
     assert computed.get_linewidth() > 3 * predicted.get_linewidth()
-    assert computed.get_linestyle() != predicted.get_linestyle()
-    legend = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
-    assert any("computed" in text for text in legend) and any("predicted" in text for text in legend)
+    legend = _texts(figure, "legend-entry")
+    for mark in ("computed", "predicted", "outside the domain", "caution (letters)", "not in the table"):
+        assert mark in legend
 
 
-def test_colour_bar_label_carries_the_unit():
+def test_outside_the_domain_has_a_dashed_frame_of_its_own():
+    figure = plots.periodic_map({"Fe": 1.0, "Ti": 1.0, "V": 1.0}, "E_sol", computed={"Fe"}, outside={"Ti", "Fe"})
+    computed, outside, predicted = (_patch(figure, f"box-{s}") for s in ("Fe", "Ti", "V"))
+    dashed = outside.get_linestyle()
+    assert dashed != computed.get_linestyle() and dashed != predicted.get_linestyle()
+    # a computed value is the user's own: never marked as outside
+    assert computed.get_linestyle() == predicted.get_linestyle()
+
+
+def test_uncertainty_is_a_bar_and_text_on_predicted_tiles_only():
+    values = {"Fe": 1.0, "Ti": 2.0, "V": 3.0}
+    spread = {"Fe": 0.0, "Ti": 0.1, "V": 0.35}
+    figure = plots.periodic_map(values, "E_sol", computed={"Fe"}, spread=spread)
+    # largest std 0.35 -> a full bar stands for 0.5 eV (1, 2, 2.5 or 5 x 10^k)
+    assert figure.spread_scale_ == pytest.approx(0.5)
+    ti, v = _patch(figure, "bar-Ti"), _patch(figure, "bar-V")
+    full = 0.76  # the bar's track, in tile units
+    assert ti.get_width() == pytest.approx(full * 0.1 / 0.5)
+    assert v.get_width() == pytest.approx(full * 0.35 / 0.5)
+    assert _texts(figure, "spread-Ti") == ["±0.10"] and _texts(figure, "spread-V") == ["±0.35"]
+    # the computed Fe carries neither
+    assert _gid_prefix(figure, "bar-Fe") == [] and _texts(figure, "spread-Fe") == []
+    assert any("full = 0.5 eV" in text for text in _texts(figure, "legend-entry"))
+    # without spread, no bar at all
+    assert _gid_prefix(plots.periodic_map(values, "E_sol"), "bar-") == []
+
+
+@pytest.mark.parametrize("largest, scale", [(0.35, 0.5), (0.2, 0.2), (0.07, 0.1), (1.3, 2.0), (0.021, 0.025)])
+def test_bar_scale_is_a_round_number_at_or_above_the_largest_std(largest, scale):
+    assert plots.maps._nice_ceiling(largest) == pytest.approx(scale)
+
+
+def test_colour_scale_is_a_strip_below_the_table_with_the_unit():
     figure = plots.periodic_map({"Fe": 1.0, "Ti": 2.0}, "E_sol", unit="eV")
-    assert any("(eV)" in label for label in _labels(figure))
+    assert any("(eV)" in label for label in _texts(figure, "scale-label"))
+    strips = [image for image in figure.axes[0].images if image.get_gid() == "scale-strip"]
+    assert len(strips) == 1
+    _left, _right, bottom, top = strips[0].get_extent()
+    # below period 7's tiles (row 7 ends at 7.46), not in the gap above the transition metals
+    assert min(bottom, top) > 7.0 + plots.maps._HALF
+    # the figure holds no colour bar axes: one axes only
+    assert len(figure.axes) == 1 and figure.axes[0].child_axes == []
+
+
+def test_tile_text_is_large_enough_and_stays_inside_its_tile():
+    """Every tile text is at least TILE_TEXT_POINTS, which is 10 px or more on a map
+    shown 1300 px wide (the report's maps at 1400 px: 13 in x 100 dpi; 1 pt = 1/72 in,
+    CSS 2.1 section 4.3.2), and the widest values still fit inside their tile."""
+    values = {"Fe": -10.25, "Ti": 2.0, "Nd": 123.45, "Cs": -0.5}
+    spread = {"Ti": 0.35, "Nd": 10.5, "Cs": 0.05}
+    figure = plots.periodic_map(values, "E_sol", spread=spread, tags={"Fe": "RT", "Nd": "X"})
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()
+    prefixes = ("symbol-", "value-", "spread-", "tag-")
+    tile_texts = [t for t in figure.axes[0].texts if str(t.get_gid()).startswith(prefixes)]
+    filled = {t.get_gid().split("-", 1)[1] for t in tile_texts if t.get_gid().startswith("value-")}
+    assert filled == set(values)
+    for text in tile_texts:
+        assert text.get_fontsize() >= plots.maps.TILE_TEXT_POINTS
+        symbol = text.get_gid().split("-", 1)[1]
+        if symbol in values:
+            tile = _patch(figure, f"box-{symbol}").get_window_extent(renderer)
+            box = text.get_window_extent(renderer)
+            assert tile.x0 <= box.x0 and box.x1 <= tile.x1 and tile.y0 <= box.y0 and box.y1 <= tile.y1, text
+    assert figure.tile_text_points_ == plots.maps.TILE_TEXT_POINTS
+    shown_px = plots.maps.TILE_TEXT_POINTS / 72 * 1300 / figure.get_figwidth()
+    assert shown_px >= 10
 
 
 @pytest.mark.parametrize("name", [plots.VALUE_CMAP, plots.SPREAD_CMAP])
@@ -123,6 +199,10 @@ def test_spread_map_and_column_values():
     column = plots.column_values(filled, "ZnS", "sub_Zn", "hyb", "E_sol")
     assert list(column.index) == ["Fe", "Ti"]
     assert column.loc["Ti", "std"] == 0.2 and bool(column.loc["Fe", "computed"])
+    assert not column["outside"].any()  # no outside_domain column: nothing flagged
+    flagged = plots.column_values(filled.assign(outside_domain=[True, True, False]), "ZnS", "sub_Zn", "hyb", "E_sol")
+    # a computed cell is never reported outside the domain
+    assert flagged["outside"].tolist() == [False, True]
     figure = plots.spread_map(column, "std")
     assert _patch(figure, "box-Fe").get_linewidth() > _patch(figure, "box-Ti").get_linewidth()
     with pytest.raises(DopantgapError, match="status"):
@@ -157,6 +237,11 @@ def test_site_map_shading_follows_probability():
     figure = plots.site_preference_map(preference, "ZnS", "gga", "E_sol")
     sure, unsure = _patch(figure, "box-Fe"), _patch(figure, "box-Ti")
     assert plots.luminance(unsure.get_facecolor()) > plots.luminance(sure.get_facecolor())
+    # the bar along the tile's foot is the probability too (full track 0.76 tile units)
+    assert _patch(figure, "bar-Fe").get_width() == pytest.approx(0.76 * 0.95)
+    assert _patch(figure, "bar-Ti").get_width() == pytest.approx(0.76 * 0.55)
+    legend = _texts(figure, "legend-entry")
+    assert "A = sub_Zn" in legend and "not in the table" in legend
 
 
 def test_category_palette_has_distinct_hatches():
@@ -228,7 +313,78 @@ def test_calibration_figure_raw_curve_follows_the_gaussian():
     assert 0.8 < raw_share < 1.0
 
 
-# ----------------------------------------------------------------------------- campaigns
+def _grouped_residuals(n_hosts=3, seed=4):
+    """Invented held-out cells: two quantities, ``n_hosts`` hosts, two levels, errors of
+    known size and one planted outlier (Cs in the first host, 3 eV off)."""
+    rng = np.random.default_rng(seed)
+    hosts = [f"H{i}O" for i in range(n_hosts)]
+    rows = []
+    for index in range(12 * n_hosts):
+        truth = float(rng.normal(1.0, 2.0))
+        rows.append({
+            "element": ["Li", "Na", "K", "Rb"][index % 4], "host": hosts[index % n_hosts],
+            "site": "sub_O" if index % 2 else "int_a", "method": ("gga", "hyb")[index % 2 if index % 3 else 0],
+            "quantity": ("E_sol", "E_bind")[index % 2], "value": truth,
+            "mean": truth + float(rng.normal(0.0, 0.1)), "raw_std": 0.1, "scenario": "new-element",
+        })
+    rows.append({"element": "Cs", "host": hosts[0], "site": "int_a", "method": "hyb", "quantity": "E_sol",
+                 "value": 0.5, "mean": 3.5, "raw_std": 0.1, "scenario": "new-element"})
+    return pd.DataFrame(rows)
+
+
+def _legend(ax):
+    return [t.get_text() for t in ax.get_legend().get_texts()]
+
+
+def test_parity_figure_has_a_panel_per_grouping_with_its_mean_error():
+    """The mean |error| in titles and legends is checked against scikit-learn's
+    ``sklearn.metrics.mean_absolute_error`` (Pedregosa et al. 2011, JMLR 12, 2825)."""
+    from sklearn.metrics import mean_absolute_error
+
+    residuals = _grouped_residuals()
+    figure = plots.parity_figure(residuals, scenario="new-element", levels=["gga", "hyb"])
+    titles = [ax.get_title() for ax in figure.axes]
+    assert [t.split(":")[0] for t in titles] == ["By quantity", "By host", "By level"]
+    overall = mean_absolute_error(residuals["value"], residuals["mean"])
+    assert all(f"{overall:.3f} eV over {len(residuals)} cells" in t for t in titles)
+    level_panel = figure.axes[2]
+    labels = _legend(level_panel)
+    assert "predicted = computed" in labels
+    # the legend of the level panel lists the levels cheapest first, each with its error
+    series = [label for label in labels if label.startswith(("gga", "hyb"))]
+    assert [label.split(":")[0] for label in series] == ["gga", "hyb"]
+    for label in series:
+        rows = residuals[residuals["method"] == label.split(":")[0]]
+        assert f"mean |error| {mean_absolute_error(rows['value'], rows['mean']):.3f} eV" in label
+
+
+def test_parity_figure_groups_differ_in_colour_and_marker_and_pool_beyond_the_palette():
+    residuals = _grouped_residuals(n_hosts=9)
+    host_panel = plots.parity_figure(residuals, scenario="new-element").axes[1]
+    lines = [container.lines[0] for container in host_panel.containers]
+    assert len(lines) == len(plots.CATEGORY_COLOURS)  # six hosts and "other"
+    shown = lines[:-1]
+    assert len({line.get_marker() for line in shown}) == len(shown)
+    assert len({matplotlib.colors.to_hex(line.get_color()) for line in shown}) == len(shown)
+    assert {matplotlib.colors.to_hex(line.get_color()).upper() for line in shown} <= set(plots.CATEGORY_COLOURS)
+    assert any(label.startswith("other (3 hosts)") for label in _legend(host_panel))
+    # every cell is drawn once per panel
+    assert sum(len(line.get_xdata()) for line in lines) == len(residuals)
+
+
+def test_parity_figure_labels_the_worst_cells():
+    residuals = _grouped_residuals()
+    figure = plots.parity_figure(residuals, scenario="new-element", n_labelled=3)
+    for ax in figure.axes:
+        labelled = sorted((t for t in ax.texts if str(t.get_gid()).startswith("outlier-")), key=lambda t: t.get_gid())
+        assert len(labelled) == 3
+        assert labelled[0].get_text().startswith("1. Cs/H0O/int_a")
+        assert labelled[0].xy == (0.5, 3.5)
+    without = plots.parity_figure(residuals, scenario="new-element", n_labelled=0)
+    assert not [t for ax in without.axes for t in ax.texts if str(t.get_gid()).startswith("outlier-")]
+
+
+# ----------------------------------------------------------------------------- rounds
 def test_learning_curve_figure_draws_medians_over_seeds():
     curves = pd.DataFrame([
         {"strategy": strategy, "seed": seed, "round": r, "cost_spent": 10.0 * r,
@@ -246,13 +402,21 @@ def test_learning_curve_figure_draws_medians_over_seeds():
         plots.learning_curve_figure(curves.drop(columns="cost_spent"))
 
 
-def test_history_figure_panels_and_units():
+def test_history_figure_plots_uncertainty_against_cost_and_whole_rounds():
     history = pd.DataFrame({"round": [0, 1, 2], "mean_std": [0.3, np.nan, 0.2],
-                            "decided": [1, 2, 4], "cost_spent": [0, 5, 9]})
-    figure = plots.history_figure(history)
-    assert len(figure.axes) == 3
-    assert figure.axes[0].get_ylabel() == "mean predicted std (eV)"
-    np.testing.assert_allclose(figure.axes[1].get_lines()[0].get_ydata(), [1, 2, 4])
+                            "decided": [1, 2, 4], "cost_spent": [0, 5, 39]})
+    figure = plots.history_figure(history, cost_unit="calculations")
+    figure.canvas.draw()
+    std_axes, decided_axes = figure.axes
+    assert std_axes.get_ylabel() == "mean predicted std of missing cells (eV)"
+    assert std_axes.get_xlabel() == "cost spent (calculations)"
+    # uncertainty is drawn against the cost spent, not against the round number
+    np.testing.assert_allclose(std_axes.get_lines()[0].get_xdata(), [0, 5, 39])
+    np.testing.assert_allclose(std_axes.get_lines()[0].get_ydata(), [0.3, np.nan, 0.2])
+    np.testing.assert_allclose(decided_axes.get_lines()[0].get_ydata(), [1, 2, 4])
+    shown_ticks = [tick for tick in decided_axes.get_xticks() if 0 <= tick <= 2]
+    assert shown_ticks and all(float(tick).is_integer() for tick in shown_ticks)
+    assert {text.get_text() for text in std_axes.texts} == {"round 0", "round 2"}
 
 
 # ----------------------------------------------------------------------------- explanations
@@ -333,10 +497,11 @@ def test_figure_to_data_uri():
     assert uri.startswith("data:image/png;base64,iVBORw0KGgo")
 
 
-def test_periodic_map_boxes_are_rectangles_of_one_size():
+def test_periodic_map_tiles_are_of_one_size():
     figure = plots.periodic_map({"Fe": 1.0}, "E_sol")
-    boxes = [p for p in figure.axes[0].patches if isinstance(p, Rectangle) and str(p.get_gid()).startswith("box-")]
-    assert {round(p.get_width(), 6) for p in boxes} == {0.92}
+    boxes = [p for p in _gid_prefix(figure, "box-") if isinstance(p, FancyBboxPatch)]
+    assert len(boxes) == len(_gid_prefix(figure, "box-"))
+    assert {(round(p.get_width(), 6), round(p.get_height(), 6)) for p in boxes} == {(0.92, 0.92)}
 
 
 # ----------------------------------------------------------------------------- progress

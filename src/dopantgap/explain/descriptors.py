@@ -1,19 +1,22 @@
 """Element descriptors as the model sees them, and one column's encoded rows built from them."""
 
+import copy
+
 import numpy as np
+import pandas as pd
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
 
-__all__ = ["descriptor_matrix", "explanation_features"]
+__all__ = ["descriptor_matrix", "explanation_features", "feature_units"]
 
-# Host-relative term -> descriptor it is made of (see elements.host_relative_table).
+_DERIVED = "derived: "
+# Host-relative term -> descriptor it is made of, read from the terms' own definitions
+# (elements.HOST_RELATIVE_DESCRIPTORS, source "derived: covalent_radius").
 _HOST_RELATIVE_SOURCES = {
-    "size_misfit": "covalent_radius",
-    "electronegativity_difference": "electronegativity_pauling",
-    "valence_difference": "valence_electrons",
-    "ionisation_energy_difference": "ionisation_energy_1",
-    "electron_affinity_difference": "electron_affinity",
+    descriptor.name: descriptor.source[len(_DERIVED):]
+    for descriptor in elements.HOST_RELATIVE_DESCRIPTORS
+    if descriptor.source.startswith(_DERIVED)
 }
 # Floor of a descriptor before its logarithm, as in features.CellEncoder.
 _LOG_FLOOR = 1e-3
@@ -52,6 +55,31 @@ def _encoded_descriptor_name(surrogate, descriptor):
     return encoder.physical_names_[position]
 
 
+def feature_units(features):
+    """Unit of each explanation feature, from the descriptor definitions.
+
+    Parameters
+    ----------
+    features : sequence of str
+        Names from :func:`explanation_features` (or any descriptor name).
+
+    Returns
+    -------
+    list of str
+        ``"pm"``, ``"eV"`` ...; ``""`` for dimensionless descriptors and names that are
+        not descriptors (the element's own offset); ``"log10(bohr^3)"`` for a
+        ``log10_`` feature, whose values are logarithms of the descriptor.
+    """
+    units = {descriptor.name: descriptor.unit for descriptor in elements.DESCRIPTORS}
+    out = []
+    for feature in features:
+        unit = units.get(_raw_name(str(feature)), "")
+        if str(feature).startswith(_LOG_PREFIX):
+            unit = f"log10({unit})" if unit else "log10"
+        out.append(unit)
+    return out
+
+
 def _raw_name(feature):
     return feature[len(_LOG_PREFIX):] if feature.startswith(_LOG_PREFIX) else feature
 
@@ -84,6 +112,58 @@ def descriptor_matrix(features, element_symbols, values=None):
     return np.column_stack(columns) if columns else np.zeros((len(table), 0))
 
 
+def _affine_map(encoder, features, host, site, compositions):
+    """Which descriptor each physical input of ``encoder`` is made of, and how, for one column.
+
+    Read from the encoder itself, not re-derived: probe elements (chosen among those not
+    in the host, so the site's reference atoms keep their values) get made-up descriptor
+    values, one descriptor moved per probe, and are encoded by ``encoder.transform``; an
+    input's change under a probe is its slope in that descriptor (every input is affine
+    in one descriptor for a fixed column: a descriptor itself or a host-relative term of
+    it, standardised).
+
+    Returns
+    -------
+    index, slope, intercept : ndarray of shape (n_physical,)
+        Standardised input ``p`` is ``descriptors[:, index[p]] * slope[p] + intercept[p]``.
+    """
+    table = elements.descriptor_table(values=encoder.descriptor_values)
+    host_atoms = set(compositions[host])
+    probes = [symbol for symbol in reversed(list(table.index)) if symbol not in host_atoms][: len(features) + 1]
+    raw = [_raw_name(feature) for feature in features]
+    logarithmic = np.array([feature.startswith(_LOG_PREFIX) for feature in features])
+    # probe values near the middle of each descriptor's range, one unit apart (a decade for
+    # a logarithmic one), so that the differences carry no cancellation
+    base = np.array([
+        float(np.log10(max(np.median(table[name]), 1.0))) if log else float(np.median(table[name]))
+        for name, log in zip(raw, logarithmic)
+    ])
+    probe_values = np.tile(base, (len(probes), 1))
+    probe_values[1:] += np.eye(len(features))
+    for row, symbol in enumerate(probes):
+        for column, name in enumerate(raw):
+            value = probe_values[row, column]
+            table.loc[symbol, name] = 10.0**value if logarithmic[column] else value
+    probing = copy.copy(encoder)
+    probing.descriptor_values = table
+    encoded = probing.transform(pd.DataFrame({"element": probes, "host": host, "site": [site] * len(probes)}))
+    physical = encoded[:, : encoder.n_physical_]
+    changes = physical[1:] - physical[0]  # (feature, input)
+    index, slope, intercept = [], [], []
+    for position, name in enumerate(encoder.physical_names_):
+        moved = np.flatnonzero(np.abs(changes[:, position]) > 1e-12 * max(1.0, np.abs(changes[:, position]).max()))
+        if len(moved) != 1:
+            raise DopantgapError(
+                f"explain cannot rebuild the model input {name!r} from the descriptors "
+                f"{', '.join(features)}; refit the model with this dopantgap version"
+            )
+        feature = int(moved[0])
+        index.append(feature)
+        slope.append(changes[feature, position])
+        intercept.append(physical[0, position] - changes[feature, position] * base[feature])
+    return np.array(index, dtype=int), np.array(slope), np.array(intercept)
+
+
 class _ColumnEncoding:
     """Encoded input rows of one stage for one (host, site) column, built from descriptors.
 
@@ -95,33 +175,7 @@ class _ColumnEncoding:
     def __init__(self, encoder, features, host, site, compositions):
         if host not in compositions:
             raise DopantgapError(f"host {host!r} has no composition in the model")
-        site_key = site if isinstance(site, str) else None
-        reference = elements.reference_atoms(site_key, compositions[host])
-        reference_table = elements.descriptor_table(list(reference), values=encoder.descriptor_values)
-        weights = np.array(list(reference.values()), dtype=float)
-        index, slope, intercept = [], [], []
-        for position, name in enumerate(encoder.physical_names_):
-            if name in _HOST_RELATIVE_SOURCES:
-                source = _HOST_RELATIVE_SOURCES[name]
-                reference_value = float(weights @ reference_table[source].to_numpy(dtype=float))
-                if name == "size_misfit":
-                    a, b = 1.0 / reference_value, -1.0
-                else:
-                    a, b = 1.0, -reference_value
-                feature = source
-            else:
-                feature, a, b = name, 1.0, 0.0
-            if feature not in features:
-                raise DopantgapError(
-                    f"explain cannot rebuild the model input {name!r} from the descriptors "
-                    f"{', '.join(features)}; refit the model with this dopantgap version"
-                )
-            index.append(features.index(feature))
-            slope.append(a / encoder.scale_[position])
-            intercept.append((b - encoder.mean_[position]) / encoder.scale_[position])
-        self.index = np.array(index, dtype=int)
-        self.slope = np.array(slope)
-        self.intercept = np.array(intercept)
+        self.index, self.slope, self.intercept = _affine_map(encoder, list(features), host, site, compositions)
         columns = {column: position for position, column in enumerate(encoder.columns_)}
         self.column_index = float(columns.get((host, site), -1))
         n_indicators = len(encoder.indicator_columns_)

@@ -14,6 +14,11 @@ A *target* is one number the fitted surrogate gives for an element:
   computed values (counted over the elements with two or more computed sites there;
   a tie goes to the site first seen in the table).
 
+Targets come in question order: site choices first (which site an impurity takes),
+then columns of a binding quantity (named like ``E_bind``), then the other columns;
+each belongs to a *group*, the targets of one kind, quantity, host and level
+(``site choice | E_sol | ZnS | gga``), and ``write_figures`` draws one figure per group.
+
 Each target is written as one function of the element,
 
     target(element) = F(d) + offset(element),
@@ -22,9 +27,12 @@ where ``d`` is the element's vector of elemental descriptors as the model sees t
 (``surrogate.descriptors_``, for example ``log10_polarisability``; plus any descriptor a
 host-relative term is made from that the model does not list itself). The host-relative
 terms of the encoder (size misfit, electronegativity, valence, ionisation energy and
-electron affinity differences to the site's reference atoms) are recomputed from ``d``
-for the target's host and site, so they are attributed to the descriptor they are made
-of (size misfit to the covalent radius, and so on): the covalent radius of a
+electron affinity differences to the site's reference atoms) follow from ``d`` for the
+target's host and site by the encoder's own map, read from the encoder itself (probe
+elements encoded by ``CellEncoder.transform``; nothing of it is re-implemented here),
+so they are attributed to the descriptor they are made of (size misfit to the
+covalent radius, and so on; the pairing comes from the terms' definitions,
+``elements.HOST_RELATIVE_DESCRIPTORS``): the covalent radius of a
 site-choice target carries the size misfits of both sites. A column learned at an
 expensive level is the chain of its stages (value at the cheapest level plus each
 correction); the chain is summed before it is explained. ``F`` is the model's mean for
@@ -83,7 +91,7 @@ import numpy as np
 import pandas as pd
 
 from dopantgap.errors import DopantgapError
-from dopantgap.explain.descriptors import descriptor_matrix, explanation_features
+from dopantgap.explain.descriptors import descriptor_matrix, explanation_features, feature_units
 from dopantgap.explain.shapley import _MAX_EXACT_FEATURES, shapley_values
 from dopantgap.explain.targets import _target_table, _TargetFunction
 from dopantgap.explain.trees import _tree_ensembles, tree_shapley_values
@@ -105,14 +113,16 @@ class Explanation:
     Attributes
     ----------
     targets : DataFrame
-        target, kind ("column" or "site-choice"), quantity, host, method, site (column
+        target, group (targets of one kind, quantity, host and level, e.g.
+        ``site choice | E_sol | ZnS | gga``), kind ("column" or "site-choice"), quantity, host, method, site (column
         targets), site_a, site_b (site-choice targets: site_a minus site_b).
     importance : DataFrame
         target, feature, importance (mean |SHAP| in eV over the table's elements),
         sorted by target then importance, largest first.
     shap_values : DataFrame
-        Long: target, element, feature, feature_value, shap (eV). The offset
-        pseudo-feature has no feature value.
+        Long: target, element, feature, feature_value, unit (of the feature value,
+        from the descriptor definitions), shap (eV). The offset pseudo-feature has no
+        feature value.
     base_values : DataFrame
         target, element, base_value, prediction (eV): base_value plus the element's
         SHAP values is its prediction.
@@ -218,6 +228,7 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
             "element": np.tile(np.repeat(symbols, n_features + 1), n_targets),
             "feature": np.tile(all_features, n_elements * n_targets),
             "feature_value": np.tile(feature_values.ravel(), n_targets),
+            "unit": np.tile(feature_units(all_features), n_elements * n_targets),
             "shap": full.transpose(2, 0, 1).ravel(),
         }
     )

@@ -58,9 +58,40 @@ def _target_table(surrogate):
                     "site_b": reference,
                 }
             )
-    return pd.DataFrame(
+    frame = pd.DataFrame(
         records, columns=["target", "kind", "quantity", "host", "method", "site", "site_a", "site_b"]
     )
+    return _ordered(frame)
+
+
+#: Kinds of target group, in the order they answer the scientific question: which site
+#: an impurity takes, then how strongly it binds, then single columns.
+GROUP_KINDS = ("site choice", "binding", "column")
+
+
+def _group_kind(kind, quantity):
+    if kind == "site-choice":
+        return "site choice"
+    # a quantity named like a binding energy (E_bind, binding ...) is its own group
+    return "binding" if "bind" in str(quantity).lower() else "column"
+
+
+def _ordered(frame):
+    """Targets in question order (site choices, binding, columns; table order within),
+    each with its group: targets of one kind, quantity, host and level."""
+    frame = frame.copy()
+    group_kind = [_group_kind(kind, quantity) for kind, quantity in zip(frame["kind"], frame["quantity"])]
+    frame.insert(1, "group", [
+        f"{kind} | {quantity} | {host} | {method}"
+        for kind, quantity, host, method in zip(group_kind, frame["quantity"], frame["host"], frame["method"])
+    ])
+    first_seen = {group: position for position, group in reversed(list(enumerate(frame["group"])))}
+    rank = pd.DataFrame({
+        "kind": [GROUP_KINDS.index(kind) for kind in group_kind],
+        "group": [first_seen[group] for group in frame["group"]],
+    }, index=frame.index)
+    order = rank.sort_values(["kind", "group"], kind="stable").index
+    return frame.loc[order].reset_index(drop=True)
 
 
 def _chain(surrogate, quantity, method, host, site):

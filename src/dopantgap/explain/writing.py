@@ -2,15 +2,18 @@
 
 Outputs
 -------
-:func:`write_explanation` writes ``targets.csv``, ``importance.csv`` (target, feature,
-importance), ``shap_values.csv`` (target, element, feature, feature_value, shap) and
-``base_values.csv`` (target, element, base_value, prediction). :func:`write_figures`
-draws ``summary_<slug>.png`` per target and ``breakdown_<slug>_<Element>.png`` per
-target and chosen element (``dopantgap explain`` chooses the ``--elements`` given, or
-else the table's first three elements). Measured on ``models/demo`` (invented demo
-table, 40 targets x 57 elements, two cores): explain 11 s, plus about 10 s for shap's
-one-off compilation in each new process; the command, figures included, 46 s
-(``benchmarks/bench_explain.py``).
+One CSV file per kind of table, every target in it (a ``target`` column):
+:func:`write_explanation` writes ``targets.csv`` (target, group, kind, quantity, host,
+method, site, site_a, site_b; in question order: site choices, binding, columns),
+``importance.csv`` (target, feature, importance), ``shap_values.csv`` (target, element,
+feature, feature_value, unit, shap) and ``breakdowns.csv`` (target, element, base_value,
+prediction, broken_down: whether the element was chosen for the figures).
+:func:`write_figures` draws one figure per target group, ``explain_<group>.png``
+(``explain_site_choice_E_sol_ZnS_gga.png``): the importance of every descriptor for
+every target of the group, then each chosen element's breakdown for each target
+(``dopantgap explain`` chooses the ``--elements`` given, or else the table's first
+three elements). Measured on ``models/demo`` (invented demo table, 40 targets in 12
+groups x 57 elements, two cores): see ``benchmarks/bench_explain.py``.
 """
 
 import re
@@ -20,13 +23,20 @@ from dopantgap.errors import DopantgapError
 from dopantgap.explain.explanation import _canonical
 from dopantgap.table import write_table
 
-__all__ = ["EXPLANATION_FILES", "target_slug", "target_slugs", "write_explanation", "write_figures"]
+__all__ = [
+    "EXPLANATION_FILES",
+    "group_slugs",
+    "target_slug",
+    "target_slugs",
+    "write_explanation",
+    "write_figures",
+]
 
 #: Files written by :func:`write_explanation`.
-EXPLANATION_FILES = ("targets.csv", "importance.csv", "shap_values.csv", "base_values.csv")
+EXPLANATION_FILES = ("targets.csv", "importance.csv", "shap_values.csv", "breakdowns.csv")
 
 
-def write_explanation(explanation, out_dir):
+def write_explanation(explanation, out_dir, element_symbols=()):
     """Write the explanation's tables as CSV files in ``out_dir`` (atomically).
 
     Parameters
@@ -34,6 +44,9 @@ def write_explanation(explanation, out_dir):
     explanation : Explanation
     out_dir : str or Path
         Folder, created if needed; receives :data:`EXPLANATION_FILES`.
+    element_symbols : sequence of str, default=()
+        Elements chosen for the breakdown figures (``broken_down`` in breakdowns.csv;
+        the report draws them).
 
     Returns
     -------
@@ -41,11 +54,15 @@ def write_explanation(explanation, out_dir):
         The files written.
     """
     out_dir = Path(out_dir)
+    chosen = set(_canonical(element_symbols))
+    breakdowns = explanation.base_values.assign(
+        broken_down=explanation.base_values["element"].isin(chosen)
+    )
     frames = {
         "targets.csv": explanation.targets,
         "importance.csv": explanation.importance,
         "shap_values.csv": explanation.shap_values,
-        "base_values.csv": explanation.base_values,
+        "breakdowns.csv": breakdowns,
     }
     written = []
     for name in EXPLANATION_FILES:
@@ -53,6 +70,12 @@ def write_explanation(explanation, out_dir):
         write_table(frames[name], path)
         written.append(path)
     return written
+
+
+def group_slugs(groups):
+    """Group name -> unique file-name form (``site choice | E_sol | ZnS | gga`` ->
+    ``site_choice_E_sol_ZnS_gga``)."""
+    return target_slugs(list(dict.fromkeys(groups)))
 
 
 def target_slugs(targets):
@@ -64,51 +87,45 @@ def target_slugs(targets):
     return slugs
 
 
-def _draw_target(importance, shap_values, base_values, target, element_symbols, paths):
-    from dopantgap.plots import breakdown_figure, importance_figure, save_png
-
-    save_png(importance_figure(importance, shap_values, target), paths[0])
-    for symbol, path in zip(element_symbols, paths[1:]):
-        save_png(breakdown_figure(shap_values, base_values, target, symbol), path)
-
-
 def write_figures(explanation, out_dir, element_symbols, progress=None):
-    """Draw ``summary_<slug>.png`` per target and ``breakdown_<slug>_<Element>.png``.
+    """Draw ``explain_<group>.png``, one figure per target group.
 
     Parameters
     ----------
     explanation : Explanation
     out_dir : str or Path
     element_symbols : sequence of str
-        Elements to draw a breakdown of, for every target (they must be explained).
+        Elements to break down, for every target of every group (they must be explained).
     progress : object with ``update(n)`` or None
-        Told once per target drawn.
+        Told once per group drawn.
 
     Returns
     -------
     list of Path
     """
+    from dopantgap.plots import group_figure, save_png
+
     out_dir = Path(out_dir)
     symbols = _canonical(element_symbols)
     explained = set(explanation.base_values["element"])
     missing = [symbol for symbol in symbols if symbol not in explained]
     if missing:
         raise DopantgapError(f"{missing[0]} was not explained; pass it to explain_model first.")
+    targets = explanation.targets
     written = []
-    for target, slug in target_slugs(explanation.targets["target"]).items():
-        paths = [out_dir / f"summary_{slug}.png"] + [
-            out_dir / f"breakdown_{slug}_{symbol}.png" for symbol in symbols
-        ]
-        written.extend(paths)
+    for group, slug in group_slugs(targets["group"]).items():
+        members = targets[targets["group"] == group]
+        names = set(members["target"])
+        path = out_dir / f"explain_{slug}.png"
         # drawing in worker processes was measured slower: their start-up outweighs it
-        _draw_target(
-            explanation.importance[explanation.importance["target"] == target],
-            explanation.shap_values[explanation.shap_values["target"] == target],
-            explanation.base_values[explanation.base_values["target"] == target],
-            target,
+        save_png(group_figure(
+            members,
+            explanation.importance[explanation.importance["target"].isin(names)],
+            explanation.shap_values[explanation.shap_values["target"].isin(names)],
+            explanation.base_values[explanation.base_values["target"].isin(names)],
             symbols,
-            paths,
-        )
+        ), path)
+        written.append(path)
         if progress is not None:
             progress.update(1)
     return written

@@ -1,4 +1,4 @@
-"""Figures of a filled table, its validation, explanations and campaigns.
+"""Figures of a filled table, its validation, explanations and rounds.
 
 Every function returns a :class:`matplotlib.figure.Figure` built without pyplot's
 global state (Agg canvas), so figures can be made in threads and tests; importing this
@@ -10,7 +10,7 @@ safe) together with hatching or letters, so that a greyscale print still reads.
 """
 
 from dopantgap.plots.checks import calibration_figure, parity_figure
-from dopantgap.plots.explanations import breakdown_figure, importance_figure
+from dopantgap.plots.explanations import breakdown_figure, group_figure, importance_figure
 from dopantgap.plots.maps import column_values, periodic_map, site_preference_map, spread_map, table_position
 from dopantgap.plots.rounds import history_figure, learning_curve_figure
 from dopantgap.plots.style import (
@@ -32,6 +32,7 @@ __all__ = [
     "calibration_figure",
     "column_values",
     "figure_to_data_uri",
+    "group_figure",
     "history_figure",
     "importance_figure",
     "learning_curve_figure",
