@@ -72,9 +72,10 @@ class GPLearner(RegressorMixin, BaseEstimator):
         are chosen after the hyperparameter search: ranked by their fitted length
         scales, the nested sets "the k most relevant" are scored by cross-validation
         over whole groups, and the best set is kept if it beats keeping all by more
-        than one standard error (the others are switched off at their length-scale
-        bound and the rest retuned). Inside a
-        cross-validation fold the choice is remade on the fold's own rows.
+        than one standard error: the others are switched off at their length-scale
+        bound and the rest retuned, and the retuned kernel is kept only if it still
+        beats keeping all. Inside a cross-validation fold the choice is remade on the
+        fold's own rows.
     random_state : int, Generator or None, default=None
         Seed for the subsample and the restarts.
 
