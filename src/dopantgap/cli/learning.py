@@ -1,0 +1,183 @@
+"""Commands that read a table and learn it: check, fit, validate."""
+
+import sys
+import time
+from pathlib import Path
+
+from dopantgap.cli.common import Command, _seed, add_table_options
+from dopantgap.errors import DopantgapError
+
+
+def _parse_levels(text):
+    return [level.strip() for level in text.split(",") if level.strip()]
+
+
+def add_learning_options(command, learner_help):
+    """The options of commands that learn a table (fit, validate)."""
+    command.add_argument("--seed", type=_seed, default=0, help="random seed (default: 0)")
+    command.add_argument(
+        "--levels", type=_parse_levels, default=None, metavar="CHEAP,...,DEAR",
+        help="methods from cheapest to most expensive (default: most computed first)",
+    )
+    command.add_argument("--learner", choices=("auto", "gp", "boost"), default="auto", help=learner_help)
+    command.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="CSV with columns host,formula for host labels that are not formulas",
+    )
+    command.add_argument(
+        "--suspect-values", choices=("refuse", "warn"), default="refuse",
+        help="values a meV or kJ/mol slip or a flipped sign would explain: refuse the table "
+             "(default) or keep them with a warning each ('check' lists them)",
+    )
+    command.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+
+def _add_check_parser(commands):
+    check = commands.add_parser("check", help="read a table, name any problem in it and show what it covers")
+    add_table_options(check)
+    check.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="CSV with columns host,formula for host labels that are not formulas (as for fit)",
+    )
+
+
+def _add_fit_parser(commands):
+    fit = commands.add_parser("fit", help="learn a table and save a model folder")
+    add_table_options(fit)
+    fit.add_argument("--out", required=True, metavar="MODEL_DIR", help="model folder to write")
+    add_learning_options(
+        fit, "gp: Gaussian process; boost: boosted trees; auto: the better in cross-validation"
+    )
+
+
+def _add_validate_parser(commands):
+    validate_command = commands.add_parser(
+        "validate",
+        help="out-of-fold error and interval coverage of every learner and baseline, per scenario",
+    )
+    add_table_options(validate_command)
+    validate_command.add_argument(
+        "--out", required=True, metavar="DIR", help="folder for metrics.csv, the per-element breakdowns and figures"
+    )
+    add_learning_options(validate_command, "learners to validate (default: auto = both)")
+
+
+def _command_check(arguments, say):
+    from dopantgap.checkup import checkup_text, host_readings, site_readings
+    from dopantgap.table import read_table, shown, suspect_values
+
+    table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
+    for notice in table.attrs.get("notices", []):
+        say(f"note: {shown(notice)}")
+    hosts = host_readings(table, arguments.hosts)
+    suspects = suspect_values(table)
+    say(f"{arguments.table}: readable" + (", no problems found." if len(suspects) == 0 else "."))
+    say(checkup_text(table, hosts, site_readings(table, hosts), suspects))
+    if len(suspects):
+        raise DopantgapError(
+            f"{len(suspects)} suspect value(s), listed above: 'fit' refuses the table until they "
+            "are corrected, or keeps them with --suspect-values warn if they are right."
+        )
+
+
+def _table_and_estimator(arguments, say):
+    """The table named on the command line and an unfitted surrogate with its options."""
+    from dopantgap import elements
+    from dopantgap.surrogate import Surrogate
+    from dopantgap.table import read_table
+
+    table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
+    for notice in table.attrs.get("notices", []):
+        say(f"note: {notice}")
+    _say_suspects(arguments, say, table)
+    hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
+    estimator = Surrogate(
+        learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
+        random_state=arguments.seed, suspect_values=arguments.suspect_values,
+    )
+    return table, estimator
+
+
+def _say_suspects(arguments, say, table):
+    """List suspect values before a fit refuses them, or warn of each one kept."""
+    import warnings
+
+    from dopantgap.errors import SuspectValueWarning
+    from dopantgap.table import shown, suspect_values
+
+    suspects = suspect_values(table)
+    if arguments.suspect_values == "warn":
+        for message in suspects["message"]:
+            # on stderr, and even with --quiet: a value kept against the check must be seen
+            print(f"WARNING: suspect value kept (--suspect-values warn): {shown(message)}", file=sys.stderr)
+        # listed here once; the library's warning of each would repeat them
+        warnings.filterwarnings("ignore", category=SuspectValueWarning)
+    elif len(suspects) > 1:
+        for message in suspects["message"]:
+            say(f"suspect value: {shown(message)}")
+
+
+def _learner_bar(arguments):
+    from dopantgap.progress import bar
+
+    n_candidates = 2 if arguments.learner == "auto" else 1
+    return bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet)
+
+
+def _command_fit(arguments, say):
+    from dopantgap.store import check_model_target, save_model
+    from dopantgap.validate import validation_metrics, validation_text
+
+    # before any work: the folder is replaced whole at the end, never an input with it
+    check_model_target(arguments.out, inputs=[arguments.table, arguments.hosts])
+    table, estimator = _table_and_estimator(arguments, say)
+    started = time.perf_counter()
+    say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
+    with _learner_bar(arguments) as progress:
+        surrogate = estimator.fit(table, progress=progress)
+    metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
+    save_model(surrogate, arguments.out, source=arguments.table, validation=metrics)
+    elapsed = time.perf_counter() - started
+    say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
+    say(f"Learner kept: {surrogate.learner_} (lowest cross-validated error, whole elements held out)")
+    pooled = metrics[metrics["quantity"] == "all"]
+    say(validation_text(metrics).rstrip("\n"))
+    for scenario in sorted(surrogate.calibration_.borrowed_):
+        if scenario in set(pooled["scenario"]):
+            say(
+                f"note: few cross-validated {scenario} cells; their intervals use the residuals "
+                f"of all scenarios pooled. Compute more cells to calibrate it on its own."
+            )
+    say(f"Model folder written: {arguments.out} ({elapsed:.1f} s)")
+
+
+def _command_validate(arguments, say):
+    from dopantgap.validate import breakdown_text, validate, validation_text, write_validation
+
+    table, estimator = _table_and_estimator(arguments, say)
+    started = time.perf_counter()
+    say(f"Validating on {len(table)} computed cells of {table['element'].nunique()} elements ...")
+    with _learner_bar(arguments) as progress:
+        result = validate(table, estimator=estimator, random_state=arguments.seed, progress=progress)
+    paths = write_validation(result, arguments.out)
+    say(validation_text(result.metrics).rstrip("\n"))
+    say("new-element: all cells of an element hidden together; new-cell: single cells of computed "
+        "elements; upgrade: expensive cells whose cheap level is computed.")
+    say("gp, boost: the learners ('fit' keeps the marked one); 'auto, chosen per fold': the choice "
+        "between them judged out of fold (each fold predicted by the learner the other folds chose). "
+        "Baselines are rules one could follow by hand, for comparison; level-shift is listed for "
+        "upgrade only (elsewhere no cheaper level is computed and it would repeat the column mean).")
+    say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
+    say()
+    say(f"Where the kept learner ({result.surrogate.learner_}) fails, element by element "
+        f"(in full: elements.csv, groups.csv, folds.csv):")
+    say(breakdown_text(result.elements, result.groups, result.folds).rstrip("\n"))
+    say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths)} "
+        f"({time.perf_counter() - started:.0f} s)")
+
+
+COMMANDS = {
+    "check": Command(_add_check_parser, _command_check),
+    "fit": Command(_add_fit_parser, _command_fit),
+    "validate": Command(_add_validate_parser, _command_validate),
+}
