@@ -72,13 +72,22 @@ import numbers
 
 import numpy as np
 import pandas as pd
-from numpy.polynomial.hermite_e import hermegauss
-from scipy.special import ndtr
 
 from dopantgap.errors import DopantgapError
 from dopantgap.reproducible import seed_integer
+from dopantgap.gaussian import (
+    SETTLED_VARIANCE,
+    binary_entropy,
+    condition_on,
+    expected_site_entropy,
+    expected_window_entropy,
+    site_entropy,
+    site_probabilities,
+    summed_variance_reduction,
+    window_probability,
+)
+from dopantgap.joint import cell_grid, missing_joints
 from dopantgap.sites import site_quantities
-from dopantgap.symbols import normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = [
@@ -106,16 +115,9 @@ PICK_COLUMNS = (
     "cost", "benefit", "reason", "benefit_unit", "benefit_per_cost", "scenario",
 )
 
-_CELL = ["element", "host", "site"]
-# Variances below this (eV^2) count as settled: the cell is known or nearly so.
-_SETTLED = 1e-12
 # A cell counts as "informed" by a calculation when its variance would drop by at least
 # this share (common practice, no source: a threshold for the reason text only).
 _INFORMED_SHARE = 0.05
-# Gauss-Hermite nodes over a candidate's result; 9 nodes integrate polynomials of
-# degree 17 exactly, ample for the smooth entropies here.
-_NODES, _NODE_WEIGHTS = hermegauss(9)
-_NODE_WEIGHTS = _NODE_WEIGHTS / math.sqrt(2.0 * math.pi)
 # Monte Carlo draws per site question (common practice, no source); common random
 # numbers across candidates keep the differences between candidates far more precise
 # than each entropy.
@@ -123,12 +125,7 @@ _SITE_SAMPLES = 1024
 # After a pick, a site question is scored again only if its covariance moved by more
 # than this share of its largest variance (common practice, no source).
 _SITE_RESCORE_SHARE = 1e-3
-# Candidate rows scored together in the window goal (memory: rows x nodes x targets;
-# common practice, no source).
-_WINDOW_CHUNK = 64
-# Most missing cells of one quantity held in one joint covariance (8 bytes each squared:
-# 6000 cells take 290 MB; common practice, no source).
-_MAX_BLOCK_CELLS = 6000
+_SETTLED = SETTLED_VARIANCE
 
 
 # ----------------------------------------------------------------- parsing options
@@ -215,332 +212,6 @@ def parse_window(text):
         )
     return quantity, low, high
 
-
-# ------------------------------------------------------------ pure Gaussian helpers
-def condition_on(cov, index):
-    """Covariance after observing cell ``index`` (its mean stays as it was).
-
-    C' = C - C[:, i] C[i, :] / C[i, i] (Rasmussen & Williams 2006, eq. 2.24).
-
-    Parameters
-    ----------
-    cov : ndarray of shape (n, n)
-    index : int
-
-    Returns
-    -------
-    ndarray of shape (n, n)
-        A new array; row and column ``index`` are zero. A cell already settled
-        (variance ~0) leaves the covariance unchanged.
-    """
-    cov = np.array(cov, dtype=float)
-    pivot = cov[index, index]
-    if pivot <= _SETTLED:
-        return cov
-    column = cov[:, index].copy()
-    cov -= np.outer(column, column) / pivot
-    cov[index, :] = 0.0
-    cov[:, index] = 0.0
-    return (cov + cov.T) / 2.0
-
-
-def summed_variance_reduction(cov, targets=None):
-    """Summed variance reduction of the target cells after observing each cell.
-
-    Parameters
-    ----------
-    cov : ndarray of shape (n, n)
-        Joint covariance; its diagonal is what a new calculation would return.
-    targets : array-like of bool or int, optional
-        Cells whose variance counts (mask or indices); None: all.
-
-    Returns
-    -------
-    ndarray of shape (n,)
-        Entry i is sum over targets j of C[j, i]^2 / C[i, i]; zero for settled cells.
-    """
-    cov = np.asarray(cov, dtype=float)
-    rows = cov if targets is None else cov[np.asarray(targets), :]
-    pivots = np.diag(cov)
-    summed = np.sum(rows**2, axis=0)
-    return np.where(pivots > _SETTLED, summed / np.where(pivots > _SETTLED, pivots, 1.0), 0.0)
-
-
-def site_entropy(probabilities):
-    """Shannon entropy, in bits, of a discrete distribution (zeros allowed).
-
-    Parameters
-    ----------
-    probabilities : array-like
-        Non-negative numbers along the last axis, normalised to sum 1.
-
-    Returns
-    -------
-    float or ndarray
-        -sum p log2 p over the last axis.
-    """
-    p = np.asarray(probabilities, dtype=float)
-    p = p / np.sum(p, axis=-1, keepdims=True)
-    logs = np.log2(np.where(p > 0.0, p, 1.0))
-    return -np.sum(p * logs, axis=-1)
-
-
-def binary_entropy(p):
-    """Entropy in bits of a yes/no event of probability ``p`` (elementwise)."""
-    p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
-    q = 1.0 - p
-    return -(p * np.log2(np.where(p > 0.0, p, 1.0)) + q * np.log2(np.where(q > 0.0, q, 1.0)))
-
-
-def window_probability(mean, std, low, high):
-    """Probability that a Gaussian value lies in [low, high]; std 0 gives 0 or 1."""
-    mean = np.asarray(mean, dtype=float)
-    std = np.asarray(std, dtype=float)
-    spread = np.maximum(std, 1e-12)
-    inside = ndtr((high - mean) / spread) - ndtr((low - mean) / spread)
-    return np.clip(inside, 0.0, 1.0)
-
-
-def _root(cov):
-    """A matrix R with R R^T = cov, for a positive semi-definite cov (zero rows allowed)."""
-    eigenvalues, eigenvectors = np.linalg.eigh((cov + cov.T) / 2.0)
-    return eigenvectors * np.sqrt(np.clip(eigenvalues, 0.0, None))
-
-
-def site_probabilities(mean, cov, normals=None):
-    """Probability that each site is the lowest, for energies ~ N(mean, cov).
-
-    Parameters
-    ----------
-    mean : ndarray of shape (..., n_sites)
-        One or several mean vectors sharing ``cov``.
-    cov : ndarray of shape (n_sites, n_sites)
-    normals : ndarray of shape (n_samples, n_sites) or None
-        Standard normal draws for the Monte Carlo estimate (more than two sites);
-        pass the same draws to compare cases with common random numbers. Two sites
-        are computed exactly and ignore them.
-
-    Returns
-    -------
-    ndarray of shape (..., n_sites)
-    """
-    mean = np.asarray(mean, dtype=float)
-    cov = np.asarray(cov, dtype=float)
-    n_sites = mean.shape[-1]
-    if n_sites == 1:
-        return np.ones_like(mean)
-    if n_sites == 2:
-        spread = math.sqrt(max(cov[0, 0] + cov[1, 1] - 2.0 * cov[0, 1], 0.0))
-        gap = mean[..., 1] - mean[..., 0]
-        if spread <= 1e-12:
-            first = np.where(gap > 0, 1.0, np.where(gap < 0, 0.0, 0.5))
-        else:
-            first = ndtr(gap / spread)
-        return np.stack([first, 1.0 - first], axis=-1)
-    if normals is None:
-        normals = np.random.default_rng(0).standard_normal((_SITE_SAMPLES, n_sites))
-    draws = normals[:, :n_sites] @ _root(cov).T  # (n_samples, n_sites)
-    samples = mean[..., None, :] + draws  # (..., n_samples, n_sites)
-    lowest = np.argmin(samples, axis=-1)
-    counts = np.stack([(lowest == site).sum(axis=-1) for site in range(n_sites)], axis=-1)
-    return counts / normals.shape[0]
-
-
-def expected_site_entropy(mean, cov, column, normals=None):
-    """Expected entropy (bits) of the lowest site after one more calculation.
-
-    Parameters
-    ----------
-    mean : ndarray of shape (n_sites,)
-        Site energies' mean.
-    cov : ndarray of shape (n_sites, n_sites)
-        Their covariance.
-    column : ndarray of shape (n_sites + 1,)
-        Covariance of the candidate's result with each site, then its own variance.
-        The candidate may be one of the sites or another cell correlated with them.
-    normals : ndarray or None
-        Draws for ``site_probabilities`` (common random numbers).
-
-    Returns
-    -------
-    float
-        The Gauss-Hermite average over the candidate's result of the posterior entropy.
-    """
-    cross, variance = np.asarray(column[:-1], dtype=float), float(column[-1])
-    if variance <= _SETTLED:
-        return float(site_entropy(site_probabilities(mean, cov, normals)))
-    posterior = cov - np.outer(cross, cross) / variance
-    means = mean[None, :] + np.outer(_NODES, cross) / math.sqrt(variance)
-    entropies = site_entropy(site_probabilities(means, posterior, normals))
-    return float(np.dot(_NODE_WEIGHTS, entropies))
-
-
-def expected_window_entropy(mean, cov, low, high, candidates=None, targets=None):
-    """Expected summed binary entropy (bits) of being in [low, high] after each candidate.
-
-    Parameters
-    ----------
-    mean : ndarray of shape (n,)
-    cov : ndarray of shape (n, n)
-    low, high : float
-    candidates : array-like of int or None
-        Cells whose calculation is considered; None: all.
-    targets : array-like of int or None
-        Cells whose entropy is summed; None: all.
-
-    Returns
-    -------
-    current : float
-        Summed entropy now.
-    expected : ndarray of shape (len(candidates),)
-        Summed entropy expected after calculating each candidate.
-    """
-    mean = np.asarray(mean, dtype=float)
-    cov = np.asarray(cov, dtype=float)
-    n_cells = len(mean)
-    candidates = np.arange(n_cells) if candidates is None else np.asarray(candidates, dtype=int)
-    targets = np.arange(n_cells) if targets is None else np.asarray(targets, dtype=int)
-    target_mean = mean[targets]
-    target_variance = np.clip(np.diag(cov)[targets], 0.0, None)
-    current = float(np.sum(binary_entropy(window_probability(target_mean, np.sqrt(target_variance), low, high))))
-    expected = np.empty(len(candidates))
-    for start in range(0, len(candidates), _WINDOW_CHUNK):
-        chunk = candidates[start:start + _WINDOW_CHUNK]
-        pivots = np.diag(cov)[chunk]
-        safe = np.where(pivots > _SETTLED, pivots, 1.0)
-        cross = cov[np.ix_(chunk, targets)] * (pivots > _SETTLED)[:, None]  # (c, t)
-        variance = np.clip(target_variance[None, :] - cross**2 / safe[:, None], 0.0, None)
-        shift = cross / np.sqrt(safe)[:, None]
-        means = target_mean[None, None, :] + _NODES[None, :, None] * shift[:, None, :]
-        inside = window_probability(means, np.sqrt(variance)[:, None, :], low, high)
-        entropies = binary_entropy(inside)
-        # a calculated cell is settled whatever its result: its own term is exactly 0
-        # (the middle node could put its result on a window edge, where p = 0.5)
-        own = chunk[:, None] == targets[None, :]  # (candidates, targets)
-        entropies = np.where(own[:, None, :], 0.0, entropies)
-        expected[start:start + len(chunk)] = np.einsum("k,ckt->c", _NODE_WEIGHTS, entropies)
-    return current, expected
-
-
-# ------------------------------------------------------------ the surrogate's joint
-class _Block:
-    """The missing target cells of one quantity, their calibrated mean and covariance."""
-
-    def __init__(self, quantity, cells, mean, cov):
-        self.quantity = quantity
-        self.cells = cells  # KEY_COLUMNS + scenario, one row per missing target cell
-        self.mean = mean
-        self.cov = cov
-
-
-def _grid(surrogate, element_symbols):
-    """Every element (table's, then extra ones) times every column of the table."""
-    table = surrogate.table_
-    symbols = list(dict.fromkeys(table["element"]))
-    for symbol in element_symbols or ():
-        canonical = normalise_symbol(symbol)
-        if canonical is None:
-            raise DopantgapError(
-                f"--elements: {symbol!r} is not an element symbol; e.g. --elements Ti,V."
-            )
-        if canonical not in symbols:
-            symbols.append(canonical)
-    columns = table[["host", "site", "method", "quantity"]].drop_duplicates()
-    return pd.DataFrame(
-        [
-            {"element": symbol, "host": host, "site": site, "method": method, "quantity": quantity}
-            for symbol in symbols
-            for host, site, method, quantity in columns.itertuples(index=False, name=None)
-        ],
-        columns=list(KEY_COLUMNS),
-    )
-
-
-def _quantity_block(surrogate, grid, quantity, methods, known):
-    """Calibrated joint of the missing cells of ``quantity`` at ``methods``.
-
-    Every level is written as a sum of independent stage processes: value(level k) at a
-    cell is the user's number where computed, else stage_k + value(level k-1) for a
-    correction stage (stage_k alone for a direct one). The weight of stage s in
-    value(level k) is therefore 0 or 1 per cell, and the covariance of two cells is the
-    sum over stages of their weights times the stage's covariance: the same numbers as
-    ``Surrogate._joint`` within one level, and the chain's covariance across levels.
-    """
-    levels = surrogate.quantity_levels_[quantity]
-    rows = grid[grid["quantity"] == quantity]
-    wanted = [method for method in levels if method in methods and method in set(rows["method"])]
-    if not wanted:
-        return None
-    top = max(levels.index(method) for method in wanted)
-    units = rows[_CELL].drop_duplicates().reset_index(drop=True)
-    n_units = len(units)
-    unit_keys = list(units.itertuples(index=False, name=None))
-    stage_covs, level_means, level_weights, level_computed = [], [], [], []
-    for position, method in enumerate(levels[: top + 1]):
-        stage = surrogate.stages_[(quantity, method)]
-        stage_mean, stage_cov = stage.learner.predict(stage.encoder.transform(units), return_cov=True)
-        stage_covs.append(np.array(stage_cov, dtype=float).reshape(n_units, n_units))
-        values = np.array([known.get(key + (method, quantity), np.nan) for key in unit_keys])
-        computed = ~np.isnan(values)
-        open_ = (~computed).astype(float)
-        mean = np.array(stage_mean, dtype=float)
-        if stage.kind == "correction" and position > 0:
-            weights = [previous * open_ for previous in level_weights[-1]] + [open_]
-            mean = mean + level_means[-1]
-        else:
-            weights = [np.zeros(n_units)] * position + [open_]
-        level_means.append(np.where(computed, values, mean))
-        level_weights.append(weights)
-        level_computed.append(computed)
-    # the missing target cells, in grid order
-    present = set(zip(rows["element"], rows["host"], rows["site"], rows["method"]))
-    unit_index = {key: index for index, key in enumerate(unit_keys)}
-    records, cell_unit, cell_level = [], [], []
-    for method in wanted:
-        position = levels.index(method)
-        for key in unit_keys:
-            if key + (method,) in present and not level_computed[position][unit_index[key]]:
-                records.append(key + (method, quantity))
-                cell_unit.append(unit_index[key])
-                cell_level.append(position)
-    if not records:
-        return None
-    if len(records) > _MAX_BLOCK_CELLS:
-        raise DopantgapError(
-            f"{len(records)} missing {quantity} cells are too many to rank jointly (at most "
-            f"{_MAX_BLOCK_CELLS}); narrow the candidates with --method."
-        )
-    cells = pd.DataFrame(records, columns=list(KEY_COLUMNS))
-    cell_unit, cell_level = np.array(cell_unit), np.array(cell_level)
-    cov = np.zeros((len(cells), len(cells)))
-    for stage_position, stage_cov in enumerate(stage_covs):
-        weight = np.array(
-            [
-                level_weights[level][stage_position][unit] if stage_position <= level else 0.0
-                for unit, level in zip(cell_unit, cell_level)
-            ]
-        )
-        if not weight.any():
-            continue
-        cov += np.outer(weight, weight) * stage_cov[np.ix_(cell_unit, cell_unit)]
-    mean = np.array([level_means[level][unit] for unit, level in zip(cell_unit, cell_level)])
-    core = surrogate.table_[list(REQUIRED_COLUMNS)]
-    scenarios = surrogate._scenarios(core, cells)
-    scale = surrogate.std_factors(cells)
-    cov = cov * np.outer(scale, scale)
-    cells["scenario"] = scenarios
-    return _Block(quantity, cells, mean, (cov + cov.T) / 2.0)
-
-
-def _blocks(surrogate, grid, methods, quantities):
-    core = surrogate.table_[list(REQUIRED_COLUMNS)]
-    known = surrogate._known(core)
-    blocks = []
-    for quantity in quantities:
-        block = _quantity_block(surrogate, grid, quantity, methods, known)
-        if block is not None:
-            blocks.append(block)
-    return blocks
 
 
 # ------------------------------------------------------------------------ goals
@@ -835,8 +506,8 @@ def pick_next(
             )
         quantities = [quantity for quantity in quantities if quantity in site_qs]
     methods = levels if method is None else [method]
-    grid = _grid(surrogate, element_symbols)
-    blocks = _blocks(surrogate, grid, methods, quantities)
+    grid = cell_grid(surrogate, element_symbols)
+    blocks = missing_joints(surrogate, grid, methods, quantities)
     if goal == "table":
         rule = _TableGoal(blocks)
     elif goal == "window":

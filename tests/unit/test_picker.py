@@ -29,7 +29,6 @@ from dopantgap.learners import BoostLearner
 from dopantgap.errors import DopantgapError
 from dopantgap.picker import (
     PICK_COLUMNS,
-    _quantity_block,
     binary_entropy,
     condition_on,
     expected_site_entropy,
@@ -42,6 +41,7 @@ from dopantgap.picker import (
     summed_variance_reduction,
     window_probability,
 )
+from dopantgap.joint import missing_joint
 from dopantgap.store import load_model
 from dopantgap.surrogate import Surrogate, _Stage
 from dopantgap.table import KEY_COLUMNS
@@ -327,7 +327,7 @@ def test_chain_covariance_across_levels():
          for e in (ANCHOR, "Ti", "V") for m in ("gga", "hyb") for s in sites]
     )
     known = model._known(model.table_)
-    block = _quantity_block(model, grid, "E", ["gga", "hyb"], known)
+    block = missing_joint(model, grid, "E", ["gga", "hyb"], known)
     keys = list(zip(block.cells["element"], block.cells["site"], block.cells["method"]))
     assert ("V", "s1", "gga") not in keys and len(keys) == 7
     at = {key: position for position, key in enumerate(keys)}
