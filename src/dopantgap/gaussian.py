@@ -19,6 +19,7 @@ __all__ = [
     "expected_site_entropy",
     "expected_window_entropy",
     "matrix_root",
+    "smooth_root",
     "site_entropy",
     "site_probabilities",
     "summed_variance_reduction",
@@ -130,6 +131,29 @@ def matrix_root(cov):
     """A matrix R with R R^T = cov, for a positive semi-definite cov (zero rows allowed)."""
     eigenvalues, eigenvectors = np.linalg.eigh((cov + cov.T) / 2.0)
     return eigenvectors * np.sqrt(np.clip(eigenvalues, 0.0, None))
+
+
+def smooth_root(cov):
+    """A matrix R with R R^T = cov that moves smoothly with cov (zero rows allowed).
+
+    The Cholesky factor of the unsettled cells (a tiny jitter keeps a singular block
+    factorable), zero elsewhere; eigenvectors (``matrix_root``) can swap or turn when
+    the matrix changes a little, which would make common random draws differ between
+    two nearby covariances by more than the covariances do.
+    """
+    cov = (np.asarray(cov, dtype=float) + np.asarray(cov, dtype=float).T) / 2.0
+    root = np.zeros_like(cov)
+    open_ = np.flatnonzero(np.diag(cov) > _SETTLED)
+    if len(open_) == 0:
+        return root
+    block = cov[np.ix_(open_, open_)]
+    jitter = 1e-10 * max(float(np.max(np.diag(block))), _SETTLED)
+    try:
+        factor = np.linalg.cholesky(block + jitter * np.eye(len(open_)))
+    except np.linalg.LinAlgError:
+        factor = matrix_root(block)
+    root[np.ix_(open_, open_)] = factor
+    return root
 
 
 def site_probabilities(mean, cov, normals=None):

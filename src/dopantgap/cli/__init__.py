@@ -1,6 +1,6 @@
 """Command line: argument parsing only; the work is done by the library.
 
-Each command module (``learning``, ``using``, ``rounds``, ``demo``) holds, per command, a
+Each command module (``learning``, ``using``, ``screening``, ``rounds``, ``demo``) holds, per command, a
 function declaring its options and a handler ``run(arguments, say)``, listed in its
 ``COMMANDS``; this module orders them, dispatches, and turns errors into one-line messages.
 """
@@ -12,7 +12,7 @@ import sys
 import threading
 
 from dopantgap import __version__
-from dopantgap.cli import demo, learning, rounds, using
+from dopantgap.cli import demo, learning, rounds, screening, using
 from dopantgap.cli.common import _MANIFEST_NAME as _MANIFEST_NAME  # re-exported: a test keeps it equal to store's
 from dopantgap.cli.common import _refuse_outputs_in_model_folders
 from dopantgap.errors import DopantgapError
@@ -20,8 +20,8 @@ from dopantgap.errors import DopantgapError
 __all__ = ["main"]
 
 # the order `dopantgap --help` lists the commands in; a module's command missing here goes last
-_HELP_ORDER = ("check", "fit", "validate", "fill", "next", "explain", "add", "history", "replay", "report", "demo")
-_GROUPS = {name: command for module in (learning, using, rounds, demo) for name, command in module.COMMANDS.items()}
+_HELP_ORDER = ("check", "fit", "validate", "fill", "next", "screen", "explain", "add", "history", "replay", "report", "demo")
+_GROUPS = {name: command for module in (learning, using, screening, rounds, demo) for name, command in module.COMMANDS.items()}
 _ORDERED = [name for name in _HELP_ORDER if name in _GROUPS] + [name for name in _GROUPS if name not in _HELP_ORDER]
 _COMMANDS = {name: _GROUPS[name].run for name in _ORDERED}
 
