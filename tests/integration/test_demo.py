@@ -75,3 +75,16 @@ def test_demo_explained_folder_has_the_figures_explain_writes(demo_run):
     assert set(breakdowns.loc[breakdowns["broken_down"], "element"]) == set(DEMO_ABSENT)
     page = (out / "report.html").read_text(encoding="utf-8")
     assert "Breakdowns of: " + ", ".join(f"<b>{symbol}</b>" for symbol in DEMO_ABSENT) + "." in page
+
+
+def test_demo_screens_for_vacancy_traps_and_prints_the_candidates(demo_run):
+    _, out, text = demo_run
+    traps = pd.read_csv(out / "screen_traps.csv")
+    assert set(traps["host"]) == {"ZnS"} and set(traps["method"]) == {"hyb"}
+    assert "bind a vacancy by 1 eV or more" in text and "invented" in text
+    listed = traps[traps["verdict"] != "no"].head(8)
+    assert len(listed) >= 3
+    for row in listed.itertuples(index=False):
+        assert f"  {row.element:<3} P = {row.probability:.2f} {row.verdict:<9}" in text
+    # a yes needs the binding window to hold: every yes element's estimate lies in it
+    assert (traps.loc[traps["verdict"] == "yes", "E_bind@sub_Zn"] <= -1.0).all()
