@@ -8,6 +8,7 @@ The Python API mirrors the command line::
     filled = dg.fill_table(model, element_symbols=["Ti", "V"])
     sites = dg.site_preference(model)
     picks = dg.pick_next(model, count=5, method="hyb", cost={"gga": 1, "hyb": 30})
+    traps = dg.screen(model, [dg.Window("E_bind", float("-inf"), -0.3), dg.LowestSite("sub_Zn")])
     explained = dg.explain_model(model)
     checked = dg.validate_table(table)       # out-of-fold error per scenario, with baselines
     worst = dg.element_breakdown(checked)    # per element, the worst intervals first
@@ -21,11 +22,15 @@ from dopantgap.errors import DopantgapError, ModelFolderError, ModelVersionWarni
 __all__ = [
     "DESCRIPTORS",
     "DopantgapError",
+    "LowestSite",
     "ModelFolderError",
     "ModelVersionWarning",
     "SCENARIOS",
+    "SiteGap",
+    "SiteProperties",
     "Surrogate",
     "TableError",
+    "Window",
     "__version__",
     "build_report",
     "coverage",
@@ -40,6 +45,7 @@ __all__ = [
     "pick_next",
     "read_table",
     "save_model",
+    "screen",
     "site_preference",
     "to_wide",
     "validate_table",
@@ -70,6 +76,11 @@ _LAZY = {
     "group_breakdown": ("dopantgap.breakdown", "group_breakdown"),
     # not "validate": importing the submodule dopantgap.validate would shadow the name
     "validate_table": ("dopantgap.validate", "validate"),
+    "screen": ("dopantgap.screening", "screen"),
+    "Window": ("dopantgap.screening", "Window"),
+    "LowestSite": ("dopantgap.screening", "LowestSite"),
+    "SiteGap": ("dopantgap.screening", "SiteGap"),
+    "SiteProperties": ("dopantgap.hosts", "SiteProperties"),
 }
 
 
