@@ -85,6 +85,8 @@ def _interval(row, label):
 
 
 def _command_screen(arguments, say):
+    import pandas as pd
+
     from dopantgap.fill import parse_element_list
     from dopantgap.hosts import SiteProperties, read_site_properties
     from dopantgap.picker import parse_cost
@@ -126,9 +128,13 @@ def _command_screen(arguments, say):
         say(f"{host} at {method}: {counts.get('yes', 0)} yes, {counts.get('undecided', 0)} undecided, "
             f"{counts.get('no', 0)} no")
         shown = part[part["verdict"] != "no"].head(_SHOWN)
+        asked = part[part["element"].isin(extra) & ~part.index.isin(shown.index)]
         if len(shown) == 0:
-            say("  no element is a candidate here.")
-            continue
+            best = part.iloc[0]
+            say(f"  no element is a candidate here (highest: {best['element']}, P = {best['probability']:.2f}).")
+            if len(asked) == 0:
+                continue
+        shown = pd.concat([shown, asked])
         window_labels = []
         for condition in windows:
             site = condition.site
@@ -145,7 +151,7 @@ def _command_screen(arguments, say):
             header += f" {column[3:]:>18}"
         if "bound_vacancies" in part.columns:
             header += f" {'bound vacancies':>22}"
-        say(header + "  settles it best")
+        say(header + "  calculation that settles it best")
         for _index, row in shown.iterrows():
             marks = ("!" if row["outside_domain"] else "") + ("*" if row["caution"] else "")
             line = f"  {row['rank']:>3} {row['element'] + marks:<9} {row['probability']:>5.2f}  {row['verdict']:<9}"
@@ -157,15 +163,17 @@ def _command_screen(arguments, say):
                 line += f" {row['bound_vacancies']:>6.2f} [{row['bound_vacancies lo']:.2f}, {row['bound_vacancies hi']:.2f}]"
             if row["decisive_cell"]:
                 line += f"  {row['decisive_cell']} (-{row['decisive_gain_bits']:.2f} bit)"
+            elif row["element"] in extra and row["verdict"] == "no":
+                line += "  (asked with --elements)"
             say(line)
-        rest = len(part[part["verdict"] != "no"]) - len(shown)
+        rest = len(part[part["verdict"] != "no"]) - len(shown) + len(asked)
         if rest > 0:
             say(f"  ... {rest} more candidates in {arguments.out}")
     say("")
     say("marks: ! outside what the model has seen (domain_note in the file); * radioactive or toxic (caution)")
     for note in frame.attrs.get("notes", []):
         say(f"note: {note}")
-    listed = frame[frame["verdict"] != "no"]
+    listed = frame[(frame["verdict"] != "no") | frame["element"].isin(extra)]
     flagged = listed.loc[listed["caution"] != "", ["element", "caution"]].drop_duplicates("element")
     for row in flagged.itertuples(index=False):
         say(f"caution: {row.element}: {row.caution}")
