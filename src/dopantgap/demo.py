@@ -165,7 +165,7 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     report(f"Explanations: {explain_dir}")
     page = build_report(
         surrogate, read_manifest(model_dir), report_path, element_symbols=DEMO_ABSENT,
-        explanation_dir=explain_dir, picks=picks, model_dir=model_dir,
+        explanation_dir=explain_dir, picks=picks, model_dir=model_dir, screen=traps,
     )
     report(f"Report (open in a browser): {page}")
     report("")

@@ -30,11 +30,13 @@ from dopantgap.reporting.page import (
     escaped as _text,
     figure_html as _figure_html,
     folded as _folded,
+    map_html as _map_html,
     read_csv as _read_csv,
     section_html as _section,
     strip as _strip,
     table_html as _table,
 )
+from dopantgap.reporting.screening import read_screen, screening_html as _screening
 from dopantgap.sites import site_preference
 from dopantgap.table import coverage
 
@@ -48,6 +50,7 @@ __all__ = [
     "read_rounds_folder",
     "read_explanations",
     "read_picks",
+    "read_screen",
 ]
 
 #: The caution every report carries.
@@ -291,9 +294,6 @@ _TAG_CAPTION = (
     "Letters in a tile's corner: R radioactive, T toxic, X outside the training data (no element "
     "of its block in the table, or farther from every table element than the domain limit)."
 )
-# maps are drawn wider and sharper than the other figures: their tile text must read at
-# 1400 px (plots.maps.MAP_WIDTH_INCHES x _MAP_DPI = 1300 px natural width)
-_MAP_DPI = 100
 
 
 def _summary(surrogate, manifest, model_dir, filled, level, invented):
@@ -382,21 +382,6 @@ def _coverage(table):
         f"(host / site / method / quantity); {totals['n_computed']} of {totals['n_cells']} cells "
         f"computed ({100.0 * totals['fraction_computed']:.1f} %).</p>"
         + _table(shown, digits=2)
-    )
-
-
-def _map_html(figure, caption, alt):
-    """A periodic-table map as a full-width image with its caption.
-
-    ``data-tile-text-px`` is the map's smallest tile font in the PNG's own pixels
-    (points x dpi / 72): the size a reader sees is that times the image's displayed
-    width over its natural width (the browser test measures both).
-    """
-    text_px = figure.tile_text_points_ * _MAP_DPI / 72.0
-    uri = plots.figure_to_data_uri(figure, dpi=_MAP_DPI)
-    return (
-        f'<figure class="map"><img src="{uri}" alt="{_text(alt)}" data-tile-text-px="{text_px:.2f}">'
-        f"<figcaption>{_text(caption)}</figcaption></figure>"
     )
 
 
@@ -632,7 +617,7 @@ def _filled_table(filled, extrapolated):
 # ----------------------------------------------------------------------------- entry point
 def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_dir=None, picks=None,
                  history=None, replay_curves=None, progress=None, model_dir=None, level=0.9,
-                 columns=None):
+                 columns=None, screen=None):
     """Write one self-contained HTML report of a fitted model.
 
     Parameters
@@ -662,6 +647,9 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         ``host/site/method/quantity`` labels of the columns to map (``--columns``);
         None: per host and quantity, the site computed for the most elements at the
         dearest level (at most six).
+    screen : DataFrame, str, Path or None, default=None
+        A screen (``screening.screen``) or its CSV: adds a screening section (maps,
+        ranked candidates, conditions, notes).
 
     Returns
     -------
@@ -672,6 +660,8 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
     explanations = read_explanations(explanation_dir) if explanation_dir is not None else None
     if picks is not None and not isinstance(picks, pd.DataFrame):
         picks = read_picks(picks)
+    if screen is not None and not isinstance(screen, pd.DataFrame):
+        screen = read_screen(screen)
     table = surrogate.table_
     element_symbols = list(element_symbols or ())
     chosen_columns = map_columns(table, columns) if columns is not None else _main_columns(table, surrogate.levels_)
@@ -695,6 +685,8 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
          + _findings(surrogate, manifest, filled, preference, picks, chosen_columns, extrapolated)
          + _cautions(surrogate, flags, extrapolated, level, outside)),
     ]
+    if screen is not None:
+        sections.append(("screen", "Screen: which elements meet the conditions", _screening(screen, invented)))
     step(1)
     sections.append(("sites", "Site preference", _strip(_site_maps(preference, surrogate, tags), "map")))
     step(1)

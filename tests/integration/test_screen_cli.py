@@ -47,3 +47,21 @@ def test_screen_refuses_bad_requests_in_one_line(demo_model_dir, tmp_path, capsy
     assert fragment in error
     assert "Traceback" not in error
     assert not (tmp_path / "s.csv").exists()
+
+
+def test_report_takes_the_screen_and_refuses_a_file_that_is_not_one(demo_model_dir, tmp_path, capsys):
+    screen_csv = tmp_path / "screen.csv"
+    assert main(["screen", str(demo_model_dir), "--out", str(screen_csv), "--window", "E_bind:-inf:-1",
+                 "--lowest-site", "sub_Zn", "--quiet"]) == 0
+    page = tmp_path / "report.html"
+    assert main(["report", str(demo_model_dir), "--out", str(page), "--screen", str(screen_csv), "--quiet"]) == 0
+    html = page.read_text(encoding="utf-8")
+    assert "Screen: which elements meet the conditions" in html
+    assert "E_bind &lt;= -1 AND sub_Zn lowest" in html or "E_bind <= -1 AND sub_Zn lowest" in html
+    capsys.readouterr()
+    not_a_screen = tmp_path / "table.csv"
+    not_a_screen.write_text("element,host,site,method,quantity,value\nTi,ZnS,sub_Zn,gga,E_sol,1.0\n")
+    assert main(["report", str(demo_model_dir), "--out", str(tmp_path / "r2.html"), "--screen", str(not_a_screen)]) == 2
+    error = capsys.readouterr().err
+    assert "not a screen output" in error and "table.csv" in error
+    assert not (tmp_path / "r2.html").exists()

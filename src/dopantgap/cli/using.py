@@ -113,6 +113,8 @@ def _add_report_parser(commands):
     report.add_argument("--explanations", default=None, metavar="DIR", help="folder written by 'explain'")
     report.add_argument("--picks", default=None, metavar="NEXT.csv", help="picks written by 'next'")
     report.add_argument("--rounds-dir", default=None, metavar="DIR", help="rounds folder (from 'add') or replay folder")
+    report.add_argument("--screen", default=None, metavar="SCREEN.csv",
+                        help="screen written by 'screen': probability map and ranked candidates")
     report.add_argument(
         "--columns", default=None, metavar="HOST/SITE/METHOD/QUANTITY,...",
         help="table columns to draw on the periodic table, e.g. ZnS/sub_Zn/hyb/E_sol (default: per host "
@@ -319,7 +321,7 @@ def _command_explain(arguments, say):
 def _command_report(arguments, say):
     from dopantgap.fill import parse_element_list
     from dopantgap.progress import bar
-    from dopantgap.report import REPORT_STEPS, build_report, map_columns, read_rounds_folder
+    from dopantgap.report import REPORT_STEPS, build_report, map_columns, read_rounds_folder, read_screen
 
     extra = parse_element_list(arguments.elements) if arguments.elements else []
     started = time.perf_counter()
@@ -331,11 +333,13 @@ def _command_report(arguments, say):
     history = replay_curves = None
     if arguments.rounds_dir:
         history, replay_curves = read_rounds_folder(arguments.rounds_dir, surrogate=surrogate)
+    screened = read_screen(arguments.screen) if arguments.screen else None  # refused before any work
     with bar(REPORT_STEPS, "report", quiet=arguments.quiet) as progress:
         path = build_report(
             surrogate, manifest, arguments.out, element_symbols=extra,
             explanation_dir=arguments.explanations, picks=arguments.picks, history=history,
             replay_curves=replay_curves, progress=progress, model_dir=arguments.model, columns=columns,
+            screen=screened,
         )
     size = path.stat().st_size / 1e6
     say(f"Report written: {path} ({size:.1f} MB, {time.perf_counter() - started:.1f} s); open it in a browser.")

@@ -1,4 +1,4 @@
-"""Figures of a filled table, its validation, explanations and rounds.
+"""Figures of a filled table, its validation, explanations, rounds and screens.
 
 Every function returns a :class:`matplotlib.figure.Figure` built without pyplot's
 global state (Agg canvas), so figures can be made in threads and tests; importing this
@@ -13,6 +13,7 @@ from dopantgap.plots.checks import calibration_figure, parity_figure
 from dopantgap.plots.explanations import breakdown_figure, group_figure, importance_figure
 from dopantgap.plots.maps import column_values, periodic_map, site_preference_map, spread_map, table_position
 from dopantgap.plots.rounds import history_figure, learning_curve_figure
+from dopantgap.plots.screening import ranked_figure, screen_map, screen_map_values, screen_maps
 from dopantgap.plots.style import (
     CATEGORY_COLOURS,
     CATEGORY_HATCHES,
@@ -39,7 +40,11 @@ __all__ = [
     "luminance",
     "parity_figure",
     "periodic_map",
+    "ranked_figure",
     "save_png",
+    "screen_map",
+    "screen_map_values",
+    "screen_maps",
     "site_preference_map",
     "spread_map",
     "table_position",

@@ -267,7 +267,8 @@ def _legend_box(ax, face, edge, linewidth, linestyle="-", hatch=None):
 # ----------------------------------------------------------------------------- value map
 @_plain_text
 def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=None,
-                 annotate=True, value_format="{:.2f}", spread=None, outside=None, spread_scale=None):
+                 annotate=True, value_format="{:.2f}", spread=None, outside=None, spread_scale=None,
+                 value_range=None, scale_label=None, computed_caption="computed"):
     """A periodic table of one value per element, with its uncertainty on each tile.
 
     Parameters
@@ -295,6 +296,12 @@ def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=
     spread_scale : float or None, default=None
         The std a full-width bar stands for; None: the largest std shown, rounded up
         to 1, 2, 2.5 or 5 times a power of ten.
+    value_range : (float, float) or None, default=None
+        Ends of the colour scale (e.g. (0, 1) for probabilities); None: the values' range.
+    scale_label : str or None, default=None
+        Label of the colour scale; None: the title with the unit.
+    computed_caption : str, default="computed"
+        Legend caption of the thick solid frame.
 
     Returns
     -------
@@ -308,6 +315,8 @@ def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=
     tags = dict(tags or {})
     finite = values[np.isfinite(values.to_numpy())]
     low, high = (float(finite.min()), float(finite.max())) if len(finite) else (0.0, 1.0)
+    if value_range is not None:
+        low, high = (float(end) for end in value_range)
     if high - low < 1e-12:
         low, high = low - 0.5, high + 0.5
     norm_ = Normalize(low, high)
@@ -352,11 +361,12 @@ def periodic_map(values, title, unit="eV", computed=None, cmap=VALUE_CMAP, tags=
                         fontsize=_SPREAD_POINTS, color=ink, gid=f"spread-{symbol}")
             _bar(ax, column, row, std / scale, ink, gid=f"bar-{symbol}")
 
-    scale_label = f"{title} ({unit})" if unit else title
+    if scale_label is None:
+        scale_label = f"{title} ({unit})" if unit else title
     _colour_strip(ax, footer, norm_, colour_map, scale_label)
     middle = colour_map(0.5)
     entries = [
-        ("computed", _legend_box(ax, middle, _FRAME_INK, _COMPUTED_FRAME)),
+        (computed_caption, _legend_box(ax, middle, _FRAME_INK, _COMPUTED_FRAME)),
         ("predicted", _legend_box(ax, middle, _FRAME_INK, _PREDICTED_FRAME)),
         ("outside the domain", _legend_box(ax, middle, _FRAME_INK, _OUTSIDE_FRAME, _OUTSIDE_DASHES)),
         ("caution (letters)", lambda x, y, size: _badge(ax, x + size, y + size / 2, "R")),

@@ -11,10 +11,16 @@ import pandas as pd
 from dopantgap import plots
 from dopantgap.errors import DopantgapError
 
-__all__ = ["DPI", "cell_html", "escaped", "figure_html", "folded", "read_csv", "section_html", "strip", "table_html"]
+__all__ = [
+    "DPI", "MAP_DPI", "cell_html", "escaped", "figure_html", "folded", "map_html", "read_csv", "section_html",
+    "strip", "table_html",
+]
 
 #: Resolution of the report's figures (a page small enough to e-mail; common practice, no source).
 DPI = 80
+#: Resolution of the maps, drawn wider and sharper than the other figures: their tile
+#: text must read at 1400 px (plots.maps.MAP_WIDTH_INCHES x MAP_DPI = 1300 px natural width).
+MAP_DPI = 100
 
 
 def read_csv(path, what, option):
@@ -68,6 +74,21 @@ def figure_html(figure, caption, alt):
     uri = plots.figure_to_data_uri(figure, dpi=DPI)
     return (
         f'<figure><img src="{uri}" alt="{escaped(alt)}">'
+        f"<figcaption>{escaped(caption)}</figcaption></figure>"
+    )
+
+
+def map_html(figure, caption, alt):
+    """A periodic-table map as a full-width image with its caption.
+
+    ``data-tile-text-px`` is the map's smallest tile font in the PNG's own pixels
+    (points x dpi / 72): the size a reader sees is that times the image's displayed
+    width over its natural width (the browser test measures both).
+    """
+    text_px = figure.tile_text_points_ * MAP_DPI / 72.0
+    uri = plots.figure_to_data_uri(figure, dpi=MAP_DPI)
+    return (
+        f'<figure class="map"><img src="{uri}" alt="{escaped(alt)}" data-tile-text-px="{text_px:.2f}">'
         f"<figcaption>{escaped(caption)}</figcaption></figure>"
     )
 
