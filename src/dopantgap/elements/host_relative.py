@@ -142,7 +142,7 @@ def host_relative_table(elements, hosts, sites, compositions, values=None):
         Impurity element symbol, host label and site label of each cell.
         A site may be None or NaN (no site: the host's atom fractions).
     compositions : dict
-        Host label -> composition, e.g. from ``formulas.host_compositions``.
+        Host label -> composition, e.g. from :func:`dopantgap.hosts.host_compositions`.
     values : DataFrame, optional
         Full descriptor table to compute from (see ``descriptor_table``'s
         ``values``); None: the installed mendeleev's numbers.
