@@ -242,3 +242,16 @@ def test_bad_site_properties_name_file_and_line(tmp_path, text, fragment, line):
     with pytest.raises(TableError, match=fragment) as caught:
         read_site_properties(path)
     assert f"hosts.csv:{line}:" in str(caught.value)
+
+
+def test_a_yes_never_rests_on_an_extrapolation(demo_model):
+    # every element meets this window with P = 1; Pu (f block, never tabulated) is outside
+    # what the model has seen, so its yes is held back and the row says why
+    frame = screen(demo_model, [Window("E_bind", -INF, 100.0)], element_symbols=["Pu"], hosts=["ZnS"], methods=["gga"])
+    rows = frame.set_index("element")
+    assert rows.at["Pu", "probability"] == pytest.approx(1.0)
+    assert rows.at["Pu", "verdict"] == "undecided"
+    assert "outside what the model has seen" in rows.at["Pu", "verdict_note"]
+    assert rows.at["Pu", "decisive_cell"] == "ZnS/sub_Zn/gga/E_bind"
+    inside = frame[~frame["outside_domain"]]
+    assert (inside["verdict"] == "yes").all() and (inside["verdict_note"] == "").all()

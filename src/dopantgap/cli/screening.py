@@ -161,7 +161,9 @@ def _command_screen(arguments, say):
                 line += f" {row[column]:>18.2f}"
             if "bound_vacancies" in part.columns:
                 line += f" {row['bound_vacancies']:>6.2f} [{row['bound_vacancies lo']:.2f}, {row['bound_vacancies hi']:.2f}]"
-            if row["decisive_cell"]:
+            if row["decisive_cell"] and row["verdict_note"]:
+                line += f"  {row['decisive_cell']} (to confirm an extrapolation)"
+            elif row["decisive_cell"]:
                 line += f"  {row['decisive_cell']} (-{row['decisive_gain_bits']:.2f} bit)"
             elif row["element"] in extra and row["verdict"] == "no":
                 line += "  (asked with --elements)"

@@ -201,7 +201,9 @@ def screen(
     -------
     DataFrame
         One row per element, host and method, ranked by probability within each host
-        and method: ``probability``, ``verdict``, one ``P: <condition>`` column per
+        and method: ``probability``, ``verdict`` (a ``yes`` that rests on cells outside
+        what the model has seen is called ``undecided``, and ``verdict_note`` says
+        why), one ``P: <condition>`` column per
         condition, per cell read ``<quantity>@<site>`` (value, eV) with ``lo``, ``hi``
         and ``status``, ``outside_domain`` with ``domain_note``, ``caution`` (radioactive
         or toxic), for undecided rows the ``decisive_cell`` with its expected entropy
@@ -347,7 +349,19 @@ def screen(
             held = np.logical_and.reduce(held_each)
             probability = float(held.mean())
             verdict = "yes" if probability >= confidence else ("no" if probability <= 1.0 - confidence else "undecided")
-            record = {"element": element, "host": host, "method": method, "probability": probability, "verdict": verdict}
+            reasons = []
+            if element in unfamiliar:
+                reasons.append(f"outside the table's elements: {unfamiliar[element]}")
+            if element in outside_reasons:
+                reasons.append(outside_reasons[element])
+            note = ""
+            if verdict == "yes" and reasons and open_positions:
+                # a yes sends someone to the furnace or the cluster: it must not rest on an
+                # extrapolation, however confident the extrapolation looks
+                verdict = "undecided"
+                note = f"P >= {confidence:g} but outside what the model has seen: a calculation should confirm it"
+            record = {"element": element, "host": host, "method": method, "probability": probability, "verdict": verdict,
+                      "verdict_note": note}
             for tied, each in zip(setting.resolved, held_each):
                 record[f"P: {tied.label}"] = float(each.mean())
             for quantity, site in read_keys:
@@ -357,11 +371,6 @@ def screen(
                 record[f"{label} lo"] = float(summary["lo"].iat[row])
                 record[f"{label} hi"] = float(summary["hi"].iat[row])
                 record[f"{label} status"] = summary["status"].iat[row]
-            reasons = []
-            if element in unfamiliar:
-                reasons.append(f"outside the table's elements: {unfamiliar[element]}")
-            if element in outside_reasons:
-                reasons.append(outside_reasons[element])
             record["outside_domain"] = bool(reasons)
             record["domain_note"] = "; ".join(reasons)
             record["caution"] = flags.at[element, "note"]
@@ -386,6 +395,13 @@ def screen(
                 )
                 if best is not None:
                     record["decisive_cell"], record["decisive_gain_bits"], record["decisive_cost"] = best
+                elif note:
+                    # the model sees nothing left to learn, but its certainty is an
+                    # extrapolation: the cell it is least sure of is the one to check
+                    position = max(open_positions, key=lambda p: cov[p, p])
+                    quantity, site = setting.keys[position]
+                    record["decisive_cell"] = _cell_label(host, site, method, quantity)
+                    record["decisive_cost"] = float(costs.get(method, 1.0))
             if temperature is not None:
                 _thermodynamics(
                     record, setting, draws, temperature, site_properties, multiplicity_defaults, tail,
@@ -412,6 +428,15 @@ def screen(
     return frame
 
 
+def _band(values, tail):
+    """Lower bound, median and upper bound of draws (one sort; exact for constant draws)."""
+    if values[0] == values[-1] and np.all(values == values[0]):
+        value = float(values[0])
+        return value, value, value
+    low, middle, high = np.quantile(values, [tail, 0.5, 1.0 - tail])
+    return float(low), float(middle), float(high)
+
+
 def _thermodynamics(record, setting, draws, temperature, site_properties, multiplicity_defaults, tail,
                     binding_quantity, binding_site, sign, concentration, coordination, notes):
     """Site populations and bound vacancies at ``temperature``, as median and band over the draws."""
@@ -425,10 +450,8 @@ def _thermodynamics(record, setting, draws, temperature, site_properties, multip
         populations = site_populations(energies, temperature, weights)
         prefix = "pop " if len(site_quantities) == 1 else f"pop {quantity}@"
         for position, site in enumerate(sites):
-            share = populations[:, position]
-            record[f"{prefix}{site}"] = float(np.median(share))
-            record[f"{prefix}{site} lo"] = float(np.quantile(share, tail))
-            record[f"{prefix}{site} hi"] = float(np.quantile(share, 1.0 - tail))
+            low, middle, high = _band(populations[:, position], tail)
+            record[f"{prefix}{site}"], record[f"{prefix}{site} lo"], record[f"{prefix}{site} hi"] = middle, low, high
     if binding_quantity is None or binding_quantity not in setting.sites:
         return
     sites = setting.sites[binding_quantity]
@@ -454,9 +477,8 @@ def _thermodynamics(record, setting, draws, temperature, site_properties, multip
     values = draws[:, setting.index[(binding_quantity, site)]]
     lomer_binding = -values if sign == "negative" else values
     fraction = bound_vacancy_fraction(lomer_binding, concentration, z, temperature)
-    record["bound_vacancies"] = float(np.median(fraction))
-    record["bound_vacancies lo"] = float(np.quantile(fraction, tail))
-    record["bound_vacancies hi"] = float(np.quantile(fraction, 1.0 - tail))
+    low, middle, high = _band(fraction, tail)
+    record["bound_vacancies"], record["bound_vacancies lo"], record["bound_vacancies hi"] = middle, low, high
     notes.append(
         f"bound vacancies in {host}: Lomer's relation with Z = {z:g} ({site}), x = {concentration:g}, "
         f"T = {temperature:g} K."
