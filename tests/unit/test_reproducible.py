@@ -89,7 +89,7 @@ def no_work(monkeypatch):
         raise _Spy("work began before the arguments were checked")
 
     monkeypatch.setattr(Surrogate, "_fit_candidate", began)
-    monkeypatch.setattr("dopantgap.surrogate._host_compositions", began)
+    monkeypatch.setattr("dopantgap.surrogate.model._host_compositions", began)
 
 
 @pytest.mark.parametrize("bad", BAD_SEEDS)

@@ -1,0 +1,155 @@
+"""Predicting through a surrogate's chain of levels, and the calibrated factors.
+
+A cell at level k is predicted as the correction of its stage plus the prediction at
+level k-1 (the user's number where computed), covariances added; cells are predicted
+by quantity and method in chunks of whole elements. The scenario of each cell and the
+per-cell factors of the calibration (``calibration.ScenarioCalibration``) turn the raw
+spread into the stated one. The functions take the ``Surrogate``; its methods of the
+same names delegate here.
+"""
+
+import numpy as np
+import pandas as pd
+
+from dopantgap.calibration import SCENARIOS
+from dopantgap.errors import DopantgapError
+from dopantgap.table import KEY_COLUMNS
+
+# Cells predicted together (their joint covariance is formed in memory: 1500^2 doubles
+# are 18 MB; common practice, no source).
+_CHUNK_CELLS = 1500
+
+
+def known_values(core):
+    """Computed value of every (element, host, site, method, quantity) of ``core``."""
+    return {
+        tuple(key): value
+        for key, value in zip(core[list(KEY_COLUMNS)].itertuples(index=False), core["value"])
+    }
+
+
+def joint(surrogate, stages, known, quantity, method, cells):
+    """Mean and covariance (uncalibrated) of ``cells`` of one quantity and method.
+
+    Cells computed at this level return their value with zero variance.
+    """
+    methods = surrogate.quantity_levels_[quantity]
+    position = methods.index(method)
+    stage = stages.get((quantity, method))
+    n_cells = len(cells)
+    if stage is None:
+        # a level with no training cell of its own: only reachable through a bad call
+        raise DopantgapError(f"No model for quantity {quantity!r} at method {method!r}.")
+    mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
+    mean = np.array(mean, dtype=float)
+    cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
+    if stage.kind == "correction":
+        below_mean, below_cov = surrogate._joint(stages, known, quantity, methods[position - 1], cells)
+        mean, cov = mean + below_mean, cov + below_cov
+    computed = np.array(
+        [
+            known.get((element, host, site, method, quantity), np.nan)
+            for element, host, site in zip(cells["element"], cells["host"], cells["site"])
+        ]
+    )
+    is_computed = ~np.isnan(computed)
+    mean[is_computed] = computed[is_computed]
+    cov[is_computed, :] = 0.0
+    cov[:, is_computed] = 0.0
+    return mean, cov
+
+
+def scenarios(surrogate, core, cells):
+    """Scenario of each cell given the cells computed in ``core``."""
+    with_quantity = set(zip(core["element"], core["quantity"]))
+    computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+    found = []
+    for element, host, site, method, quantity in cells[list(KEY_COLUMNS)].itertuples(
+        index=False, name=None
+    ):
+        methods = surrogate.quantity_levels_.get(quantity, [])
+        position = methods.index(method) if method in methods else 0
+        if (element, quantity) not in with_quantity:
+            found.append("new-element")
+        elif position > 0 and (element, host, site, methods[position - 1], quantity) in computed:
+            found.append("upgrade")
+        else:
+            found.append("new-cell")
+    return np.array(found, dtype=object)
+
+
+def predict_raw(surrogate, stages, core, cells):
+    """Mean and raw std of cells, predicted by quantity and method in chunks of whole
+    elements (the joint covariance of a chunk is formed in memory)."""
+    known = surrogate._known(core)
+    mean = np.full(len(cells), np.nan)
+    std = np.full(len(cells), np.nan)
+    cells = cells.reset_index(drop=True)
+    for (quantity, method), group in cells.groupby(["quantity", "method"], sort=False):
+        element_order = list(dict.fromkeys(group["element"]))
+        chunk, size = [], 0
+        per_element = {e: rows.index for e, rows in group.groupby("element", sort=False)}
+        chunks = []
+        for element in element_order:
+            chunk.append(element)
+            size += len(per_element[element])
+            if size >= _CHUNK_CELLS:
+                chunks.append(chunk)
+                chunk, size = [], 0
+        if chunk:
+            chunks.append(chunk)
+        for chunk in chunks:
+            index = np.concatenate([per_element[element] for element in chunk])
+            part = cells.loc[index]
+            chunk_mean, chunk_cov = surrogate._joint(stages, known, quantity, method, part)
+            mean[index] = chunk_mean
+            std[index] = np.sqrt(np.clip(np.diag(chunk_cov), 0.0, None))
+    return mean, std
+
+
+def difficulty_features(level_domain, core, cells):
+    """What makes a cell harder than usual, known before it is computed: its element's
+    distance from the elements computed at its level (and host), also over the domain
+    threshold, and the element's computed cells of its quantity in ``core``."""
+    cells = cells.reset_index(drop=True)
+    distance = level_domain.distance(cells) if len(cells) else np.zeros(0)
+    threshold = level_domain.elements_.threshold_
+    if np.isfinite(threshold) and threshold > 0:
+        ratio = distance / threshold
+    else:
+        ratio = np.zeros(len(cells))
+    counts = core.groupby(["element", "quantity"]).size().to_dict()
+    element_cells = np.array(
+        [counts.get((element, quantity), 0) for element, quantity in zip(cells["element"], cells["quantity"])],
+        dtype=float,
+    )
+    return pd.DataFrame({"domain_distance": distance, "domain_ratio": ratio, "element_cells": element_cells})
+
+
+def calibrated_factors(surrogate, core, cells, scenarios, level=0.9):
+    """Per-cell factors on the raw std: the calibrated std's and the interval's
+    half-width's (scenario and quantity quantile times the cell's difficulty); 1 and
+    the Gaussian quantile for cells of no scenario (computed ones)."""
+    calibration = surrogate.calibration_
+    # difficulty features only where a difficulty model will read them (older model
+    # folders, and hand-built surrogates in tests, have none)
+    has_difficulty = bool(getattr(calibration, "difficulty_", {}))
+    features = difficulty_features(surrogate.level_domain(), core, cells) if has_difficulty else None
+    scale = np.ones(len(cells))
+    half = np.full(len(cells), 1.6448536269514722)
+    quantities = cells["quantity"].to_numpy()
+    for scenario in SCENARIOS:
+        in_scenario = scenarios == scenario
+        if not in_scenario.any():
+            continue
+        difficulty = (
+            calibration.difficulty(scenario, features[in_scenario])
+            if features is not None else np.ones(int(in_scenario.sum()))
+        )
+        scale[in_scenario] = difficulty
+        half[in_scenario] = difficulty
+        for quantity in set(quantities[in_scenario]):
+            rows = in_scenario & (quantities == quantity)
+            scale[rows] *= calibration.std_scale(scenario, quantity)
+            half[rows] *= calibration.half_width(scenario, level, quantity)
+    return scale, half

@@ -1,0 +1,257 @@
+"""Cross-validation of a surrogate: its folds, out-of-fold residuals, metrics and calibration.
+
+The main loop hides a group of elements entirely in each fold (new-element) and single
+cells of the remaining elements (new-cell); the upgrade loop relearns each correction
+without some of the elements computed at both levels. The residuals choose the learner
+(with nested selection residuals), calibrate the spread and give the metrics. The
+functions take the ``Surrogate``; its methods of the same names delegate here.
+"""
+
+import numpy as np
+import pandas as pd
+
+from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
+from dopantgap.domain import LevelDomain
+from dopantgap.errors import DopantgapError
+from dopantgap.features import CellEncoder
+from dopantgap.surrogate.chain import difficulty_features
+from dopantgap.surrogate.stages import _CELL
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+
+# Folds of the upgrade loop: at most this many, over the elements computed at both
+# levels (leave-one-element-out when there are fewer; common practice, no source).
+_UPGRADE_FOLDS = 12
+
+
+def fit_candidate(surrogate, core, name):
+    """Fitted stages of one learner, their cross-validated residuals, and the
+    corrections that keep the column shifts alone (the upgrade loop decides)."""
+    upgrade, shift_only = surrogate._cross_validate_upgrade(core, name)
+    stages = surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
+    residuals = surrogate._cross_validate(core, name, stages, shift_only)
+    if len(upgrade):
+        residuals = pd.concat([residuals, upgrade], ignore_index=True)
+    return stages, residuals, shift_only
+
+
+def fold_masks(surrogate, core):
+    """Boolean test masks over ``core`` rows, one per fold (see the package docstring)."""
+    rng = np.random.default_rng(surrogate._seed())
+    table_elements = np.array(sorted(core["element"].unique()))
+    rng.shuffle(table_elements)
+    n_folds = int(min(max(surrogate.n_folds, 2), len(table_elements)))
+    groups = np.array_split(table_elements, n_folds)
+    element = core["element"].to_numpy()
+    quantity_levels = surrogate.quantity_levels_
+    lowest = np.array(
+        [
+            quantity_levels[quantity].index(method) == 0
+            for quantity, method in zip(core["quantity"], core["method"])
+        ]
+    )
+    computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+    has_cheap = np.array(
+        [
+            position > 0
+            and (e, h, s, quantity_levels[q][position - 1], q) in computed
+            for e, h, s, q, position in zip(
+                core["element"], core["host"], core["site"], core["quantity"],
+                [quantity_levels[q].index(m) for q, m in zip(core["quantity"], core["method"])],
+            )
+        ],
+        dtype=bool,
+    )
+    masks = []
+    for fold in range(n_folds):
+        hidden_elements = np.isin(element, groups[fold])
+        test = hidden_elements.copy()
+        # single cells: cheap-level cells only, or expensive ones whose cheap level is
+        # missing too; an expensive cell with its cheap level computed is an upgrade,
+        # cross-validated by its own loop
+        candidates = ~test & (lowest | ~has_cheap)
+        test |= candidates & (rng.random(len(core)) < 1.0 / n_folds)
+        # every element keeps at least one training cell per quantity unless hidden whole
+        training = core[~test]
+        kept = set(zip(training["element"], training["quantity"]))
+        for position in np.flatnonzero(test & ~hidden_elements):
+            key = (element[position], core["quantity"].iat[position])
+            if key not in kept:
+                test[position] = False
+                kept.add(key)
+        masks.append(test)
+    return masks
+
+
+def cross_validate(surrogate, core, name, template, shift_only=frozenset()):
+    """Out-of-fold predictions of every hidden cell, with its scenario."""
+    records = []
+    for fold, test in enumerate(surrogate._fold_masks(core)):
+        if not test.any():
+            continue
+        training, held_out = core[~test], core[test].reset_index(drop=True)
+        stages = surrogate._fit_stages(training, name, template=template, mode="fold", shift_only=shift_only)
+        servable = np.array(
+            [(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])]
+        )
+        held_out = held_out[servable].reset_index(drop=True)
+        if len(held_out) == 0:
+            continue
+        mean, std = surrogate._predict_raw(stages, training, held_out)
+        part = held_out.copy()
+        part["mean"] = mean
+        part["raw_std"] = std
+        part["scenario"] = surrogate._scenarios(training, held_out)
+        part["fold"] = fold
+        level_domain = LevelDomain(
+            descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+        ).fit(training)
+        part = pd.concat([part, difficulty_features(level_domain, training, held_out)], axis=1)
+        records.append(part)
+    if not records:
+        raise DopantgapError(
+            "Cross-validation found nothing to hold out: the table needs at least two elements."
+        )
+    residuals = pd.concat(records, ignore_index=True)
+    residuals["error"] = residuals["value"] - residuals["mean"]
+    residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+    return residuals
+
+
+def cross_validate_upgrade(surrogate, core, name):
+    """Out-of-fold upgrade predictions, and the corrections best left to the shifts.
+
+    Each correction stage is relearned without some of the elements computed at
+    both levels, which are then predicted from their computed cheap level (the only
+    part of the chain an upgrade needs), twice: as the column shifts' prior plus the
+    learner, and as the prior alone. A stage whose learner does not lower the
+    out-of-fold mean absolute error keeps the prior alone (its name is returned),
+    so an upgrade is never worse than the shift rule on the table's own evidence.
+
+    Returns
+    -------
+    residuals : DataFrame
+        The kept form's out-of-fold predictions (empty when no stage has three
+        elements at both levels).
+    shift_only : frozenset
+        (quantity, method) of the corrections that keep the prior alone.
+    """
+    records, shift_only = [], set()
+    rng = np.random.default_rng(surrogate._seed() + 1)
+    # fold numbers continue after the main loop's, so that every fold id is unique
+    fold = int(min(max(surrogate.n_folds, 2), core["element"].nunique()))
+    for quantity, methods in surrogate.quantity_levels_.items():
+        for position in range(1, len(methods)):
+            cells, target, kind = surrogate._stage_rows(core, quantity, position)
+            if kind != "correction":
+                continue
+            both = np.array(sorted(cells["element"].unique()))
+            if len(both) < 3:
+                continue
+            rng.shuffle(both)
+            below = core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])]
+            forms = {"learner": [], "shift": []}
+            for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
+                test = cells["element"].isin(group).to_numpy()
+                encoder = CellEncoder(surrogate.descriptors_, surrogate.compositions_, surrogate.descriptor_values_)
+                encoder.fit(cells[~test])
+                training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
+                part = cells[test].reset_index(drop=True)
+                cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"].to_numpy()
+                part["method"] = methods[position]
+                part["quantity"] = quantity
+                part["value"] = target[test] + cheap
+                part["scenario"] = "upgrade"
+                part["fold"] = fold
+                fold += 1
+                # what the fold knew: the table less the hidden elements' cells at this level
+                hidden = (
+                    (core["quantity"] == quantity)
+                    & (core["method"] == methods[position])
+                    & core["element"].isin(group)
+                )
+                known = core[~hidden]
+                level_domain = LevelDomain(
+                    descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+                ).fit(known)
+                part = pd.concat([part, difficulty_features(level_domain, known, part)], axis=1)
+                n_elements = cells.loc[~test, "element"].nunique()
+                for form in forms:
+                    learner = surrogate._new_learner(
+                        name, encoder, int((~test).sum()), template=None, kind="correction",
+                        n_elements=n_elements, shift_only=form == "shift",
+                    )
+                    learner.fit(training_x, target[~test])
+                    correction, std = learner.predict(hidden_x, return_std=True)
+                    forms[form].append(
+                        part.assign(
+                            mean=np.asarray(correction, dtype=float) + cheap,
+                            raw_std=np.asarray(std, dtype=float),
+                        )
+                    )
+            found = {form: pd.concat(parts, ignore_index=True) for form, parts in forms.items()}
+            error = {form: float(np.mean(np.abs(rows["value"] - rows["mean"]))) for form, rows in found.items()}
+            kept = "learner" if error["learner"] < error["shift"] else "shift"
+            if kept == "shift":
+                shift_only.add((quantity, methods[position]))
+            records.append(found[kept])
+    if not records:
+        return pd.DataFrame(), frozenset(shift_only)
+    residuals = pd.concat(records, ignore_index=True)[
+        list(REQUIRED_COLUMNS)
+        + ["mean", "raw_std", "scenario", "fold", "domain_distance", "domain_ratio", "element_cells"]
+    ]
+    residuals["error"] = residuals["value"] - residuals["mean"]
+    residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+    return residuals, frozenset(shift_only)
+
+
+def _calibration(residuals):
+    """Per-scenario, per-quantity calibration from out-of-fold residuals, with per-cell
+    difficulty (``calibration.fit_calibration``)."""
+    return fit_calibration(residuals, "z")
+
+
+def _selection_residuals(residuals_by_learner):
+    """Out-of-fold residuals of the learner choice itself: each fold's cells predicted by
+    the learner with the lowest mean absolute error on the *other* folds, so that the
+    choice never sees the cells it is judged on (nested model selection; Varma & Simon
+    2006, "Bias in error estimation when using cross-validation for model selection",
+    BMC Bioinformatics 7, 91)."""
+    names = list(residuals_by_learner)
+    folds = sorted(set().union(*(set(frame["fold"]) for frame in residuals_by_learner.values())))
+    parts = []
+    for fold in folds:
+        errors = {}
+        for name in names:
+            frame = residuals_by_learner[name]
+            others = frame.loc[frame["fold"] != fold, "error"]
+            errors[name] = float(np.mean(np.abs(others))) if len(others) else np.inf
+        chosen = min(names, key=lambda name: (errors[name], names.index(name)))
+        frame = residuals_by_learner[chosen]
+        parts.append(frame[frame["fold"] == fold].assign(learner=chosen))
+    return pd.concat(parts, ignore_index=True)
+
+
+def metrics(name, residuals):
+    """Per scenario and quantity (and "all"): n, mae, rmse and the raw and calibrated
+    (cross-conformal) coverage of the 90 % interval of one learner's residuals."""
+    rows = []
+    residuals = residuals.assign(covered=cross_conformal_covered(residuals, "z", 0.9))
+    for scenario in SCENARIOS:
+        part = residuals[residuals["scenario"] == scenario]
+        for quantity, sub in [("all", part)] + list(part.groupby("quantity")):
+            if len(sub) == 0:
+                continue
+            rows.append(
+                {
+                    "learner": name,
+                    "scenario": scenario,
+                    "quantity": quantity,
+                    "n": len(sub),
+                    "mae": float(np.mean(np.abs(sub["error"]))),
+                    "rmse": float(np.sqrt(np.mean(sub["error"] ** 2))),
+                    "coverage_raw": float(np.mean(np.abs(sub["z"]) <= 1.6448536269514722)),
+                    "coverage_calibrated": float(np.mean(sub["covered"])),
+                }
+            )
+    return pd.DataFrame(rows)
