@@ -31,7 +31,8 @@ def test_populations_match_softmax_with_log_multiplicities():
     temperature = 900.0
     expected = softmax(-energies / (constants.k / constants.e * temperature) + np.log(multiplicities), axis=-1)
     got = site_populations(energies, temperature, multiplicities)
-    np.testing.assert_allclose(got, expected, rtol=1e-12)
+    # rtol: older scipy releases give k/e and the tabulated eV/K value a few 1e-11 apart
+    np.testing.assert_allclose(got, expected, rtol=1e-9)
     np.testing.assert_allclose(got.sum(axis=-1), 1.0)
 
 
