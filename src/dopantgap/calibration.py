@@ -10,7 +10,9 @@ normalised scores): the ceil((n + 1) L)-th smallest |z|. Where n is too small fo
 the Gaussian quantile scaled by the 90 % conformal quantile is used instead.
 
 Cells within a scenario differ too: an element far from those computed at a cell's
-level, or with few computed cells of its own, is harder than the model's spread says.
+level, or with few computed cells of its own, is harder than the model's spread says;
+and a model fitted on few cells can be surest exactly where it is wrong, so the model's
+own spread enters as a feature as well (its sensitivity learned from the residuals).
 :class:`DifficultyModel` learns, per scenario, how the size of the standardised
 residuals grows with such features, and the scores are divided by it before their
 quantile is taken (locally weighted conformal prediction: Lei et al. 2018, section 5.2;
@@ -21,7 +23,7 @@ gets a wider interval before it is computed, not after.
 import math
 
 import numpy as np
-from scipy.optimize import nnls
+from scipy.optimize import lsq_linear
 from scipy.stats import norm
 
 __all__ = [
@@ -43,15 +45,21 @@ _MIN_RESIDUALS = 20
 _REFERENCE_LEVEL = 0.9
 
 #: Per-cell features a difficulty model may use: the cell's domain distance over the
-#: domain threshold (``domain.LevelDomain``), and the element's computed cells of the
-#: cell's quantity.
-DIFFICULTY_FEATURES = ("domain_ratio", "element_cells")
+#: domain threshold (``domain.LevelDomain``), the element's computed cells of the
+#: cell's quantity, and the model's own (raw) std of the cell.
+DIFFICULTY_FEATURES = ("domain_ratio", "element_cells", "raw_std")
+# The model's own std enters as log(std); below this (eV) it is taken as this (a
+# computed cell has none; common practice, no source).
+_STD_FLOOR = 1e-6
 # A difficulty model needs this many residuals of its scenario (common practice, no
 # source: two slopes and an intercept want tens of points), and its scale stays within
 # these bounds, so that a few odd residuals cannot make an interval vanish or explode
 # (the bounds: common practice, no source).
 _MIN_DIFFICULTY_RESIDUALS = 40
 _SCALE_BOUNDS = (0.33, 4.0)
+# Direction of each feature's effect on the residuals' scale (ratio up, cells down, the
+# model's own std down)
+_SIGNS = np.array([1.0, -1.0, -1.0])
 # Beyond the domain limit (ratio > 1) a cell's scale is at least its ratio, up to this
 # cap (common practice, no source: an extrapolation's error grows with the distance
 # travelled beyond the data, and the table holds no residual that could say by how much).
@@ -64,18 +72,25 @@ _LOG_FLOOR = 0.02
 class DifficultyModel:
     """How much larger than the model's own spread a cell's error tends to be.
 
-    The model is log|z| = a + b * domain_ratio - c * log(1 + element_cells) with
-    b, c >= 0, fitted by non-negative least squares on centred features (the expected
-    log|z| of a Gaussian residual is log sigma plus a constant, so the slopes describe
-    how the residuals' scale changes; the constant is left to the conformal quantile).
-    The signs are fixed by what is physically sensible: a cell farther from the
-    elements computed at its level is never judged easier, an element with more
-    computed cells never harder. ``scale(features)`` is exp(b * (ratio - mean ratio)
-    - c * (log cells - mean log cells)), clipped to [0.33, 4] after the ratio is capped
-    at twice the largest ratio seen in fitting; and for a cell beyond the domain limit
-    (ratio > 1) at least the ratio itself (at most 10). The floor is what no fitted
-    slope can give: residuals come from cells the table could hide, and an element
-    unlike every element computed at a level leaves no such residual behind.
+    The model is log|z| = a + b * domain_ratio - c * log(1 + element_cells)
+    - d * log(raw_std) with b, c >= 0 and 0 <= d <= 1, fitted by bounded least squares
+    on centred features (the expected log|z| of a Gaussian residual is log sigma plus a
+    constant, so the slopes describe how the residuals' scale changes; the constant is
+    left to the conformal quantile). The signs are fixed by what is physically sensible:
+    a cell farther from the elements computed at its level is never judged easier, an
+    element with more computed cells never harder. ``d`` is the score's sensitivity to
+    the model's own spread (the role of the constant beta in the normalised score
+    |r| / (sigma + beta): Papadopoulos, Vovk & Gammerman 2011, "Regression conformal
+    prediction with nearest neighbours", JAIR 40, eq. 13): d = 0 trusts the model's std
+    as it is, d = 1 gives every cell of the scenario the same width. A Gaussian process
+    fitted on a dozen cells can put a std of 0.01 eV on a cell it misses by 0.2 eV;
+    where the out-of-fold residuals show such cells, d > 0 widens them. ``scale(features)``
+    is exp(b * (ratio - mean ratio) - c * (log cells - mean log cells) - d * (log std -
+    mean log std)), clipped to [0.33, 4] after the ratio is capped at twice the largest
+    ratio seen in fitting; and for a cell beyond the domain limit (ratio > 1) at least the
+    ratio itself (at most 10). The floor is what no fitted slope can give: residuals come
+    from cells the table could hide, and an element unlike every element computed at a
+    level leaves no such residual behind.
 
     Parameters
     ----------
@@ -86,37 +101,49 @@ class DifficultyModel:
 
     Attributes
     ----------
-    slopes_ : ndarray of shape (2,)
-        b and c; zeros when there were fewer than 40 residuals.
-    centre_ : ndarray of shape (2,)
-        Mean domain ratio and mean log(1 + element_cells) of the fitting rows.
+    slopes_ : ndarray of shape (3,)
+        b, c and d; zeros when there were fewer than 40 residuals.
+    centre_ : ndarray of shape (3,)
+        Mean domain ratio, mean log(1 + element_cells) and mean log(raw_std) of the
+        fitting rows.
     ratio_cap_ : float
     """
 
     def __init__(self, features, scores):
         design = self._design(features)
+        if len(design) and np.isnan(design[:, 2]).all():
+            design[:, 2] = 0.0  # no std given: a constant column, which gets no slope
         scores = np.abs(np.asarray(scores, dtype=float))
-        finite = np.isfinite(design[:, 0]) if len(design) else np.zeros(0, dtype=bool)
+        finite = np.isfinite(design).all(axis=1) if len(design) else np.zeros(0, dtype=bool)
         self.ratio_cap_ = 2.0 * float(design[finite, 0].max()) if finite.any() else 0.0
-        self.centre_ = design[finite].mean(axis=0) if finite.any() else np.zeros(2)
-        self.slopes_ = np.zeros(2)
+        self.centre_ = design[finite].mean(axis=0) if finite.any() else np.zeros(3)
+        self.slopes_ = np.zeros(3)
         if finite.sum() >= _MIN_DIFFICULTY_RESIDUALS:
             # a level with no computed element at all (infinite ratio) says nothing of slopes
             target = np.log(scores[finite] + _LOG_FLOOR)
             centred = design[finite] - self.centre_
-            # non-negative slopes on (ratio, -log cells): nnls on the centred system
-            signed = centred * np.array([1.0, -1.0])
-            slopes, _ = nnls(signed, target - target.mean())
-            self.slopes_ = slopes
+            # bounded slopes on (ratio, -log cells, -log std), least squares on the centred system
+            signed = centred * _SIGNS
+            upper = np.array([np.inf, np.inf, 1.0])
+            # a feature constant over the fitting rows (no std given) carries no slope
+            constant = np.ptp(centred, axis=0) <= 1e-12
+            upper[constant] = 0.0
+            fitted = lsq_linear(signed, target - target.mean(), bounds=(np.zeros(3), np.maximum(upper, 1e-300)))
+            # the solver's last digits are not a slope: what it leaves near 0 is 0
+            self.slopes_ = np.where(constant | (fitted.x < 1e-10), 0.0, fitted.x)
 
     @staticmethod
     def _design(features):
-        ratio = np.asarray(features["domain_ratio"], dtype=float) if "domain_ratio" in features else None
-        cells = np.asarray(features["element_cells"], dtype=float) if "element_cells" in features else None
         n_rows = len(features)
+
+        def column(name):
+            return np.asarray(features[name], dtype=float) if name in features else None
+
+        ratio, cells, spread = column("domain_ratio"), column("element_cells"), column("raw_std")
         ratio = np.zeros(n_rows) if ratio is None else ratio
         cells = np.zeros(n_rows) if cells is None else cells
-        return np.column_stack([ratio, np.log1p(np.maximum(cells, 0.0))])
+        log_spread = np.full(n_rows, np.nan) if spread is None else np.log(np.maximum(spread, _STD_FLOOR))
+        return np.column_stack([ratio, np.log1p(np.maximum(cells, 0.0)), log_spread])
 
     def scale(self, features):
         """Factor by which each row's residuals are expected to exceed the usual ones.
@@ -139,7 +166,12 @@ class DifficultyModel:
         if not np.any(self.slopes_):
             return np.maximum(beyond, 1.0)
         design[:, 0] = np.minimum(ratio, self.ratio_cap_)
-        exponent = (design - self.centre_) @ (self.slopes_ * np.array([1.0, -1.0]))
+        # models fitted before the std feature have two slopes
+        n_slopes = len(self.slopes_)
+        if n_slopes > 2:
+            # a cell whose own std is unknown is taken as typical of the fitting rows
+            design[:, 2] = np.where(np.isfinite(design[:, 2]), design[:, 2], self.centre_[2])
+        exponent = (design[:, :n_slopes] - self.centre_) @ (self.slopes_ * _SIGNS[:n_slopes])
         return np.maximum(np.clip(np.exp(exponent), *_SCALE_BOUNDS), beyond)
 
 
@@ -163,7 +195,8 @@ def fit_calibration(residuals, score_column="z", adaptive=True):
     """
     scores = residuals[score_column].to_numpy(dtype=float)
     difficulty = {}
-    has_features = all(name in residuals.columns for name in DIFFICULTY_FEATURES)
+    # the model's own std is optional (a baseline has none); distance and cells are not
+    has_features = all(name in residuals.columns for name in DIFFICULTY_FEATURES[:2])
     if adaptive and has_features and len(residuals):
         scenario_of = residuals["scenario"].to_numpy()
         scaled = scores.copy()

@@ -122,7 +122,7 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     mean = np.array([level_means[level][unit] for unit, level in zip(cell_unit, cell_level)])
     core = surrogate.table_[list(REQUIRED_COLUMNS)]
     scenarios = surrogate._scenarios(core, cells)
-    scale = surrogate.std_factors(cells)
+    scale = surrogate.std_factors(cells, raw_std=np.sqrt(np.clip(np.diag(cov), 0.0, None)))
     cov = cov * np.outer(scale, scale)
     cells["scenario"] = scenarios
     return MissingJoint(quantity, cells, mean, (cov + cov.T) / 2.0)

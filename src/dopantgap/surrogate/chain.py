@@ -126,15 +126,21 @@ def difficulty_features(level_domain, core, cells):
     return pd.DataFrame({"domain_distance": distance, "domain_ratio": ratio, "element_cells": element_cells})
 
 
-def calibrated_factors(surrogate, core, cells, scenarios, level=0.9):
+def calibrated_factors(surrogate, core, cells, scenarios, level=0.9, raw_std=None):
     """Per-cell factors on the raw std: the calibrated std's and the interval's
     half-width's (scenario and quantity quantile times the cell's difficulty); 1 and
-    the Gaussian quantile for cells of no scenario (computed ones)."""
+    the Gaussian quantile for cells of no scenario (computed ones). ``raw_std`` (the
+    model's own std of each cell, a difficulty feature) is predicted when not given."""
     calibration = surrogate.calibration_
     # difficulty features only where a difficulty model will read them (older model
     # folders, and hand-built surrogates in tests, have none)
     has_difficulty = bool(getattr(calibration, "difficulty_", {}))
-    features = difficulty_features(surrogate.level_domain(), core, cells) if has_difficulty else None
+    features = None
+    if has_difficulty:
+        features = difficulty_features(surrogate.level_domain(), core, cells)
+        if raw_std is None:
+            _mean, raw_std = surrogate._predict_raw(surrogate.stages_, core, cells)
+        features["raw_std"] = np.asarray(raw_std, dtype=float)
     scale = np.ones(len(cells))
     half = np.full(len(cells), 1.6448536269514722)
     quantities = cells["quantity"].to_numpy()

@@ -441,7 +441,7 @@ class Surrogate(BaseEstimator):
         is_computed = np.array([key in known for key in keys], dtype=bool)
         scenarios = self._scenarios(core, cells)
         scenarios[is_computed] = ""
-        scale, half = self._calibrated_factors(core, cells, scenarios, level)
+        scale, half = self._calibrated_factors(core, cells, scenarios, level, raw_std=raw_std)
         std = raw_std * scale
         half = raw_std * half
         std[is_computed] = 0.0
@@ -463,12 +463,12 @@ class Surrogate(BaseEstimator):
         result["outside_domain"] = np.where(is_computed, False, outside).astype(bool)
         return result
 
-    def _calibrated_factors(self, core, cells, scenarios, level=0.9):
+    def _calibrated_factors(self, core, cells, scenarios, level=0.9, raw_std=None):
         """Per-cell factors on the raw std: the calibrated std's and the interval's
         half-width's (``chain.calibrated_factors``)."""
-        return chain.calibrated_factors(self, core, cells, scenarios, level)
+        return chain.calibrated_factors(self, core, cells, scenarios, level, raw_std=raw_std)
 
-    def std_factors(self, cells):
+    def std_factors(self, cells, raw_std=None):
         """Per-cell factor turning the model's own spread into the calibrated std.
 
         The factor is the scenario and quantity's calibration times the cell's difficulty
@@ -479,6 +479,9 @@ class Surrogate(BaseEstimator):
         ----------
         cells : DataFrame
             Columns element, host, site, method, quantity.
+        raw_std : array-like or None, default=None
+            The model's own std of each cell (a difficulty feature), when the caller
+            has it; predicted otherwise.
 
         Returns
         -------
@@ -486,7 +489,7 @@ class Surrogate(BaseEstimator):
         """
         cells = self._check_cells(cells)
         core = self.table_[list(REQUIRED_COLUMNS)]
-        scale, _ = self._calibrated_factors(core, cells, self._scenarios(core, cells))
+        scale, _ = self._calibrated_factors(core, cells, self._scenarios(core, cells), raw_std=raw_std)
         return scale
 
     def level_domain(self):
@@ -532,7 +535,8 @@ class Surrogate(BaseEstimator):
         quantity, method = cells["quantity"].iloc[0], cells["method"].iloc[0]
         mean, cov = self._joint(self.stages_, known, quantity, method, cells)
         scenarios = self._scenarios(core, cells)
-        scale, _ = self._calibrated_factors(core, cells, scenarios)
+        raw_std = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+        scale, _ = self._calibrated_factors(core, cells, scenarios, raw_std=raw_std)
         return mean, cov * np.outer(scale, scale)
 
     # ------------------------------------------------------- cross-validation
