@@ -6,11 +6,11 @@ compositions, :func:`read_host_file` reads a CSV that maps other labels (such as
 table its composition.
 """
 
-import csv
 import re
 from pathlib import Path
 
 from dopantgap.errors import DopantgapError, TableError
+from dopantgap.hosts.host_file import read_host_rows
 from dopantgap.symbols import normalise_symbol
 
 __all__ = ["host_compositions", "parse_formula", "read_host_file"]
@@ -130,25 +130,8 @@ def read_host_file(path):
         formula that does not parse, or a label given twice with different
         formulas; the message names the file and line.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise TableError("host file not found; check the path", path=path) from None
-    except (OSError, UnicodeDecodeError) as error:
-        raise TableError(
-            f"cannot read the host file ({error}); save it as UTF-8 CSV", path=path
-        ) from None
-    lines = [
-        (number, line) for number, line in enumerate(text.splitlines(), start=1)
-        if line.strip() and not line.lstrip().startswith("#")
-    ]
-    if not lines:
-        raise TableError("host file is empty; give a header 'host,formula' and rows",
-                         path=path)
-    rows = list(csv.reader(line for _, line in lines))
-    header_line = lines[0][0]
-    header = [cell.strip().lower() for cell in rows[0]]
+    header_line, header, rows = read_host_rows(path, "host,formula")
+    header = [cell.lower() for cell in header]
     for needed in ("host", "formula"):
         if needed not in header:
             raise TableError(
@@ -158,7 +141,7 @@ def read_host_file(path):
     host_column, formula_column = header.index("host"), header.index("formula")
     mapping = {}
     formulas = {}
-    for (line_number, _), cells in zip(lines[1:], rows[1:]):
+    for line_number, cells in rows:
         if len(cells) <= max(host_column, formula_column):
             raise TableError(
                 f"expected {len(header)} columns, found {len(cells)}; give 'host,formula'",

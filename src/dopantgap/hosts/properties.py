@@ -8,15 +8,14 @@ words (``fcc``, ``rocksalt``) is a category. A host listed on several rows (one 
 site) gives each property once: the other rows repeat the same value or leave it blank.
 """
 
-import csv
 import math
 import re
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from dopantgap.errors import TableError
+from dopantgap.hosts.host_file import read_host_rows
 
 __all__ = ["HOST_FILE_RESERVED_COLUMNS", "HostProperties", "read_host_properties"]
 
@@ -150,22 +149,7 @@ def read_host_properties(path):
         case, a value without its host, or a host given two different values; the
         message names the file and line and the fix.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise TableError("host file not found; check the path", path=path) from None
-    except (OSError, UnicodeDecodeError) as error:
-        raise TableError(f"cannot read the host file ({error}); save it as UTF-8 CSV", path=path) from None
-    lines = [
-        (number, line) for number, line in enumerate(text.splitlines(), start=1)
-        if line.strip() and not line.lstrip().startswith("#")
-    ]
-    if not lines:
-        raise TableError("host file is empty; give a header such as 'host,formula,band_gap [eV]' and rows", path=path)
-    rows = list(csv.reader(line for _, line in lines))
-    header_line = lines[0][0]
-    header = [cell.strip() for cell in rows[0]]
+    header_line, header, rows = read_host_rows(path, "host,formula,band_gap [eV]")
     lowered = [cell.lower() for cell in header]
     if "host" not in lowered:
         raise TableError("header has no column 'host'; the first row must name 'host' and the properties",
@@ -183,7 +167,7 @@ def read_host_properties(path):
 
     hosts = []
     cells_of = {name: {} for name in columns}  # name -> host -> (text, line)
-    for (line_number, _), cells in zip(lines[1:], rows[1:]):
+    for line_number, cells in rows:
         cells = cells + [""] * (len(header) - len(cells))
         host = cells[host_column].strip()
         given = {name: cells[position].strip() for name, position in columns.items()}

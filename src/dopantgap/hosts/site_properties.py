@@ -1,10 +1,9 @@
 """Site multiplicities and coordinations per host, from the optional columns of a host file."""
 
-import csv
 import math
-from pathlib import Path
 
 from dopantgap.errors import TableError
+from dopantgap.hosts.host_file import read_host_rows
 
 __all__ = ["SiteProperties", "read_site_properties"]
 
@@ -74,21 +73,8 @@ def read_site_properties(path):
         For a file that cannot be read, a missing column, a bad number or a host and
         site given twice; the message names the file and line.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise TableError("host file not found; check the path", path=path) from None
-    except (OSError, UnicodeDecodeError) as error:
-        raise TableError(f"cannot read the host file ({error}); save it as UTF-8 CSV", path=path) from None
-    lines = [
-        (number, line) for number, line in enumerate(text.splitlines(), start=1)
-        if line.strip() and not line.lstrip().startswith("#")
-    ]
-    if not lines:
-        raise TableError("host file is empty; give a header 'host,site,multiplicity,coordination' and rows", path=path)
-    rows = list(csv.reader(line for _, line in lines))
-    header = [cell.strip().lower() for cell in rows[0]]
+    header_line, header, rows = read_host_rows(path, "host,site,multiplicity,coordination")
+    header = [cell.lower() for cell in header]
     if "multiplicity" not in header and "coordination" not in header:
         return SiteProperties(source=f"{path} (no multiplicity or coordination column)")
     for needed in ("host", "site"):
@@ -96,11 +82,11 @@ def read_site_properties(path):
             raise TableError(
                 f"header has no column {needed!r}; site properties need 'host,site' beside "
                 f"'multiplicity' and/or 'coordination'",
-                path=path, line=lines[0][0],
+                path=path, line=header_line,
             )
     column = {name: header.index(name) for name in ("host", "site", "multiplicity", "coordination") if name in header}
     multiplicity, coordination, seen = {}, {}, {}
-    for (line_number, _), cells in zip(lines[1:], rows[1:]):
+    for line_number, cells in rows:
         cells = cells + [""] * (len(header) - len(cells))
         host, site = cells[column["host"]].strip(), cells[column["site"]].strip()
         given = {
