@@ -16,6 +16,7 @@ import pandas as pd
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
+from dopantgap.fill import outside_levels, unfamiliar_elements
 from dopantgap.gaussian import smooth_root
 from dopantgap.hosts import SiteProperties
 from dopantgap.joint import cell_grid, missing_joint
@@ -283,8 +284,6 @@ def screen(
     normals = rng.standard_normal((int(n_draws), width))
     deciding_normals = rng.standard_normal((_DECIDING_DRAWS, width))
     flags = elements.element_flags(symbols)
-    from dopantgap.fill import outside_levels, unfamiliar_elements
-
     unfamiliar = unfamiliar_elements(surrogate, symbols)
     tail = (1.0 - level) / 2.0
     condition_text = " AND ".join(condition.label for condition in resolved_conditions)
