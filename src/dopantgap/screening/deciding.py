@@ -6,6 +6,10 @@ from dopantgap.gaussian import binary_entropy, expected_entropy_after, smooth_ro
 
 __all__ = ["decisive_calculation"]
 
+# An expected entropy drop below this (bits) is no reason to calculate (common practice,
+# no source: the common random draws resolve differences well below it).
+_MIN_GAIN_BITS = 1e-3
+
 
 def _probability(draws, resolved, index):
     held = np.ones(draws.shape[:-1], dtype=bool)
@@ -57,6 +61,6 @@ def decisive_calculation(mean, cov, candidates, resolved, index, normals, costs)
     for label, column, method in candidates:
         gain = max(current - expected_entropy_after(mean, cov, column, entropy), 0.0)
         cost = float(costs.get(method, 1.0))
-        if gain > 1e-3 and (best is None or gain / cost > best[1] / best[2]):
+        if gain > _MIN_GAIN_BITS and (best is None or gain / cost > best[1] / best[2]):
             best = (label, gain, cost)
     return best
