@@ -2,7 +2,15 @@
 
 import argparse
 
-from dopantgap.cli.common import _CAUTION, Command, _load_model, _number_option, _seed, add_version_option
+from dopantgap.cli.common import (
+    _CAUTION,
+    Command,
+    _load_model,
+    _number_option,
+    _say_outside_levels,
+    _seed,
+    add_version_option,
+)
 
 _SCREEN_CAUTION = (
     "A screen ranks candidates for calculation and experiment; it never replaces them."
@@ -84,10 +92,26 @@ def _interval(row, label):
     return f"{value:6.2f} [{low:.2f}, {high:.2f}]"
 
 
+def _predicted_cells(frame):
+    """The predicted cells a screen read, one row each (element, host, site, method, quantity)."""
+    import pandas as pd
+
+    parts = []
+    for column in frame.columns:
+        if not column.endswith(" status") or "@" not in column:
+            continue
+        quantity, site = column.removesuffix(" status").split("@", 1)
+        rows = frame[frame[column] == "predicted"]
+        parts.append(pd.DataFrame({"element": rows["element"], "host": rows["host"], "site": site,
+                                   "method": rows["method"], "quantity": quantity}))
+    columns = ["element", "host", "site", "method", "quantity"]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=columns)
+
+
 def _command_screen(arguments, say):
     import pandas as pd
 
-    from dopantgap.fill import parse_element_list
+    from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.hosts import SiteProperties, read_site_properties
     from dopantgap.picker import parse_cost
     from dopantgap.screening import parse_lowest_site, parse_site_gap, parse_window_condition, screen
@@ -179,10 +203,12 @@ def _command_screen(arguments, say):
     flagged = listed.loc[listed["caution"] != "", ["element", "caution"]].drop_duplicates("element")
     for row in flagged.itertuples(index=False):
         say(f"caution: {row.element}: {row.caution}")
-    outside = listed.loc[listed["outside_domain"], ["element", "domain_note"]].drop_duplicates("element")
-    for row in outside.itertuples(index=False):
-        say(f"caution: {row.element} is outside what the model has seen ({row.domain_note}); its probability "
-            f"rests on an extrapolation.")
+    # the same domain cautions, worded as fill and next word them: one line per level
+    unfamiliar = unfamiliar_elements(surrogate, list(dict.fromkeys(listed["element"])))
+    for symbol, reason in unfamiliar.items():
+        say(f"caution: {symbol} lies outside the training data ({reason}): its probabilities rest on an "
+            f"extrapolation.")
+    _say_outside_levels(say, outside_levels(surrogate, _predicted_cells(listed), skip=unfamiliar))
     say(_SCREEN_CAUTION)
     say(_CAUTION)
 
