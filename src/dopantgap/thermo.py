@@ -64,7 +64,14 @@ def site_populations(energies, temperature, multiplicities=None):
 
 
 def _check_dilute(concentration, coordination):
-    concentration = np.asarray(concentration, dtype=float)
+    """Concentration as an array and Z as a float, both checked; Z x < 1 required."""
+    try:
+        concentration = np.asarray(concentration, dtype=float)
+        coordination = float(coordination)
+    except (TypeError, ValueError):
+        raise DopantgapError(
+            f"the dopant concentration and coordination Z must be numbers, got {concentration!r} and {coordination!r}."
+        ) from None
     if np.any(~np.isfinite(concentration)) or np.any(concentration < 0):
         raise DopantgapError(f"the dopant concentration must be a site fraction >= 0, got {concentration!r}.")
     if not np.isfinite(coordination) or coordination < 1:
@@ -74,7 +81,7 @@ def _check_dilute(concentration, coordination):
             f"Z x = {coordination:g} x {float(np.max(concentration)):g} >= 1: Lomer's relation holds for "
             f"dilute dopants only (Z x < 1); give a smaller --concentration."
         )
-    return concentration
+    return concentration, coordination
 
 
 def lomer_vacancy_ratio(binding, concentration, coordination, temperature):
@@ -101,9 +108,9 @@ def lomer_vacancy_ratio(binding, concentration, coordination, temperature):
         c_v / c_v0, broadcast over the inputs.
     """
     temperature = check_temperature(temperature, option="temperature")
-    concentration = _check_dilute(concentration, float(coordination))
+    concentration, coordination = _check_dilute(concentration, coordination)
     factor = np.exp(np.asarray(binding, dtype=float) / (BOLTZMANN_EV * temperature))
-    zx = float(coordination) * concentration
+    zx = coordination * concentration
     return 1.0 - zx + zx * factor
 
 
@@ -130,8 +137,8 @@ def bound_vacancy_fraction(binding, concentration, coordination, temperature):
         Fractions in [0, 1].
     """
     temperature = check_temperature(temperature, option="temperature")
-    concentration = _check_dilute(concentration, float(coordination))
-    zx = float(coordination) * concentration
+    concentration, coordination = _check_dilute(concentration, coordination)
+    zx = coordination * concentration
     exponent = np.asarray(binding, dtype=float) / (BOLTZMANN_EV * temperature)
     # written as 1 / (1 + (1 - Zx) / (Zx e^a)) with the exponent kept in logs, so that
     # strong binding at low temperature does not overflow

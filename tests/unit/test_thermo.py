@@ -84,6 +84,7 @@ def test_bound_share_rises_with_binding_and_falls_with_temperature():
         (lambda: bound_vacancy_fraction(0.3, 0.1, 12, 900.0), "dilute"),
         (lambda: bound_vacancy_fraction(0.3, -1e-3, 12, 900.0), "site fraction"),
         (lambda: bound_vacancy_fraction(0.3, 1e-3, 0, 900.0), "coordination"),
+        (lambda: bound_vacancy_fraction(0.3, 1e-3, "twelve", 900.0), "must be numbers"),
         (lambda: site_populations([0.0, 0.1], -5.0), "kelvin"),
         (lambda: site_populations([0.0, 0.1], 900.0, [1.0, 0.0]), "multiplicities"),
     ],
