@@ -58,6 +58,45 @@ strongly electronegative elements:
 The last term adds 1.8 eV for F (chi 3.98), 1.0 for O, 0.5 for Cl, 0.4 for N, 0.2 for
 Br and nothing for any metal, so a correction learned from metals alone cannot be
 carried over to them. Plus its own noise N(0, noise_sd).
+
+The third invented function: a family of hosts
+----------------------------------------------
+``invent_host_family`` is INVENTED too. It serves the new-host job: eight rock-salt-like
+binary hosts (``FAMILY_HOSTS``: MgO CaO SrO BaO MgS CaS SrS BaS), each with a cation
+site, an anion site and an octahedral interstitial, whose energies move smoothly with
+two host descriptors, so a model that sees them can say what a host with no rows does.
+The host's cation is its least electronegative atom (as in the second world) and its
+anion the most electronegative one. With R_M the covalent radius (pm) of the host's
+cation, chi_X the Pauling electronegativity of its anion and r_h the mean covalent
+radius of its atoms, the host enters through
+
+    host term        H = 0.6 (chi_X - 3.0) - 1.2 ln(R_M / 170)
+    lattice softness k = 170 / R_M
+
+(H runs from about +0.5 eV for MgO to -0.5 eV for BaS; small cations make a stiff
+lattice, k > 1, that punishes size misfit more). With r, chi, v as above and r0, chi0,
+v0 the weighted means over the reference atoms (``elements.reference_atoms``: the
+replaced atom on ``sub_X``, the host's atom fractions on ``int_oct``, so r0 = r_h
+there), let s = ln(r / r0), d_chi = chi - chi0, d_v = v - v0:
+
+    cation substitutional  E = 0.4 + 2.6 k s^2 + 0.7 |d_chi| + 0.12 |d_v| + H
+    anion substitutional   E = 1.3 + 1.8 k s^2 + 0.5 d_chi^2 + 0.12 |d_v| + H
+    octahedral int.        E = 0.6 + 0.9 k (r / r_h)^2 + 0.25 chi - 0.04 v + H
+    vacancy binding        E = -0.2 - 0.9 k s^2 - 0.25 |d_chi| + 0.3 (chi_X - 3.0)
+
+(binding on the cation site only). Each host also gets a term u_h ~ N(0, host_sd) that
+no descriptor explains (half of it for the binding energy), so leaving one host out can
+never be predicted perfectly; every E gets the element term e_el ~ N(0, element_sd)
+(half of it for the binding energy) and noise N(0, noise_sd). A host atom put on its
+own site (Ca on sub_Ca in CaO) is just another cell of the made-up function. The
+expensive level adds a correction that grows with the anion's electronegativity
+(larger for the oxides than for the sulfides):
+
+    E_hyb - E_gga = 0.05 + 0.30 (chi_X - 2.5) + 0.15 |d_chi| + 0.2 s
+
+plus its own noise N(0, noise_sd). ``FAMILY_SITE_KINDS`` names the kind shared across
+hosts (``sub_cation``, ``sub_anion``, ``int_oct``) of every (host, site), and
+``family_host_file_text`` writes it as a host file.
 """
 
 import numpy as np
@@ -68,8 +107,12 @@ from dopantgap import elements
 __all__ = [
     "DEMO_ELEMENTS",
     "DEMO_HOSTS",
+    "FAMILY_HOSTS",
+    "FAMILY_SITE_KINDS",
     "SECOND_ELEMENTS",
     "SECOND_HOSTS",
+    "family_host_file_text",
+    "invent_host_family",
     "invent_second_world",
     "invent_world",
     "observe",
@@ -344,6 +387,199 @@ def invent_second_world(
     return world[["element", "host", "site", "method", "quantity", "value", "truth"]]
 
 
+#: Hosts of the third invented world: rock-salt-like binaries, each with its cation
+#: site, anion site and octahedral interstitial (in that order).
+FAMILY_HOSTS = {
+    formula: (f"sub_{cation}", f"sub_{anion}", "int_oct")
+    for formula, cation, anion in (
+        ("MgO", "Mg", "O"), ("CaO", "Ca", "O"), ("SrO", "Sr", "O"), ("BaO", "Ba", "O"),
+        ("MgS", "Mg", "S"), ("CaS", "Ca", "S"), ("SrS", "Sr", "S"), ("BaS", "Ba", "S"),
+    )
+}
+#: Kind of every (host, site) of ``FAMILY_HOSTS``, shared across hosts: sub_Mg in MgO and
+#: sub_Ca in CaO are both ``sub_cation``.
+FAMILY_SITE_KINDS = {
+    (host, site): kind
+    for host, sites in FAMILY_HOSTS.items()
+    for site, kind in zip(sites, ("sub_cation", "sub_anion", "int_oct"))
+}
+# Cation radius (pm) at which the family's host term has no size part and the lattice
+# softness is 1 (an invented value, between Ca and Sr).
+_FAMILY_RADIUS_SCALE = 170.0
+
+
+def _family_ions(composition):
+    """The host's cation and anion: its least and most electronegative atoms."""
+    chi = elements.descriptor_table(list(composition))["electronegativity_pauling"]
+    return chi.idxmin(), chi.idxmax()
+
+
+def _family_site_kind(site, composition):
+    """``sub_cation``, ``sub_anion`` or ``int_oct`` for a site of the family (module docstring)."""
+    prefix, _, atom = site.partition("_")
+    if prefix == "sub" and atom in composition:
+        cation, _ = _family_ions(composition)
+        return "sub_cation" if atom == cation else "sub_anion"
+    if site == "int_oct":
+        return "int_oct"
+    raise ValueError(
+        f"The invented host family has no site {site!r}; use sub_X with X a host atom, or int_oct."
+    )
+
+
+def _family_host_descriptors(composition):
+    """Host term H, lattice softness k and anion electronegativity chi_X (module docstring)."""
+    cation, anion = _family_ions(composition)
+    table = elements.descriptor_table([cation, anion])
+    cation_radius = float(table.at[cation, "covalent_radius"])
+    anion_chi = float(table.at[anion, "electronegativity_pauling"])
+    host_term = 0.6 * (anion_chi - 3.0) - 1.2 * np.log(cation_radius / _FAMILY_RADIUS_SCALE)
+    return host_term, _FAMILY_RADIUS_SCALE / cation_radius, anion_chi
+
+
+def _family_site_energy(kind, softness, s, size_ratio, chi, d_chi, d_v, valence):
+    if kind == "sub_cation":
+        return 0.4 + 2.6 * softness * s**2 + 0.7 * np.abs(d_chi) + 0.12 * np.abs(d_v)
+    if kind == "sub_anion":
+        return 1.3 + 1.8 * softness * s**2 + 0.5 * d_chi**2 + 0.12 * np.abs(d_v)
+    # octahedral interstitial: grows with the impurity's size against the host's mean atom
+    return 0.6 + 0.9 * softness * size_ratio**2 + 0.25 * chi - 0.04 * valence
+
+
+def invent_host_family(
+    element_symbols=SECOND_ELEMENTS,
+    hosts=None,
+    noise_sd=0.05,
+    element_sd=0.15,
+    host_sd=0.08,
+    methods=("gga", "hyb"),
+    seed=0,
+):
+    """Every cell of the INVENTED host family, with its true value (module docstring).
+
+    A world for predicting a host with few or no rows: the energies depend on the host
+    through its cation's covalent radius and its anion's electronegativity, smoothly,
+    plus a small per-host term no descriptor explains.
+
+    Parameters
+    ----------
+    element_symbols : sequence of str, default=SECOND_ELEMENTS
+    hosts : dict or None, default=None
+        Host formula -> site labels (``sub_X`` with X a host atom, ``int_oct``); None:
+        ``FAMILY_HOSTS``. Every host gets ``E_bind`` on its cation site when it lists it.
+    noise_sd : float, default=0.05
+        Standard deviation (eV) of the per-cell noise.
+    element_sd : float, default=0.15
+        Standard deviation (eV) of the element term no descriptor explains.
+    host_sd : float, default=0.08
+        Standard deviation (eV) of the host term no host descriptor explains.
+    methods : tuple of str, default=("gga", "hyb")
+        Names of the cheap and the expensive level.
+    seed : int, default=0
+
+    Returns
+    -------
+    DataFrame
+        Columns element, host, site, method, quantity, value, truth, as
+        ``invent_world``: quantity ``E_sol`` for site energies and ``E_bind`` for
+        vacancy binding; ``truth`` is the value before noise.
+
+    Raises
+    ------
+    ValueError
+        For a site label the invented function does not know.
+
+    Examples
+    --------
+    >>> world = invent_host_family(seed=0)
+    >>> sorted(world["host"].unique())
+    ['BaO', 'BaS', 'CaO', 'CaS', 'MgO', 'MgS', 'SrO', 'SrS']
+    """
+    hosts = FAMILY_HOSTS if hosts is None else hosts
+    rng = np.random.default_rng(seed)
+    symbols = list(element_symbols)
+    element_terms = rng.normal(0.0, element_sd, len(symbols))
+    unexplained = dict(zip(hosts, rng.normal(0.0, host_sd, len(hosts))))
+    table = elements.descriptor_table(symbols)
+    radius = table["covalent_radius"].to_numpy()
+    chi = table["electronegativity_pauling"].to_numpy()
+    valence = table["valence_electrons"].to_numpy()
+    compositions = elements.host_compositions(sorted(hosts))
+    parts = []
+    for host, sites in hosts.items():
+        composition = compositions[host]
+        host_term, softness, anion_chi = _family_host_descriptors(composition)
+        (mean_radius,) = _reference_values("int_oct", composition, ("covalent_radius",))
+        kinds = {site: _family_site_kind(site, composition) for site in sites}
+        plan = [(site, "E_sol") for site in sites]
+        plan += [(site, "E_bind") for site in sites if kinds[site] == "sub_cation"]
+        for site, quantity in plan:
+            r0, chi0, v0 = _reference_values(
+                site, composition, ("covalent_radius", "electronegativity_pauling", "valence_electrons")
+            )
+            s, d_chi, d_v = np.log(radius / r0), chi - chi0, valence - v0
+            if quantity == "E_sol":
+                base = _family_site_energy(kinds[site], softness, s, radius / mean_radius, chi, d_chi, d_v, valence)
+                base = base + host_term + unexplained[host] + element_terms
+            else:
+                base = -0.2 - 0.9 * softness * s**2 - 0.25 * np.abs(d_chi) + 0.3 * (anion_chi - 3.0)
+                base = base + 0.5 * (unexplained[host] + element_terms)
+            correction = 0.05 + 0.30 * (anion_chi - 2.5) + 0.15 * np.abs(d_chi) + 0.2 * s
+            for method, truth in ((methods[0], base), (methods[1], base + correction)):
+                parts.append(
+                    pd.DataFrame(
+                        {
+                            "element": symbols,
+                            "host": host,
+                            "site": site,
+                            "method": method,
+                            "quantity": quantity,
+                            "truth": truth.astype(float),
+                        }
+                    )
+                )
+    world = pd.concat(parts, ignore_index=True)
+    world["value"] = world["truth"] + rng.normal(0.0, noise_sd, len(world))
+    return world[["element", "host", "site", "method", "quantity", "value", "truth"]]
+
+
+def family_host_file_text(hosts=None):
+    """CSV text of a host file for the INVENTED host family: formulas and site kinds.
+
+    The ``site_kind`` column tells the tool that sites of different hosts are the same
+    kind of site (sub_Mg in MgO and sub_Ca in CaO are both ``sub_cation``).
+
+    Parameters
+    ----------
+    hosts : dict or None, default=None
+        Host formula -> site labels, as for ``invent_host_family``; None: ``FAMILY_HOSTS``.
+
+    Returns
+    -------
+    str
+        Header ``host,formula,site,site_kind`` and one row per (host, site), the host
+        label doubling as its formula; ends with a newline.
+
+    Raises
+    ------
+    ValueError
+        For a site label the invented function does not know.
+
+    Examples
+    --------
+    >>> print(family_host_file_text({"MgO": ("sub_Mg", "int_oct")}), end="")
+    host,formula,site,site_kind
+    MgO,MgO,sub_Mg,sub_cation
+    MgO,MgO,int_oct,int_oct
+    """
+    hosts = FAMILY_HOSTS if hosts is None else hosts
+    compositions = elements.host_compositions(sorted(hosts))
+    lines = ["host,formula,site,site_kind"]
+    for host, sites in hosts.items():
+        lines += [f"{host},{host},{site},{_family_site_kind(site, compositions[host])}" for site in sites]
+    return "\n".join(lines) + "\n"
+
+
 def observe(
     world,
     expensive_fraction=0.2,
@@ -358,7 +594,7 @@ def observe(
     Parameters
     ----------
     world : DataFrame
-        From ``invent_world`` or ``invent_second_world``.
+        From ``invent_world``, ``invent_second_world`` or ``invent_host_family``.
     expensive_fraction : float, default=0.2
         Share of elements with the expensive level computed (all their cells); ignored
         when ``n_expensive`` or ``expensive_elements`` is given.

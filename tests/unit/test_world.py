@@ -13,10 +13,15 @@ import pandas as pd
 import pytest
 
 from dopantgap import elements
+from dopantgap.hosts import read_host_file
 from dopantgap.world import (
     DEMO_HOSTS,
+    FAMILY_HOSTS,
+    FAMILY_SITE_KINDS,
     SECOND_ELEMENTS,
     SECOND_HOSTS,
+    family_host_file_text,
+    invent_host_family,
     invent_second_world,
     invent_world,
     observe,
@@ -120,7 +125,7 @@ def test_about_three_dozen_stable_elements_with_halogens_and_chalcogens():
     assert {"O", "S", "Se", "Te"} <= set(SECOND_ELEMENTS)
 
 
-@pytest.mark.parametrize("hosts", [SECOND_HOSTS, DEMO_HOSTS])
+@pytest.mark.parametrize("hosts", [SECOND_HOSTS, DEMO_HOSTS, FAMILY_HOSTS])
 def test_no_silicon_or_germanium_host(hosts):
     compositions = elements.host_compositions(sorted(hosts))
     for composition in compositions.values():
@@ -229,3 +234,132 @@ def test_observe_forced_elements_share_the_cheap_cells(world):
 def test_observe_refuses_impossible_choices(world, options, message):
     with pytest.raises(ValueError, match=re.escape(message)):
         observe(world, **options)
+
+
+# --------------------------------------------------------- the invented host family
+# Cation and anion of each family host, written out so the tests do not lean on the code.
+FAMILY_IONS = {
+    "MgO": ("Mg", "O"), "CaO": ("Ca", "O"), "SrO": ("Sr", "O"), "BaO": ("Ba", "O"),
+    "MgS": ("Mg", "S"), "CaS": ("Ca", "S"), "SrS": ("Sr", "S"), "BaS": ("Ba", "S"),
+}
+
+
+def family_host_term(host):
+    """The docstring's host term H = 0.6 (chi_X - 3.0) - 1.2 ln(R_M / 170), by hand."""
+    cation, anion = FAMILY_IONS[host]
+    return 0.6 * (descriptors(anion)[1] - 3.0) - 1.2 * math.log(descriptors(cation)[0] / 170.0)
+
+
+@pytest.fixture(scope="module")
+def family():
+    return invent_host_family(seed=2)
+
+
+def test_family_shape_columns_and_seed(family):
+    assert list(family.columns) == COLUMNS
+    assert family[COLUMNS].notna().all().all()
+    # 8 hosts x (3 E_sol + 1 E_bind) columns x 2 levels, one row each
+    assert len(family) == len(SECOND_ELEMENTS) * 8 * 4 * 2
+    assert not family.duplicated(["element", "host", "site", "method", "quantity"]).any()
+    assert set(family["method"]) == {"gga", "hyb"}
+    pd.testing.assert_frame_equal(family, invent_host_family(seed=2))
+    assert not np.allclose(family["value"], invent_host_family(seed=3)["value"])
+
+
+def test_family_every_host_has_its_three_sites_and_cation_binding(family):
+    assert set(family["host"]) == set(FAMILY_IONS)
+    for host, (cation, anion) in FAMILY_IONS.items():
+        columns = set(family.loc[family["host"] == host, ["site", "quantity"]].itertuples(index=False, name=None))
+        assert columns == {
+            (f"sub_{cation}", "E_sol"), (f"sub_{anion}", "E_sol"), ("int_oct", "E_sol"),
+            (f"sub_{cation}", "E_bind"),
+        }
+
+
+def test_family_host_spread_follows_the_host_descriptors(family):
+    cheap = family[(family["method"] == "gga") & (family["quantity"] == "E_sol")]
+    per_host = cheap.groupby("host")["value"].mean()
+    hosts = sorted(FAMILY_IONS)
+    host_terms = np.array([family_host_term(host) for host in hosts])
+    assert per_host.max() - per_host.min() > 0.5
+    assert host_terms.max() - host_terms.min() > 0.8
+    assert np.corrcoef(per_host[hosts].to_numpy(), host_terms)[0, 1] > 0.8
+    # the oxide of each cation sits above its sulfide (larger chi_X)
+    for cation in ("Mg", "Ca", "Sr", "Ba"):
+        assert per_host[f"{cation}O"] > per_host[f"{cation}S"]
+
+
+def test_family_unexplained_host_term_is_one_number_per_host():
+    plain = invent_host_family(noise_sd=0.0, element_sd=0.0, host_sd=0.0, seed=4)
+    shifted = invent_host_family(noise_sd=0.0, element_sd=0.0, host_sd=0.3, seed=4)
+    shift = (shifted["truth"] - plain["truth"]).groupby([plain["host"], plain["quantity"]]).agg(["min", "max"])
+    assert np.allclose(shift["min"], shift["max"], atol=1e-12)
+    per_host = shift["min"].unstack("quantity")
+    assert np.allclose(per_host["E_bind"], 0.5 * per_host["E_sol"], atol=1e-12)
+    assert per_host["E_sol"].std() > 0.05
+
+
+@pytest.mark.parametrize(
+    ("symbol", "host", "site", "quantity"),
+    [("Li", "CaS", "sub_Ca", "E_sol"), ("F", "BaO", "sub_O", "E_sol"),
+     ("Cs", "MgO", "int_oct", "E_sol"), ("Zn", "SrS", "sub_Sr", "E_bind")],
+)
+def test_family_formula_reproduced_by_hand(symbol, host, site, quantity):
+    bare = invent_host_family(element_symbols=[symbol, "Na"], noise_sd=0.0, element_sd=0.0, host_sd=0.0)
+    cation, anion = FAMILY_IONS[host]
+    radius, chi, _, valence = descriptors(symbol)
+    cation_radius, anion_chi = descriptors(cation)[0], descriptors(anion)[1]
+    softness = 170.0 / cation_radius
+    r0, chi0, _, valence0 = reference([site[4:]] if site.startswith("sub") else [cation, anion])
+    s, d_chi, d_v = math.log(radius / r0), chi - chi0, valence - valence0
+    if quantity == "E_bind":
+        cheap = -0.2 - 0.9 * softness * s**2 - 0.25 * abs(d_chi) + 0.3 * (anion_chi - 3.0)
+    elif site == f"sub_{cation}":
+        cheap = 0.4 + 2.6 * softness * s**2 + 0.7 * abs(d_chi) + 0.12 * abs(d_v) + family_host_term(host)
+    elif site == f"sub_{anion}":
+        cheap = 1.3 + 1.8 * softness * s**2 + 0.5 * d_chi**2 + 0.12 * abs(d_v) + family_host_term(host)
+    else:
+        cheap = 0.6 + 0.9 * softness * (radius / r0) ** 2 + 0.25 * chi - 0.04 * valence + family_host_term(host)
+    correction = 0.05 + 0.30 * (anion_chi - 2.5) + 0.15 * abs(d_chi) + 0.2 * s
+    assert cell(bare, symbol, host, site, "gga", quantity) == pytest.approx(cheap, abs=1e-9)
+    assert cell(bare, symbol, host, site, "hyb", quantity) == pytest.approx(cheap + correction, abs=1e-9)
+
+
+def test_family_host_descriptors_match_the_published_values():
+    # Covalent radii (pm): B. Cordero et al., "Covalent radii revisited", Dalton Trans.
+    # 2008, 2832, Table 2 (values from memory). Pauling electronegativities of O and S:
+    # CRC Handbook of Chemistry and Physics, "Electronegativity" table (values from memory).
+    published_radius = {"Mg": 141.0, "Ca": 176.0, "Sr": 195.0, "Ba": 215.0}
+    for symbol, value in published_radius.items():
+        assert descriptors(symbol)[0] == pytest.approx(value, abs=1.0)
+    assert descriptors("O")[1] == pytest.approx(3.44, abs=0.01)
+    assert descriptors("S")[1] == pytest.approx(2.58, abs=0.01)
+
+
+def test_family_host_file_parses_and_names_a_kind_per_site(tmp_path):
+    text = family_host_file_text()
+    path = tmp_path / "family_hosts.csv"
+    path.write_text(text, encoding="utf-8")
+    mapping = read_host_file(path)
+    assert mapping == {
+        host: {cation: 1.0, anion: 1.0} for host, (cation, anion) in FAMILY_IONS.items()
+    }
+    lines = text.splitlines()
+    assert lines[0] == "host,formula,site,site_kind"
+    rows = [line.split(",") for line in lines[1:]]
+    assert len(rows) == sum(len(sites) for sites in FAMILY_HOSTS.values()) == 24
+    expected = {}
+    for host, (cation, anion) in FAMILY_IONS.items():
+        expected[(host, f"sub_{cation}")] = "sub_cation"
+        expected[(host, f"sub_{anion}")] = "sub_anion"
+        expected[(host, "int_oct")] = "int_oct"
+    assert {(host, site): kind for host, formula, site, kind in rows} == expected
+    assert FAMILY_SITE_KINDS == expected
+    assert all(host == formula for host, formula, _, _ in rows)
+
+
+def test_family_unknown_site_is_refused():
+    with pytest.raises(ValueError, match=re.escape("no site 'int_tet'")):
+        invent_host_family(hosts={"MgO": ("int_tet",)})
+    with pytest.raises(ValueError, match=re.escape("no site 'sub_Zn'")):
+        family_host_file_text({"MgO": ("sub_Zn",)})
