@@ -27,6 +27,7 @@ from dopantgap.elements.host_relative import (
     HOST_RELATIVE_DESCRIPTORS,
     HOST_RELATIVE_NAMES,
     host_relative_table,
+    named_atoms,
     reference_atoms,
 )
 
@@ -48,5 +49,6 @@ __all__ = [
     "imputed_mask",
     "parse_formula",
     "read_host_file",
+    "named_atoms",
     "reference_atoms",
 ]

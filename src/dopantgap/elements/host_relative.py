@@ -16,6 +16,7 @@ __all__ = [
     "HOST_RELATIVE_DESCRIPTORS",
     "HOST_RELATIVE_NAMES",
     "host_relative_table",
+    "named_atoms",
     "reference_atoms",
 ]
 
@@ -72,6 +73,23 @@ def reference_atoms(site, composition):
             f"host composition {composition!r} is empty or has a non-positive count; "
             "give element counts such as {'Ga': 1, 'N': 1}"
         )
+    named = named_atoms(site, composition)
+    if named:
+        return {symbol: 1.0 / len(named) for symbol in named}
+    total = float(sum(composition.values()))
+    return {symbol: float(count) / total for symbol, count in composition.items()}
+
+
+def named_atoms(site, composition):
+    """Host atoms a site label names, in order (empty for ``int_oct`` or no site).
+
+    The splitting and letter-case rules are :func:`reference_atoms`'s.
+
+    Examples
+    --------
+    >>> named_atoms("sub_Zn", {"Zn": 1.0, "S": 1.0}), named_atoms("int_tet", {"Zn": 1.0, "S": 1.0})
+    (['Zn'], [])
+    """
     pieces = []
     if isinstance(site, str):
         pieces = [piece.rstrip("0123456789") for piece in _SITE_SEPARATORS.split(site)]
@@ -88,10 +106,7 @@ def reference_atoms(site, composition):
             symbol = by_lower.get(piece.lower())
             if symbol is not None and symbol not in named:
                 named.append(symbol)
-    if named:
-        return {symbol: 1.0 / len(named) for symbol in named}
-    total = float(sum(composition.values()))
-    return {symbol: float(count) / total for symbol, count in composition.items()}
+    return named
 
 
 HOST_RELATIVE_DESCRIPTORS = (

@@ -20,7 +20,7 @@ from dopantgap.hosts.host_file import read_host_rows
 __all__ = ["HOST_FILE_RESERVED_COLUMNS", "HostProperties", "read_host_properties"]
 
 HOST_FILE_RESERVED_COLUMNS = frozenset(
-    {"host", "formula", "site", "multiplicity", "coordination", "note", "notes"}
+    {"host", "formula", "site", "multiplicity", "coordination", "site_kind", "note", "notes"}
 )
 
 _HEADER = re.compile(r"^(?P<name>[^\[\]]*?)\s*(?:\[(?P<unit>[^\[\]]*)\])?\s*$")
