@@ -76,7 +76,7 @@ from dopantgap.errors import DopantgapError
 # in the space the model actually sees.
 from dopantgap.features import _LOGARITHMIC, DEFAULT_DESCRIPTORS
 
-__all__ = ["ElementDomain", "LevelDomain"]
+__all__ = ["ElementDomain", "HostDomain", "LevelDomain"]
 
 _LOG_FLOOR = 1e-3  # as in features.CellEncoder: keeps log10 finite for a zero value
 # fewest elements whose leave-one-out distances set a threshold (common practice, no source)
@@ -511,3 +511,88 @@ class LevelDomain(BaseEstimator):
             return self.elements_.nearest(symbols, reference)
 
         return self._per_reference(cells, measure)
+
+
+class HostDomain(BaseEstimator):
+    """Distance of hosts from the training hosts, in host descriptors, and an outside flag.
+
+    The rule is :class:`ElementDomain`'s, applied to host descriptor rows
+    (``hosts.host_descriptor_table``): columns known for every training host and not
+    constant over them are standardised over the training hosts; a host's distance is
+    the Euclidean distance to the nearest training host divided by the square root of
+    the column count; a host is outside when it exceeds the ``quantile`` quantile of the
+    training hosts' leave-one-out distances (infinite threshold below three hosts).
+
+    Parameters
+    ----------
+    quantile : float, default 0.95
+
+    Attributes
+    ----------
+    hosts_ : list of str
+    columns_ : list of str
+    threshold_ : float
+
+    Examples
+    --------
+    >>> from dopantgap.hosts import host_descriptor_table
+    >>> known = host_descriptor_table({h: {h: 1.0} for h in ["Cu", "Ag", "Au", "Ni", "Pd", "Pt"]})
+    >>> domain = HostDomain().fit(known)
+    >>> new = host_descriptor_table({"Cs": {"Cs": 1.0}, "Rh": {"Rh": 1.0}})
+    >>> [bool(flag) for flag in domain.outside(new)]
+    [True, False]
+    """
+
+    def __init__(self, quantile=0.95):
+        self.quantile = quantile
+
+    def fit(self, host_values, y=None):
+        """Learn the training hosts from their descriptor rows (a DataFrame indexed by host)."""
+        self.hosts_ = [str(host) for host in host_values.index]
+        columns = []
+        for name in host_values.columns:
+            column = host_values[name].to_numpy(dtype=float)
+            if len(column) and not np.isnan(column).any() and np.ptp(column) > 1e-12:
+                columns.append(name)
+        self.columns_ = columns
+        points = host_values[columns].to_numpy(dtype=float)
+        self.mean_ = points.mean(axis=0) if len(points) else np.zeros(len(columns))
+        spread = points.std(axis=0) if len(points) else np.ones(len(columns))
+        self.scale_ = np.where(spread > 1e-12, spread, 1.0)
+        self.points_ = (points - self.mean_) / self.scale_
+        loo = np.full(len(points), np.inf)
+        if len(points) > 1 and columns:
+            pairwise = self._pairwise(self.points_, self.points_)
+            np.fill_diagonal(pairwise, np.inf)
+            loo = pairwise.min(axis=1)
+        self.loo_distances_ = loo
+        self.threshold_ = (
+            float(np.quantile(loo, self.quantile, method="higher")) if len(points) >= 3 and columns else np.inf
+        )
+        return self
+
+    def _pairwise(self, first, second):
+        difference = first[:, None, :] - second[None, :, :]
+        return np.sqrt(np.sum(difference**2, axis=2) / max(len(self.columns_), 1))
+
+    def _nearest(self, host_values):
+        if not self.columns_ or not len(self.points_):
+            return np.zeros(len(host_values)), np.full(len(host_values), None, dtype=object)
+        points = (host_values[self.columns_].to_numpy(dtype=float) - self.mean_) / self.scale_
+        pairwise = self._pairwise(points, self.points_)
+        # a host the file gives no value for in a column cannot be placed: infinitely far
+        pairwise[np.isnan(pairwise)] = np.inf
+        nearest = np.argmin(pairwise, axis=1)
+        return pairwise[np.arange(len(points)), nearest], np.array(self.hosts_, dtype=object)[nearest]
+
+    def distance(self, host_values):
+        """Distance of each host row to its nearest training host (0 for a training host)."""
+        return self._nearest(host_values)[0]
+
+    def nearest(self, host_values):
+        """The nearest training host of each host row."""
+        return self._nearest(host_values)[1]
+
+    def outside(self, host_values):
+        """Whether each host row lies farther from every training host than the threshold."""
+        return self.distance(host_values) > self.threshold_

@@ -6,21 +6,29 @@ one level of theory) its input row is
 1. the element's descriptors (``elements.descriptor_table``), standardised;
 2. host-relative terms (size misfit, electronegativity and valence difference to
    the host atom(s) the impurity replaces or sits among), standardised;
-3. one 0/1 indicator per host/site column the model was trained on;
-4. two integer labels: the element's atomic number, which the learners turn into an
+3. host descriptors (``hosts.host_descriptor_table``: composition-weighted element
+   descriptors and host-file properties), standardised, when the training cells span
+   at least three hosts: they let what one host teaches carry to a host with no rows;
+4. one 0/1 indicator per host/site column the model was trained on. A cell of a column
+   never trained on (a new host) gets the mean indicator of the trained columns of the
+   same site kind (the host file's ``site_kind``, else the site label), or none;
+5. two integer labels: the element's atomic number, which the learners turn into an
    offset shared by all the element's cells (what an element does everywhere that no
    descriptor explains), and the host/site column's index (for column-mean baselines).
 
 The scaler is fitted on the training cells only, inside each cross-validation fold.
 """
 
+import copy
+
 import numpy as np
 import pandas as pd
 
 from dopantgap import elements
+from dopantgap.errors import DopantgapError
 from dopantgap.symbols import atomic_number
 
-__all__ = ["DEFAULT_DESCRIPTORS", "CellEncoder"]
+__all__ = ["DEFAULT_DESCRIPTORS", "MIN_HOSTS_FOR_HOST_DESCRIPTORS", "CellEncoder", "site_kind"]
 
 #: The elemental descriptors a model sees unless the user chooses others: size,
 #: electronegativity, shell filling and ionisation, without near-duplicates that
@@ -37,12 +45,51 @@ DEFAULT_DESCRIPTORS = (
     "polarisability",
 )
 
+#: Fewest hosts among the training cells for host descriptors to enter (common practice,
+#: no source: with two hosts a host descriptor is only a relabelled host indicator).
+MIN_HOSTS_FOR_HOST_DESCRIPTORS = 3
+
 # Descriptors spanning orders of magnitude enter as logarithms.
 _LOGARITHMIC = {"polarisability"}
 
 
 def _display_name(descriptor):
     return f"log10_{descriptor}" if descriptor in _LOGARITHMIC else descriptor
+
+
+def site_kind(host, site, site_kinds=None):
+    """The kind a (host, site) column shares with other hosts' columns.
+
+    Parameters
+    ----------
+    host, site : str
+    site_kinds : dict or None
+        (host, site) -> kind, from the host file's ``site_kind`` column.
+
+    Returns
+    -------
+    str
+        The kind given in the host file, else the site label itself (so ``int_oct``
+        in one host is the same kind as ``int_oct`` in another, and ``sub_Mg`` is
+        like ``sub_Ca`` only where the host file says so).
+    """
+    return (site_kinds or {}).get((host, site), site)
+
+
+def _host_columns(values, hosts):
+    """Host descriptor columns worth a model input: known for every training host, not
+    constant over them, and not a copy of an earlier column (an elemental host's min,
+    mean and max coincide)."""
+    rows = values.loc[list(hosts)]
+    kept = []
+    for name in rows.columns:
+        column = rows[name].to_numpy(dtype=float)
+        if np.isnan(column).any() or np.ptp(column) <= 1e-12:
+            continue
+        if any(np.allclose(column, rows[other].to_numpy(dtype=float)) for other in kept):
+            continue
+        kept.append(name)
+    return kept
 
 
 class CellEncoder:
@@ -59,6 +106,11 @@ class CellEncoder:
         ``elements.descriptor_table``): a model's ``descriptor_values_``, so that it
         encodes cells with the numbers it was fitted with. None: the installed
         mendeleev's.
+    host_values : DataFrame or None, default=None
+        Host descriptors, one row per host label (``hosts.host_descriptor_table``); a
+        host the cells name must have a row. None: no host descriptors.
+    site_kinds : dict or None, default=None
+        (host, site) -> site kind (:func:`site_kind`).
 
     Attributes
     ----------
@@ -71,13 +123,28 @@ class CellEncoder:
     label_columns_ : tuple of int
         Positions of the element label and the column label.
     n_physical_ : int
-        Number of leading descriptor and host-relative columns.
+        Number of leading descriptor, host-relative and host descriptor columns.
+    host_names_ : list of str
+        The host descriptor columns among them (empty below
+        ``MIN_HOSTS_FOR_HOST_DESCRIPTORS`` training hosts).
     """
 
-    def __init__(self, descriptors, compositions, descriptor_values=None):
+    def __init__(self, descriptors, compositions, descriptor_values=None, host_values=None, site_kinds=None):
         self.descriptors = tuple(descriptors)
         self.compositions = compositions
         self.descriptor_values = descriptor_values
+        self.host_values = host_values
+        self.site_kinds = site_kinds
+
+    def with_hosts(self, compositions, host_values, site_kinds):
+        """A copy of this fitted encoder that also knows the hosts of ``compositions``
+        (new hosts: their formulas, host descriptors and site kinds); the scaling and
+        columns learned in training are kept."""
+        fresh = copy.copy(self)
+        fresh.compositions = compositions
+        fresh.host_values = host_values
+        fresh.site_kinds = site_kinds
+        return fresh
 
     def _physical(self, cells):
         table = elements.descriptor_table(list(cells["element"]), values=self.descriptor_values)
@@ -93,6 +160,24 @@ class CellEncoder:
         )
         for name in relative.columns:
             values[name] = relative[name].to_numpy(dtype=float)
+        host_names = getattr(self, "host_names_", [])
+        if host_names:
+            unknown = sorted(set(cells["host"]) - set(self.host_values.index))
+            if unknown:
+                raise DopantgapError(
+                    f"host(s) {', '.join(unknown)} have no host descriptors; give their formulas "
+                    "(a host file with host,formula) so the model can place them"
+                )
+            rows = self.host_values.loc[list(cells["host"]), host_names]
+            missing = rows.columns[rows.isna().any()].tolist()
+            if missing:
+                hosts = sorted(set(rows.index[rows.isna().any(axis=1)]))
+                raise DopantgapError(
+                    f"host(s) {', '.join(hosts)} lack {', '.join(missing)}, which the model was "
+                    "fitted with; give them in the host file"
+                )
+            for name in host_names:
+                values[name] = rows[name].to_numpy(dtype=float)
         return pd.DataFrame(values)
 
     def fit(self, cells, columns=None):
@@ -101,6 +186,10 @@ class CellEncoder:
         ``columns`` fixes the (host, site) column list instead of reading it from the
         cells, so that a cross-validation fold keeps the full model's input layout.
         """
+        self.host_names_ = []
+        training_hosts = list(dict.fromkeys(cells["host"]))
+        if self.host_values is not None and len(training_hosts) >= MIN_HOSTS_FOR_HOST_DESCRIPTORS:
+            self.host_names_ = _host_columns(self.host_values, training_hosts)
         physical = self._physical(cells)
         self.physical_names_ = list(physical.columns)
         self.mean_ = physical.mean().to_numpy()
@@ -126,13 +215,19 @@ class CellEncoder:
         """Matrix of shape (n_cells, len(feature_names_)) for the cells (a DataFrame)."""
         physical = (self._physical(cells).to_numpy() - self.mean_) / self.scale_
         index = {column: position for position, column in enumerate(self.columns_)}
-        column_index = np.array(
-            [index.get(key, -1) for key in zip(cells["host"], cells["site"])], dtype=float
-        )
+        keys = list(zip(cells["host"], cells["site"]))
+        column_index = np.array([index.get(key, -1) for key in keys], dtype=float)
         indicators = np.zeros((len(cells), len(self.indicator_columns_)))
         if len(self.indicator_columns_):
             rows = np.flatnonzero(column_index >= 0)
             indicators[rows, column_index[rows].astype(int)] = 1.0
+            kinds = getattr(self, "site_kinds", None)
+            trained_kinds = [site_kind(host, site, kinds) for host, site in self.columns_]
+            for row in np.flatnonzero(column_index < 0):
+                kind = site_kind(*keys[row], kinds)
+                alike = [position for position, other in enumerate(trained_kinds) if other == kind]
+                if alike:
+                    indicators[row, alike] = 1.0 / len(alike)
         element_label = np.array(
             [atomic_number(symbol) for symbol in cells["element"]], dtype=float
         )

@@ -84,7 +84,7 @@ def _caution(symbols):
     return {symbol: flags.at[symbol, "note"] for symbol in flags.index}
 
 
-def fill_table(surrogate, element_symbols=None, level=0.9):
+def fill_table(surrogate, element_symbols=None, level=0.9, new_hosts=None):
     """Every cell of every element, computed or predicted with a central interval.
 
     Parameters
@@ -96,6 +96,10 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
         ``new-element`` scenario and its wider interval).
     level : float, default=0.9
         Probability content of ``lo``..``hi``.
+    new_hosts : NewHostPlan or None, default=None
+        Hosts with no computed cell to fill too (``new_hosts.plan_new_hosts``): their
+        cells get the ``new-host`` scenario, its own wider interval, and a caution
+        when the host lies outside the table's hosts.
 
     Returns
     -------
@@ -115,6 +119,9 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
         if canonical not in symbols:
             symbols.append(canonical)
     columns = table[["host", "site", "method", "quantity"]].drop_duplicates()
+    if new_hosts is not None:
+        surrogate = new_hosts.surrogate
+        columns = pd.concat([columns, new_hosts.columns], ignore_index=True)
     grid = pd.DataFrame(
         [
             {"element": symbol, "host": host, "site": site, "method": method, "quantity": quantity}
@@ -125,6 +132,14 @@ def fill_table(surrogate, element_symbols=None, level=0.9):
     filled = surrogate.predict(grid, level=float(level))
     notes = _caution(symbols)
     filled["caution"] = filled["element"].map(notes).fillna("")
+    if new_hosts is not None and new_hosts.outside:
+        for host, reason in new_hosts.outside.items():
+            rows = (filled["host"] == host).to_numpy()
+            filled.loc[rows, "outside_domain"] = True
+            note = f"host {host} lies outside the table's hosts ({reason})"
+            filled.loc[rows, "caution"] = [
+                f"{text}; {note}" if text else note for text in filled.loc[rows, "caution"]
+            ]
     extras = [c for c in table.columns if c not in KEY_COLUMNS and c != "value" and not c.startswith("_")]
     if extras:
         filled = filled.merge(table[list(KEY_COLUMNS) + extras], on=list(KEY_COLUMNS), how="left")

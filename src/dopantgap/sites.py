@@ -31,7 +31,8 @@ def _draw(mean, cov, n_samples, rng):
     return mean + rng.standard_normal((n_samples, len(mean))) @ root.T
 
 
-def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=4000, random_state=0):
+def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=4000, random_state=0,
+                    extra_columns=None):
     """Probability that each site is the lowest in energy.
 
     Parameters
@@ -47,6 +48,9 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
         is at most 0.5 / sqrt(n_samples), 0.008 for 4000).
     random_state : None, int, RandomState or Generator, default=0
         Seed of the draws (``reproducible.seed_integer``).
+    extra_columns : DataFrame or None, default=None
+        (host, site, method, quantity) columns beyond the table's, e.g. a new host's
+        (``new_hosts.NewHostPlan.columns``, with its ``surrogate``).
 
     Returns
     -------
@@ -60,8 +64,11 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
     symbols = list(dict.fromkeys(table["element"])) if element_symbols is None else list(element_symbols)
     quantities = site_quantities(table) if quantities is None else list(quantities)
     records = []
+    columns = table[["host", "site", "method", "quantity"]]
+    if extra_columns is not None:
+        columns = pd.concat([columns, extra_columns[["host", "site", "method", "quantity"]]], ignore_index=True)
     for quantity in quantities:
-        rows = table[table["quantity"] == quantity]
+        rows = columns[columns["quantity"] == quantity]
         for host, host_rows in rows.groupby("host", sort=False):
             sites = list(dict.fromkeys(host_rows["site"]))
             if len(sites) < 2:

@@ -22,7 +22,9 @@ def add_learning_options(command, learner_help):
     command.add_argument("--learner", choices=("auto", "gp", "boost"), default="auto", help=learner_help)
     command.add_argument(
         "--hosts", default=None, metavar="HOST_FILE",
-        help="CSV with columns host,formula for host labels that are not formulas",
+        help="CSV with columns host,formula (for host labels that are not formulas) and optionally "
+             "site,site_kind (sites of different hosts that behave alike) and host properties "
+             "such as 'lattice_constant [angstrom]'",
     )
     command.add_argument(
         "--suspect-values", choices=("refuse", "warn"), default="refuse",
@@ -90,10 +92,19 @@ def _table_and_estimator(arguments, say):
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
     _say_suspects(arguments, say, table)
-    hosts = elements.read_host_file(arguments.hosts) if arguments.hosts else None
+    hosts = properties = site_kinds = None
+    if arguments.hosts:
+        from dopantgap.hosts import read_host_properties, read_site_properties
+
+        hosts = elements.read_host_file(arguments.hosts)
+        properties = read_host_properties(arguments.hosts)
+        if not properties.names:
+            properties = None
+        site_kinds = read_site_properties(arguments.hosts).kinds or None
     estimator = Surrogate(
         learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
         random_state=arguments.seed, suspect_values=arguments.suspect_values,
+        host_properties=properties, site_kinds=site_kinds,
     )
     return table, estimator
 

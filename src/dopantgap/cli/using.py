@@ -26,6 +26,16 @@ def _add_fill_parser(commands):
         help="elements to add to those of the table, comma-separated",
     )
     fill.add_argument(
+        "--hosts-new", default=None, metavar="MgO,CaO",
+        help="hosts with no computed cell to fill too, comma-separated (formulas, or labels of --hosts); "
+             "needs a table of three or more hosts",
+    )
+    fill.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="host file for --hosts-new: host,formula, and site,site_kind rows naming each new host's "
+             "sites and the table sites they are like (without them only sites naming no host atom are filled)",
+    )
+    fill.add_argument(
         "--level", type=float, default=0.9,
         help="probability content of the lo..hi interval (default: 0.9)",
     )
@@ -170,6 +180,7 @@ def _command_fill(arguments, say):
     from dopantgap.fill import (
         check_fill_format, fill_table, outside_levels, parse_element_list, unfamiliar_elements, wide_filled,
     )
+    from dopantgap.new_hosts import parse_host_list, plan_new_hosts
     from dopantgap.sites import site_preference
     from dopantgap.table import check_output_suffix, write_table
 
@@ -178,11 +189,18 @@ def _command_fill(arguments, say):
     if arguments.sites_out:
         check_output_suffix(arguments.sites_out, "--sites-out")
     extra = parse_element_list(arguments.elements) if arguments.elements else []
+    if arguments.hosts and not arguments.hosts_new:
+        raise DopantgapError("--hosts describes new hosts; name them with --hosts-new (e.g. --hosts-new MgO,CaO).")
+    new_labels = parse_host_list(arguments.hosts_new) if arguments.hosts_new else []
     surrogate, manifest = _load_model(arguments, arguments.model, say)
     sites_out = _fill_outputs(arguments, surrogate, manifest, say)
-    filled = fill_table(surrogate, element_symbols=extra, level=arguments.level)
+    plan = plan_new_hosts(surrogate, new_labels, arguments.hosts) if new_labels else None
+    filled = fill_table(surrogate, element_symbols=extra, level=arguments.level, new_hosts=plan)
     write_table(wide_filled(filled) if layout == "wide" else filled, arguments.out)
-    preference = site_preference(surrogate, element_symbols=list(dict.fromkeys(filled["element"])))
+    preference = site_preference(
+        surrogate if plan is None else plan.surrogate, element_symbols=list(dict.fromkeys(filled["element"])),
+        extra_columns=None if plan is None else plan.columns,
+    )
     write_table(preference, sites_out)
     predicted = filled[filled["status"] == "predicted"]
     say(
@@ -199,6 +217,19 @@ def _command_fill(arguments, say):
                 f"caution: the {scenario} intervals rest on only {n_residuals} cross-validated "
                 f"cells; treat them as rough until the table has more computed cells."
             )
+    if plan is not None:
+        for note in plan.notes:
+            say(f"note: {note}")
+        for host in new_labels:
+            if host in plan.outside:
+                say(
+                    f"caution: host {host} lies outside the table's hosts ({plan.outside[host]}): its cells "
+                    "are extrapolations; they do not replace calculation, experiment or local safety rules."
+                )
+        say(
+            f"new host(s) {', '.join(new_labels)}: estimates from the other hosts alone, with the new-host "
+            "scenario's intervals (hosts left out in turn); a few computed cells narrow them ('next --host')."
+        )
     if len(preference):
         say(f"Site preferences -> {sites_out}")
     else:

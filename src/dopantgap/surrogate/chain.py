@@ -60,8 +60,11 @@ def joint(surrogate, stages, known, quantity, method, cells):
 
 
 def scenarios(surrogate, core, cells):
-    """Scenario of each cell given the cells computed in ``core``."""
+    """Scenario of each cell given the cells computed in ``core``: ``new-host`` when its
+    host has no computed cell of its quantity (whatever the element), else
+    ``new-element``, ``upgrade`` or ``new-cell``."""
     with_quantity = set(zip(core["element"], core["quantity"]))
+    host_quantity = set(zip(core["host"], core["quantity"]))
     computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
     found = []
     for element, host, site, method, quantity in cells[list(KEY_COLUMNS)].itertuples(
@@ -69,7 +72,9 @@ def scenarios(surrogate, core, cells):
     ):
         methods = surrogate.quantity_levels_.get(quantity, [])
         position = methods.index(method) if method in methods else 0
-        if (element, quantity) not in with_quantity:
+        if (host, quantity) not in host_quantity:
+            found.append("new-host")
+        elif (element, quantity) not in with_quantity:
             found.append("new-element")
         elif position > 0 and (element, host, site, methods[position - 1], quantity) in computed:
             found.append("upgrade")

@@ -13,14 +13,22 @@ import pandas as pd
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
 from dopantgap.domain import LevelDomain
 from dopantgap.errors import DopantgapError
-from dopantgap.features import CellEncoder
 from dopantgap.surrogate.chain import difficulty_features
-from dopantgap.surrogate.stages import _CELL
+from dopantgap.surrogate.stages import _CELL, new_encoder
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 # Folds of the upgrade loop: at most this many, over the elements computed at both
 # levels (leave-one-element-out when there are fewer; common practice, no source).
 _UPGRADE_FOLDS = 12
+# Folds of the host loop: leave one host out with up to this many hosts, else this many
+# groups of hosts held out together (common practice, no source: each fold refits every
+# stage from scratch, so the count bounds the fit time).
+_HOST_FOLDS = 8
+#: Fewest hosts for the host loop, and so for the ``new-host`` scenario (with two, a
+#: host held out leaves one to learn host effects from).
+MIN_HOSTS_FOR_NEW_HOST = 3
+# Fold ids of the host loop start here, after any main or upgrade fold's.
+_HOST_FOLD_START = 100_000
 
 
 def fit_candidate(surrogate, core, name):
@@ -29,9 +37,53 @@ def fit_candidate(surrogate, core, name):
     upgrade, shift_only = surrogate._cross_validate_upgrade(core, name)
     stages = surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
     residuals = surrogate._cross_validate(core, name, stages, shift_only)
-    if len(upgrade):
-        residuals = pd.concat([residuals, upgrade], ignore_index=True)
+    new_host = cross_validate_hosts(surrogate, core, name, shift_only)
+    parts = [residuals] + [part for part in (upgrade, new_host) if len(part)]
+    if len(parts) > 1:
+        residuals = pd.concat(parts, ignore_index=True)
     return stages, residuals, shift_only
+
+
+def host_groups(core, seed):
+    """Groups of hosts held out together by the host loop (one host per group with up
+    to ``_HOST_FOLDS`` hosts); empty below ``MIN_HOSTS_FOR_NEW_HOST`` hosts."""
+    hosts = np.array(sorted(core["host"].unique()), dtype=object)
+    if len(hosts) < MIN_HOSTS_FOR_NEW_HOST:
+        return []
+    np.random.default_rng(seed + 2).shuffle(hosts)
+    return [list(group) for group in np.array_split(hosts, min(_HOST_FOLDS, len(hosts)))]
+
+
+def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
+    """Out-of-fold predictions of every cell of hosts held out whole (``new-host``).
+
+    Every stage is refitted from scratch without the held-out hosts (their columns are
+    not in its input layout, as a new host's are not), so the hidden hosts are placed
+    only by their host descriptors and the site kinds: the way a host with no rows is
+    predicted.
+    """
+    records = []
+    for position, group in enumerate(host_groups(core, surrogate._seed())):
+        test = core["host"].isin(group).to_numpy()
+        training, held_out = core[~test], core[test].reset_index(drop=True)
+        stages = surrogate._fit_stages(training, name, template=None, shift_only=shift_only)
+        servable = np.array([(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])])
+        held_out = held_out[servable].reset_index(drop=True)
+        if len(held_out) == 0:
+            continue
+        mean, std = surrogate._predict_raw(stages, training, held_out)
+        part = held_out.assign(mean=mean, raw_std=std, scenario=surrogate._scenarios(training, held_out),
+                               fold=_HOST_FOLD_START + position)
+        level_domain = LevelDomain(
+            descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+        ).fit(training)
+        records.append(pd.concat([part, difficulty_features(level_domain, training, held_out)], axis=1))
+    if not records:
+        return pd.DataFrame()
+    residuals = pd.concat(records, ignore_index=True)
+    residuals["error"] = residuals["value"] - residuals["mean"]
+    residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+    return residuals
 
 
 def fold_masks(surrogate, core):
@@ -152,7 +204,7 @@ def cross_validate_upgrade(surrogate, core, name):
             forms = {"learner": [], "shift": []}
             for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
                 test = cells["element"].isin(group).to_numpy()
-                encoder = CellEncoder(surrogate.descriptors_, surrogate.compositions_, surrogate.descriptor_values_)
+                encoder = new_encoder(surrogate)
                 encoder.fit(cells[~test])
                 training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
                 part = cells[test].reset_index(drop=True)

@@ -6,6 +6,7 @@ through the chain of levels in ``chain``; the private methods below delegate the
 that each stays one point a caller (or a test) can reach through the model.
 """
 
+import copy
 import numbers
 
 import numpy as np
@@ -15,9 +16,10 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
 from dopantgap import elements
-from dopantgap.domain import ElementDomain, LevelDomain
+from dopantgap.domain import ElementDomain, HostDomain, LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS
+from dopantgap.hosts import host_descriptor_table
 from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.surrogate import chain, crossval
 from dopantgap.surrogate.crossval import _calibration, _selection_residuals
@@ -135,6 +137,12 @@ class Surrogate(BaseEstimator):
         Elemental descriptors the models see; None: ``features.DEFAULT_DESCRIPTORS``.
     host_compositions : dict or None, default=None
         Host label -> formula composition, for labels that are not formulas.
+    host_properties : HostProperties or None, default=None
+        Numeric and category host properties (``hosts.read_host_properties``); with
+        three or more hosts they join the host descriptors the models see.
+    site_kinds : dict or None, default=None
+        (host, site) -> site kind shared across hosts (``hosts.read_site_properties``'s
+        ``kinds``): how a new host's sites are matched to the table's columns.
     n_folds : int, default=5
         Cross-validation folds for calibration and the learner choice.
     random_state : None, int, RandomState or Generator, default=0
@@ -180,6 +188,10 @@ class Surrogate(BaseEstimator):
     descriptor_values_ : DataFrame
         Every element's descriptors (``elements.descriptor_table()``) as they were when
         the model was fitted; encoders, domains and explanations read them from here.
+    host_values_ : DataFrame
+        Host descriptors of every host the model knows (``hosts.host_descriptor_table``).
+    host_domain_ : HostDomain
+        Distance of any host from the table's hosts (``domain.HostDomain``).
 
     Examples
     --------
@@ -197,15 +209,25 @@ class Surrogate(BaseEstimator):
         n_folds=5,
         random_state=0,
         suspect_values="refuse",
+        host_properties=None,
+        site_kinds=None,
     ):
         self.learner = learner
         self.levels = levels
         self.correction = correction
         self.descriptors = descriptors
         self.host_compositions = host_compositions
+        self.host_properties = host_properties
+        self.site_kinds = site_kinds
         self.n_folds = n_folds
         self.random_state = random_state
         self.suspect_values = suspect_values
+
+    def __setstate__(self, state):
+        # a model folder written before hosts had properties and site kinds lacks them
+        state.setdefault("host_properties", None)
+        state.setdefault("site_kinds", None)
+        super().__setstate__(state)
 
     # ------------------------------------------------------------------ fitting
     def fit(self, table, progress=None):
@@ -253,6 +275,7 @@ class Surrogate(BaseEstimator):
         # (and its folder) so that it predicts with them whatever mendeleev comes later
         self.descriptor_values_ = elements.descriptor_table()
         self.compositions_ = _host_compositions(table, self.host_compositions)
+        self._describe_hosts()
         self.quantity_levels_ = {
             quantity: [m for m in self.levels_ if m in set(rows["method"])]
             for quantity, rows in table.groupby("quantity", sort=False)
@@ -330,6 +353,8 @@ class Surrogate(BaseEstimator):
         new_hosts = table.loc[~table["host"].isin(list(self.compositions_)), :]
         if len(new_hosts):
             fresh.compositions_.update(_host_compositions(new_hosts, self.host_compositions))
+        fresh.site_kinds_ = dict(getattr(self, "site_kinds_", {}))
+        fresh._describe_hosts(fitted_on=self.table_)
         fresh.quantity_levels_ = {
             quantity: [m for m in fresh.levels_ if m in set(rows["method"])]
             for quantity, rows in table.groupby("quantity", sort=False)
@@ -347,6 +372,69 @@ class Surrogate(BaseEstimator):
         fresh.domain_ = ElementDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(list(table["element"]))
         fresh.level_domain_ = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(core)
         return fresh
+
+    def _describe_hosts(self, fitted_on=None):
+        """Host descriptors and site kinds of the known hosts, and the host domain
+        (fitted on the hosts of ``fitted_on``, default the training table)."""
+        self.site_kinds_ = {**getattr(self, "site_kinds_", {}), **dict(self.site_kinds or {})}
+        self.host_values_ = host_descriptor_table(
+            self.compositions_, self.host_properties, descriptor_values=self.descriptor_values_
+        )
+        hosts = list(dict.fromkeys((self.table_ if fitted_on is None else fitted_on)["host"]))
+        self.host_domain_ = HostDomain().fit(self.host_values_.loc[hosts])
+
+    def with_new_hosts(self, compositions, host_properties=None, site_kinds=None):
+        """This model, able to predict hosts with no computed cell.
+
+        Parameters
+        ----------
+        compositions : dict
+            New host label -> composition (``hosts.host_compositions``).
+        host_properties : HostProperties or None, default=None
+            Their host-file properties (needed when the model was fitted with some).
+        site_kinds : dict or None, default=None
+            (host, site) -> site kind, for the new hosts' sites.
+
+        Returns
+        -------
+        Surrogate
+            A copy; the stages, calibration and table are shared, only the hosts the
+            encoders can place grow. This model is left as it was.
+
+        Raises
+        ------
+        DopantgapError
+            When the model's table has fewer than three hosts (a new host's interval is
+            calibrated by leaving hosts out), or a new host's properties are missing.
+        """
+        check_is_fitted(self)
+        if not self.new_host_ready():
+            raise DopantgapError(
+                f"the model's table has {self.table_['host'].nunique()} host(s); predicting a host "
+                "with no rows needs at least 3 (its interval is calibrated by leaving hosts out "
+                "in turn). Compute a few cells of the new host and refit instead"
+            )
+        fresh = copy.copy(self)
+        fresh.compositions_ = {**self.compositions_, **compositions}
+        if host_properties is not None:
+            fresh.host_properties = host_properties
+        fresh.site_kinds_ = {**getattr(self, "site_kinds_", {}), **dict(site_kinds or {})}
+        fresh.host_values_ = host_descriptor_table(
+            fresh.compositions_, fresh.host_properties, descriptor_values=self.descriptor_values_
+        )
+        fresh.stages_ = {}
+        for key, stage in self.stages_.items():
+            stage = copy.copy(stage)
+            stage.encoder = stage.encoder.with_hosts(fresh.compositions_, fresh.host_values_, fresh.site_kinds_)
+            fresh.stages_[key] = stage
+        return fresh
+
+    def new_host_ready(self):
+        """Whether the model can predict a host with no rows: its calibration has the
+        ``new-host`` scenario's own residuals (three or more hosts in the table)."""
+        check_is_fitted(self)
+        residuals = getattr(self, "cv_residuals_", None)
+        return residuals is not None and bool((residuals["scenario"] == "new-host").any())
 
     def _seed(self):
         """The integer every draw derives from: ``seed_``, or ``random_state`` checked for a

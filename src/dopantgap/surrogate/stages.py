@@ -82,6 +82,15 @@ def stage_rows(surrogate, core, quantity, position):
     return joined[_CELL].reset_index(drop=True), target, "correction"
 
 
+def new_encoder(surrogate):
+    """An unfitted encoder with the surrogate's descriptors, hosts and site kinds."""
+    return CellEncoder(
+        surrogate.descriptors_, surrogate.compositions_, surrogate.descriptor_values_,
+        host_values=getattr(surrogate, "host_values_", None),
+        site_kinds=getattr(surrogate, "site_kinds_", None),
+    )
+
+
 def new_learner(surrogate, name, encoder, n_rows, template, mode="fresh", kind="direct", n_elements=None,
                 shift_only=False):
     """A learner for a stage of ``n_rows`` rows.
@@ -149,7 +158,7 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
             if len(cells) == 0:
                 continue
             model_template = None if template is None else template.get((quantity, method))
-            encoder = CellEncoder(surrogate.descriptors_, surrogate.compositions_, surrogate.descriptor_values_)
+            encoder = new_encoder(surrogate)
             columns = None if model_template is None else model_template.encoder.columns_
             if columns is not None and not set(zip(cells["host"], cells["site"])) <= set(columns):
                 # a column the template never saw: its input layout cannot be kept
