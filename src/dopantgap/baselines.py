@@ -33,17 +33,27 @@ __all__ = [
     "column_mean_baseline",
     "group_neighbour_baseline",
     "level_shift_baseline",
+    "nearest_host_baseline",
+    "other_hosts_baseline",
     "predict_baseline",
 ]
 
 #: Names accepted by :func:`predict_baseline`, in the order reports list them.
-BASELINES = ("column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline")
+BASELINES = (
+    "column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline",
+    "other-hosts baseline", "nearest-host baseline",
+)
 
 #: Validation scenarios where a rule differs from another one; elsewhere it is not scored
 #: or listed. The level-shift rule needs the cell's cheaper level computed, which only
 #: the upgrade scenario guarantees (a new element has every level hidden, a new cell's
 #: cheaper twin is its own upgrade case): anywhere else it would repeat the column mean.
-BASELINE_SCENARIOS = {"level-shift baseline": ("upgrade",)}
+BASELINE_SCENARIOS = {
+    "level-shift baseline": ("upgrade",),
+    # rules for a host with no rows; in a known host they would read the cell's own column
+    "other-hosts baseline": ("new-host",),
+    "nearest-host baseline": ("new-host",),
+}
 
 _COLUMN_KEYS = ("host", "site", "method", "quantity")
 # Ever coarser groupings for the column-mean rule; the last resort is all values.
@@ -403,7 +413,104 @@ def boosted_trees_baseline(training, cells, random_state=0):
 
 
 # --------------------------------------------------------------------- dispatch
-def predict_baseline(name, training, cells, levels, random_state=0):
+def _kinds(frame, site_kinds):
+    kinds = site_kinds or {}
+    return [kinds.get((host, site), site) for host, site in zip(frame["host"], frame["site"])]
+
+
+def _other_hosts_rule(training, cells, site_kinds=None):
+    training = training.assign(kind=_kinds(training, site_kinds))
+    cells = cells.assign(kind=_kinds(cells, site_kinds))
+    mean = np.full(len(cells), np.nan)
+    for columns in (("element", "kind", "method", "quantity"), ("element", "method", "quantity")):
+        missing = np.flatnonzero(np.isnan(mean))
+        if missing.size == 0:
+            break
+        means = _mean_by(training, columns)
+        keys = _keys(cells, columns)
+        for row in missing:
+            mean[row] = means.get(keys[row], np.nan)
+    missing = np.isnan(mean)
+    if missing.any():
+        mean[missing] = _column_mean_rule(training, cells[missing].reset_index(drop=True))
+    return mean
+
+
+def other_hosts_baseline(training, cells, site_kinds=None):
+    """The impurity's mean over the other hosts: a rule for a host with no rows.
+
+    Rule: the mean of the element's training values on sites of the same kind (the
+    host file's ``site_kind``, else the same site label) at the cell's method and
+    quantity, over every host; else the element's mean at that method and quantity;
+    else the column-mean rule.
+
+    Parameters
+    ----------
+    training, cells : pandas.DataFrame
+        As for :func:`predict_baseline`.
+    site_kinds : dict or None, default=None
+        (host, site) -> site kind.
+
+    Returns
+    -------
+    numpy.ndarray
+    """
+    return _other_hosts_rule(_prepared_training(training), _prepared_cells(cells), site_kinds)
+
+
+def _nearest_host_rule(training, cells, host_values, site_kinds=None):
+    from dopantgap.domain import HostDomain
+
+    mean = _other_hosts_rule(training, cells, site_kinds)
+    if host_values is None or len(training) == 0:
+        return mean
+    training_hosts = [host for host in dict.fromkeys(training["host"]) if host in host_values.index]
+    cell_hosts = [host for host in dict.fromkeys(cells["host"]) if host in host_values.index]
+    if len(training_hosts) < 2 or not cell_hosts:
+        return mean
+    domain = HostDomain().fit(host_values.loc[training_hosts])
+    if not domain.columns_:
+        return mean
+    order = dict(zip(cell_hosts, domain.ranked(host_values.loc[cell_hosts])))
+    training = training.assign(kind=_kinds(training, site_kinds))
+    values = training.groupby(["element", "host", "kind", "method", "quantity"])["value"].mean().to_dict()
+    kinds = _kinds(cells, site_kinds)
+    for row, (element, host, method, quantity) in enumerate(
+        zip(cells["element"], cells["host"], cells["method"], cells["quantity"])
+    ):
+        for other in order.get(host, ()):
+            value = values.get((element, other, kinds[row], method, quantity))
+            if value is not None:
+                mean[row] = value
+                break
+    return mean
+
+
+def nearest_host_baseline(training, cells, host_values, site_kinds=None):
+    """The impurity's value in the nearest host: a rule for a host with no rows.
+
+    Rule: among the training hosts where the element is computed on a site of the same
+    kind at the cell's method and quantity, the one nearest the cell's host in
+    standardised host descriptors (``domain.HostDomain``'s distance) gives its value;
+    without one, :func:`other_hosts_baseline`'s rule.
+
+    Parameters
+    ----------
+    training, cells : pandas.DataFrame
+        As for :func:`predict_baseline`.
+    host_values : pandas.DataFrame
+        Host descriptors indexed by host label (``hosts.host_descriptor_table``).
+    site_kinds : dict or None, default=None
+        (host, site) -> site kind.
+
+    Returns
+    -------
+    numpy.ndarray
+    """
+    return _nearest_host_rule(_prepared_training(training), _prepared_cells(cells), host_values, site_kinds)
+
+
+def predict_baseline(name, training, cells, levels, random_state=0, site_kinds=None, host_values=None):
     """Means of one reference predictor for the given cells.
 
     Parameters
@@ -412,9 +519,10 @@ def predict_baseline(name, training, cells, levels, random_state=0):
         One of :data:`BASELINES`: ``"column-mean baseline"``
         (:func:`column_mean_baseline`), ``"group-neighbour baseline"``
         (:func:`group_neighbour_baseline`), ``"level-shift baseline"``
-        (:func:`level_shift_baseline`) or ``"boosted-trees baseline"``
-        (:func:`boosted_trees_baseline`); each function's docstring states
-        its rule.
+        (:func:`level_shift_baseline`), ``"boosted-trees baseline"``
+        (:func:`boosted_trees_baseline`), ``"other-hosts baseline"``
+        (:func:`other_hosts_baseline`) or ``"nearest-host baseline"``
+        (:func:`nearest_host_baseline`); each function's docstring states its rule.
     training : pandas.DataFrame
         Computed cells (e.g. a fold's training cells): element, host, site,
         method, quantity, value; extra columns are ignored; never modified.
@@ -427,6 +535,11 @@ def predict_baseline(name, training, cells, levels, random_state=0):
         rule uses them.
     random_state : None, int, RandomState or Generator, default=0
         Seed (``reproducible.seed_integer``); only the boosted-trees rule uses it.
+    site_kinds : dict or None, default=None
+        (host, site) -> site kind; the host rules use them.
+    host_values : pandas.DataFrame or None, default=None
+        Host descriptors by host label; the nearest-host rule needs them (without, it
+        is the other-hosts rule).
 
     Returns
     -------
@@ -462,6 +575,10 @@ def predict_baseline(name, training, cells, levels, random_state=0):
         mean = _group_neighbour_rule(training, cells)
     elif name == "level-shift baseline":
         mean = _level_shift_rule(training, cells, levels)
+    elif name == "other-hosts baseline":
+        mean = _other_hosts_rule(training, cells, site_kinds)
+    elif name == "nearest-host baseline":
+        mean = _nearest_host_rule(training, cells, host_values, site_kinds)
     else:
         mean = _boosted_trees_rule(training, cells, seed)
     return np.asarray(mean, dtype=float)

@@ -585,6 +585,15 @@ class HostDomain(BaseEstimator):
         nearest = np.argmin(pairwise, axis=1)
         return pairwise[np.arange(len(points)), nearest], np.array(self.hosts_, dtype=object)[nearest]
 
+    def ranked(self, host_values):
+        """For each host row, the training hosts from nearest to farthest (list of lists)."""
+        if not self.columns_ or not len(self.points_):
+            return [list(self.hosts_) for _ in range(len(host_values))]
+        points = (host_values[self.columns_].to_numpy(dtype=float) - self.mean_) / self.scale_
+        pairwise = self._pairwise(points, self.points_)
+        pairwise[np.isnan(pairwise)] = np.inf
+        return [[self.hosts_[i] for i in np.argsort(row, kind="stable")] for row in pairwise]
+
     def distance(self, host_values):
         """Distance of each host row to its nearest training host (0 for a training host)."""
         return self._nearest(host_values)[0]

@@ -10,8 +10,9 @@ one level of theory) its input row is
    descriptors and host-file properties), standardised, when the training cells span
    at least three hosts: they let what one host teaches carry to a host with no rows;
 4. one 0/1 indicator per host/site column the model was trained on. A cell of a column
-   never trained on (a new host) gets the mean indicator of the trained columns of the
-   same site kind (the host file's ``site_kind``, else the site label), or none;
+   never trained on (a new host), or with host descriptors of a column trained on fewer
+   than ``MIN_CELLS_FOR_OWN_INDICATOR`` cells, gets the mean indicator of the columns of
+   the same site kind (the host file's ``site_kind``, else the site label), or none;
 5. two integer labels: the element's atomic number, which the learners turn into an
    offset shared by all the element's cells (what an element does everywhere that no
    descriptor explains), and the host/site column's index (for column-mean baselines).
@@ -48,6 +49,13 @@ DEFAULT_DESCRIPTORS = (
 #: Fewest hosts among the training cells for host descriptors to enter (common practice,
 #: no source: with two hosts a host descriptor is only a relabelled host indicator).
 MIN_HOSTS_FOR_HOST_DESCRIPTORS = 3
+#: With host descriptors, fewest training cells for a (host, site) column to get an
+#: indicator of its own; a column with fewer is placed like a new host's (the mean
+#: indicator of its site kind), so its few cells borrow strength from the other hosts
+#: through the host descriptors instead of sitting alone on an axis of their own (common
+#: practice, no source; measured in tests/integration/test_new_host.py: with its own
+#: indicator, one computed cell made a host's intervals wider than none).
+MIN_CELLS_FOR_OWN_INDICATOR = 10
 
 # Descriptors spanning orders of magnitude enter as logarithms.
 _LOGARITHMIC = {"polarisability"}
@@ -180,11 +188,12 @@ class CellEncoder:
                 values[name] = rows[name].to_numpy(dtype=float)
         return pd.DataFrame(values)
 
-    def fit(self, cells, columns=None):
+    def fit(self, cells, columns=None, indicator_keys=None):
         """Learn the column list and the scaling from training cells (a DataFrame).
 
         ``columns`` fixes the (host, site) column list instead of reading it from the
-        cells, so that a cross-validation fold keeps the full model's input layout.
+        cells, and ``indicator_keys`` the columns with an indicator of their own, so that
+        a cross-validation fold keeps the full model's input layout.
         """
         self.host_names_ = []
         training_hosts = list(dict.fromkeys(cells["host"]))
@@ -199,14 +208,21 @@ class CellEncoder:
         if columns is None:
             columns = dict.fromkeys(zip(cells["host"], cells["site"]))
         self.columns_ = list(columns)
+        if indicator_keys is None:
+            indicator_keys = self.columns_
+            if self.host_names_:
+                counts = cells.groupby(["host", "site"]).size().to_dict()
+                indicator_keys = [key for key in self.columns_ if counts.get(key, 0) >= MIN_CELLS_FOR_OWN_INDICATOR]
+        indicator_keys = list(indicator_keys) if len(indicator_keys) > 1 else []
+        self.indicator_keys_ = indicator_keys
         self.n_physical_ = len(self.physical_names_)
-        n_indicators = len(self.columns_) if len(self.columns_) > 1 else 0
+        n_indicators = len(indicator_keys)
         self.indicator_columns_ = tuple(range(self.n_physical_, self.n_physical_ + n_indicators))
         start = self.n_physical_ + n_indicators
         self.label_columns_ = (start, start + 1)
         self.feature_names_ = (
             self.physical_names_
-            + [f"column[{host} | {site}]" for host, site in self.columns_][:n_indicators]
+            + [f"column[{host} | {site}]" for host, site in indicator_keys]
             + ["element_label", "column_label"]
         )
         return self
@@ -217,17 +233,23 @@ class CellEncoder:
         index = {column: position for position, column in enumerate(self.columns_)}
         keys = list(zip(cells["host"], cells["site"]))
         column_index = np.array([index.get(key, -1) for key in keys], dtype=float)
-        indicators = np.zeros((len(cells), len(self.indicator_columns_)))
-        if len(self.indicator_columns_):
-            rows = np.flatnonzero(column_index >= 0)
-            indicators[rows, column_index[rows].astype(int)] = 1.0
+        # model folders written before indicator_keys_ gave every column an indicator
+        own_keys = getattr(self, "indicator_keys_", self.columns_ if len(self.indicator_columns_) else [])
+        indicators = np.zeros((len(cells), len(own_keys)))
+        if len(own_keys):
+            own = {column: position for position, column in enumerate(own_keys)}
+            position_of = np.array([own.get(key, -1) for key in keys])
+            rows = np.flatnonzero(position_of >= 0)
+            indicators[rows, position_of[rows]] = 1.0
             kinds = getattr(self, "site_kinds", None)
-            trained_kinds = [site_kind(host, site, kinds) for host, site in self.columns_]
-            for row in np.flatnonzero(column_index < 0):
+            own_kinds = [site_kind(host, site, kinds) for host, site in own_keys]
+            alike_of = {}
+            for row in np.flatnonzero(position_of < 0):
                 kind = site_kind(*keys[row], kinds)
-                alike = [position for position, other in enumerate(trained_kinds) if other == kind]
-                if alike:
-                    indicators[row, alike] = 1.0 / len(alike)
+                if kind not in alike_of:
+                    alike_of[kind] = [position for position, other in enumerate(own_kinds) if other == kind]
+                if alike_of[kind]:
+                    indicators[row, alike_of[kind]] = 1.0 / len(alike_of[kind])
         element_label = np.array(
             [atomic_number(symbol) for symbol in cells["element"]], dtype=float
         )

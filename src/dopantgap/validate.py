@@ -9,8 +9,11 @@ figure is out of fold:
 * the scenarios are those of ``calibration.SCENARIOS``: ``new-element`` (all cells of an
   element hidden together; the element is absent from the fold's training table, its
   descriptors and scalers included), ``new-cell`` (single cells of elements otherwise
-  computed) and ``upgrade`` (expensive-level cells whose cheap level is computed: their
-  own loop, leaving out the elements computed at both levels a few at a time);
+  computed), ``upgrade`` (expensive-level cells whose cheap level is computed: their
+  own loop, leaving out the elements computed at both levels a few at a time) and,
+  with three or more hosts, ``new-host`` (every cell of a host hidden, one host or a
+  few at a time; baselines: the impurity's mean over the other hosts, and its value in
+  the nearest host by host descriptors);
 * ``coverage`` is the share of hidden values inside the 90 % interval, judged
   cross-conformally: each fold's cells against the widths the *other* folds' residuals
   give (``calibration.cross_conformal_covered``). A learner's interval is its
@@ -140,7 +143,8 @@ def baseline_residuals(surrogate, baselines=BASELINES, random_state=0):
     # the tree baseline refits once per fold (some 30 folds): two workers halve the wait
     means = worker_pool(n_jobs=2)(
         delayed(predict_baseline)(name, training, hidden[list(KEY_COLUMNS)], surrogate.levels_,
-                                  random_state=seed)
+                                  random_state=seed, site_kinds=getattr(surrogate, "site_kinds_", None),
+                                  host_values=getattr(surrogate, "host_values_", None))
         for _, name, training, hidden in tasks
     )
     carried = [column for column in _CARRIED_COLUMNS if column in residuals]

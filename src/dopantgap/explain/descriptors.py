@@ -122,10 +122,16 @@ def _affine_map(encoder, features, host, site, compositions):
     in one descriptor for a fixed column: a descriptor itself or a host-relative term of
     it, standardised).
 
+    An input no descriptor moves (a host descriptor: fixed for the column) is kept as
+    its constant, with slope 0.
+
     Returns
     -------
     index, slope, intercept : ndarray of shape (n_physical,)
         Standardised input ``p`` is ``descriptors[:, index[p]] * slope[p] + intercept[p]``.
+    rest : ndarray
+        The encoded row's other inputs (column indicators and labels) for this column,
+        element label excluded: the same for every element.
     """
     table = elements.descriptor_table(values=encoder.descriptor_values)
     host_atoms = set(compositions[host])
@@ -152,6 +158,11 @@ def _affine_map(encoder, features, host, site, compositions):
     index, slope, intercept = [], [], []
     for position, name in enumerate(encoder.physical_names_):
         moved = np.flatnonzero(np.abs(changes[:, position]) > 1e-12 * max(1.0, np.abs(changes[:, position]).max()))
+        if len(moved) == 0 and name in getattr(encoder, "host_names_", ()):
+            index.append(0)
+            slope.append(0.0)
+            intercept.append(physical[0, position])
+            continue
         if len(moved) != 1:
             raise DopantgapError(
                 f"explain cannot rebuild the model input {name!r} from the descriptors "
@@ -161,7 +172,7 @@ def _affine_map(encoder, features, host, site, compositions):
         index.append(feature)
         slope.append(changes[feature, position])
         intercept.append(physical[0, position] - changes[feature, position] * base[feature])
-    return np.array(index, dtype=int), np.array(slope), np.array(intercept)
+    return np.array(index, dtype=int), np.array(slope), np.array(intercept), encoded[0, encoder.n_physical_:]
 
 
 class _ColumnEncoding:
@@ -175,13 +186,12 @@ class _ColumnEncoding:
     def __init__(self, encoder, features, host, site, compositions):
         if host not in compositions:
             raise DopantgapError(f"host {host!r} has no composition in the model")
-        self.index, self.slope, self.intercept = _affine_map(encoder, list(features), host, site, compositions)
-        columns = {column: position for position, column in enumerate(encoder.columns_)}
-        self.column_index = float(columns.get((host, site), -1))
+        self.index, self.slope, self.intercept, rest = _affine_map(encoder, list(features), host, site, compositions)
+        # the encoder's own indicators and column label for this column (the element label
+        # sits between them and varies by element)
         n_indicators = len(encoder.indicator_columns_)
-        self.indicators = np.zeros(n_indicators)
-        if n_indicators and self.column_index >= 0:
-            self.indicators[int(self.column_index)] = 1.0
+        self.indicators = np.array(rest[:n_indicators], dtype=float)
+        self.column_index = float(rest[-1])
         # columns sharing reference atoms share the whole physical block
         self.physical_key = (tuple(self.index), tuple(np.round(self.slope, 15)), tuple(np.round(self.intercept, 15)))
 

@@ -13,6 +13,7 @@ import pandas as pd
 
 from dopantgap.calibration import SCENARIOS
 from dopantgap.errors import DopantgapError
+from dopantgap.surrogate.stages import other_hosts_rule
 from dopantgap.table import KEY_COLUMNS
 
 # Cells predicted together (their joint covariance is formed in memory: 1500^2 doubles
@@ -43,6 +44,12 @@ def joint(surrogate, stages, known, quantity, method, cells):
     mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
     mean = np.array(mean, dtype=float)
     cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
+    if getattr(stage, "new_host_rule", False):
+        # hosts the stage never saw take the other-hosts rule's mean (the host loop found
+        # it closer than the learner on hosts left out); the learner's covariance stays
+        unseen = ~cells["host"].isin(stage.hosts).to_numpy()
+        if unseen.any():
+            mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
     if stage.kind == "correction":
         below_mean, below_cov = surrogate._joint(stages, known, quantity, methods[position - 1], cells)
         mean, cov = mean + below_mean, cov + below_cov

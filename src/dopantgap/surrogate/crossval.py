@@ -37,7 +37,9 @@ def fit_candidate(surrogate, core, name):
     upgrade, shift_only = surrogate._cross_validate_upgrade(core, name)
     stages = surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
     residuals = surrogate._cross_validate(core, name, stages, shift_only)
-    new_host = cross_validate_hosts(surrogate, core, name, shift_only)
+    new_host, use_rule = cross_validate_hosts(surrogate, core, name, shift_only)
+    for stage in stages.values():
+        stage.new_host_rule = use_rule
     parts = [residuals] + [part for part in (upgrade, new_host) if len(part)]
     if len(parts) > 1:
         residuals = pd.concat(parts, ignore_index=True)
@@ -60,9 +62,20 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     Every stage is refitted from scratch without the held-out hosts (their columns are
     not in its input layout, as a new host's are not), so the hidden hosts are placed
     only by their host descriptors and the site kinds: the way a host with no rows is
-    predicted.
+    predicted. Each hidden cell is predicted twice: by the learners, and with every
+    stage's mean replaced by the other-hosts rule (``stages.other_hosts_rule``: the
+    impurity's mean over the other hosts' sites of the same kind), covariances kept.
+    The form with the lower out-of-fold mean absolute error is kept, so a new host is
+    never predicted worse than the rule on the table's own evidence.
+
+    Returns
+    -------
+    residuals : DataFrame
+        The kept form's out-of-fold predictions (empty below three hosts).
+    use_rule : bool
+        Whether the rule was kept.
     """
-    records = []
+    forms = {False: [], True: []}
     for position, group in enumerate(host_groups(core, surrogate._seed())):
         test = core["host"].isin(group).to_numpy()
         training, held_out = core[~test], core[test].reset_index(drop=True)
@@ -71,19 +84,27 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
         held_out = held_out[servable].reset_index(drop=True)
         if len(held_out) == 0:
             continue
-        mean, std = surrogate._predict_raw(stages, training, held_out)
-        part = held_out.assign(mean=mean, raw_std=std, scenario=surrogate._scenarios(training, held_out),
-                               fold=_HOST_FOLD_START + position)
         level_domain = LevelDomain(
             descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
         ).fit(training)
-        records.append(pd.concat([part, difficulty_features(level_domain, training, held_out)], axis=1))
-    if not records:
-        return pd.DataFrame()
-    residuals = pd.concat(records, ignore_index=True)
-    residuals["error"] = residuals["value"] - residuals["mean"]
-    residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
-    return residuals
+        difficulty = difficulty_features(level_domain, training, held_out)
+        scenario = surrogate._scenarios(training, held_out)
+        for use_rule, parts in forms.items():
+            for stage in stages.values():
+                stage.new_host_rule = use_rule
+            mean, std = surrogate._predict_raw(stages, training, held_out)
+            part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=_HOST_FOLD_START + position)
+            parts.append(pd.concat([part, difficulty], axis=1))
+    if not forms[False]:
+        return pd.DataFrame(), False
+    found = {}
+    for use_rule, parts in forms.items():
+        residuals = pd.concat(parts, ignore_index=True)
+        residuals["error"] = residuals["value"] - residuals["mean"]
+        residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
+        found[use_rule] = residuals
+    use_rule = float(np.mean(np.abs(found[True]["error"]))) < float(np.mean(np.abs(found[False]["error"])))
+    return found[use_rule], use_rule
 
 
 def fold_masks(surrogate, core):

@@ -6,7 +6,10 @@ functions take the ``Surrogate`` whose settings they read; its methods of the sa
 names delegate here.
 """
 
-from dopantgap.features import CellEncoder
+import numpy as np
+import pandas as pd
+
+from dopantgap.features import CellEncoder, site_kind
 from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, ShiftPriorLearner
 from dopantgap.reproducible import learner_seed
 
@@ -38,9 +41,16 @@ _CELL = ["element", "host", "site"]
 
 
 class _Stage:
-    """A fitted model of one quantity at one level: its encoder, learner and kind."""
+    """A fitted model of one quantity at one level: its encoder, learner and kind.
 
-    def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None):
+    ``other_hosts_means`` holds what the other-hosts rule reads (the stage's mean target
+    per element and site kind, and per site kind); ``new_host_rule`` says whether cells
+    of a host the stage never saw take it instead of the learner's mean (the host loop
+    decides: ``crossval.cross_validate_hosts``).
+    """
+
+    def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None, other_hosts_means=None,
+                 hosts=()):
         self.quantity = quantity
         self.method = method
         self.kind = kind  # "direct" or "correction"
@@ -48,6 +58,34 @@ class _Stage:
         self.learner = learner
         # training rows when the learner's hyperparameters were last optimised
         self.tuned_rows = tuned_rows
+        self.other_hosts_means = other_hosts_means
+        self.hosts = frozenset(hosts)
+        self.new_host_rule = False
+
+
+def other_hosts_means(cells, target, site_kinds):
+    """Mean target per (element, site kind) and per site kind over a stage's training
+    cells: the rule a researcher applies to a host with no rows (an impurity does there
+    what it does on average in the other hosts)."""
+    kinds = [site_kind(host, site, site_kinds) for host, site in zip(cells["host"], cells["site"])]
+    frame = pd.DataFrame({"element": cells["element"].to_numpy(), "kind": kinds, "target": target})
+    by_element = frame.groupby(["element", "kind"])["target"].mean().to_dict()
+    by_kind = frame.groupby("kind")["target"].mean().to_dict()
+    return {"element": by_element, "kind": by_kind, "all": float(np.mean(target))}
+
+
+def other_hosts_rule(stage, cells, site_kinds):
+    """The other-hosts rule's mean of ``cells`` for a stage (NaN-free: an element never
+    seen on a site kind gets the kind's mean, an unknown kind the stage's mean)."""
+    means = stage.other_hosts_means
+    found = []
+    for element, host, site in zip(cells["element"], cells["host"], cells["site"]):
+        kind = site_kind(host, site, site_kinds)
+        value = means["element"].get((element, kind))
+        if value is None:
+            value = means["kind"].get(kind, means["all"])
+        found.append(value)
+    return np.array(found, dtype=float)
 
 
 def _gaussian_process(learner):
@@ -163,7 +201,14 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
             if columns is not None and not set(zip(cells["host"], cells["site"])) <= set(columns):
                 # a column the template never saw: its input layout cannot be kept
                 columns, model_template = None, None
-            encoder.fit(cells, columns=columns)
+            indicator_keys = None
+            if model_template is not None:
+                template_encoder = model_template.encoder
+                indicator_keys = getattr(
+                    template_encoder, "indicator_keys_",
+                    template_encoder.columns_ if len(template_encoder.indicator_columns_) else [],
+                )
+            encoder.fit(cells, columns=columns, indicator_keys=indicator_keys)
             learner = surrogate._new_learner(
                 name, encoder, len(cells), model_template, mode=mode, kind=kind,
                 n_elements=cells["element"].nunique(), shift_only=(quantity, method) in shift_only,
@@ -172,5 +217,9 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
             process = _gaussian_process(learner)
             reused = process is not None and process.fixed_kernel is not None
             tuned = _tuned_rows(model_template) if reused else len(cells)
-            stages[(quantity, method)] = _Stage(quantity, method, kind, encoder, learner, tuned)
+            stages[(quantity, method)] = _Stage(
+                quantity, method, kind, encoder, learner, tuned,
+                other_hosts_means=other_hosts_means(cells, target, getattr(surrogate, "site_kinds_", None)),
+                hosts=set(cells["host"]),
+            )
     return stages

@@ -1,0 +1,124 @@
+"""A host with no rows, and one with a few: fill --hosts-new, the new-host scenario and
+its calibration, on the third INVENTED world (a family of rock-salt hosts whose host term
+follows host descriptors; ``world.invent_host_family``)."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from dopantgap.baselines import other_hosts_baseline
+from dopantgap.errors import DopantgapError
+from dopantgap.fill import fill_table
+from dopantgap.new_hosts import parse_host_list, plan_new_hosts
+from dopantgap.surrogate import Surrogate
+from dopantgap.table import KEY_COLUMNS
+from dopantgap.world import FAMILY_SITE_KINDS, family_host_file_text, invent_host_family
+
+HOSTS = {
+    "MgO": ("sub_Mg", "sub_O", "int_oct"),
+    "CaO": ("sub_Ca", "sub_O", "int_oct"),
+    "SrO": ("sub_Sr", "sub_O", "int_oct"),
+    "MgS": ("sub_Mg", "sub_S", "int_oct"),
+    "CaS": ("sub_Ca", "sub_S", "int_oct"),
+    "SrS": ("sub_Sr", "sub_S", "int_oct"),
+}
+NEW = "SrO"
+ELEMENTS = tuple("Li Na K Be Mg Ca Ba Al Ga In Sc Y Ti Zr Fe Co Ni Cu Zn Cd Sn Pb Bi La".split())
+
+
+@pytest.fixture(scope="module")
+def family():
+    """The INVENTED family at the cheap level, SrO left out of the table."""
+    world = invent_host_family(element_symbols=ELEMENTS, hosts=HOSTS, methods=("gga", "hyb"), seed=3)
+    world = world[world["method"] == "gga"].reset_index(drop=True)
+    table = world[world["host"] != NEW].drop(columns="truth").reset_index(drop=True)
+    kinds = {key: kind for key, kind in FAMILY_SITE_KINDS.items() if key[0] in HOSTS}
+    model = Surrogate(learner="gp", site_kinds=kinds, random_state=0).fit(table)
+    return world, table, model
+
+
+@pytest.fixture(scope="module")
+def host_file(tmp_path_factory, family):
+    path = tmp_path_factory.mktemp("hosts") / "hosts.csv"
+    path.write_text(family_host_file_text(HOSTS))
+    return path
+
+
+def _new_host_cells(world):
+    return world[world["host"] == NEW].reset_index(drop=True)
+
+
+def test_the_host_loop_calibrates_a_new_host_scenario(family):
+    _world, _table, model = family
+    assert model.new_host_ready()
+    residuals = model.cv_residuals_
+    held = residuals[residuals["scenario"] == "new-host"]
+    # every cell of the five hosts is hidden once, whole hosts at a time
+    assert len(held) == len(model.table_)
+    assert held.groupby("fold")["host"].nunique().max() == 1
+
+
+def test_leaving_one_host_out_beats_the_impurity_mean_over_other_hosts(family, host_file):
+    """On a world with a known host term the model places a host it never saw closer
+    than the rule 'the impurity does what it does on average elsewhere'."""
+    world, table, model = family
+    plan = plan_new_hosts(model, [NEW], host_file)
+    filled = fill_table(model, new_hosts=plan)
+    truth = _new_host_cells(world)
+    merged = truth.merge(filled, on=list(KEY_COLUMNS), suffixes=("_true", ""))
+    assert len(merged) == len(truth)
+    assert set(merged["scenario"]) == {"new-host"}
+    model_error = np.mean(np.abs(merged["value"] - merged["truth"]))
+    rule = other_hosts_baseline(table, truth[list(KEY_COLUMNS)], site_kinds=FAMILY_SITE_KINDS)
+    rule_error = np.mean(np.abs(rule - truth["truth"].to_numpy()))
+    assert model_error < rule_error
+    covered = np.mean((merged["truth"] >= merged["lo"]) & (merged["truth"] <= merged["hi"]))
+    assert covered >= 0.8
+
+
+def test_a_new_host_interval_is_wider_and_narrows_as_rows_arrive(family, host_file):
+    world, table, model = family
+    element, site = "Ti", "int_oct"
+    cell = pd.DataFrame([{"element": element, "host": NEW, "site": site, "method": "gga", "quantity": "E_sol"}])
+    known = cell.assign(host="CaO")
+    # Ti's cell in CaO hidden too, so both are predicted
+    table = table[~((table["element"] == element) & (table["site"] == site))].reset_index(drop=True)
+    model = model.refreshed(table)
+    plan = plan_new_hosts(model, [NEW], host_file)
+    width = {0: float(np.ptp(plan.surrogate.predict(cell)[["lo", "hi"]].to_numpy()))}
+    known_width = float(np.ptp(model.predict(known)[["lo", "hi"]].to_numpy()))
+    assert width[0] > known_width
+    rows = _new_host_cells(world)
+    rows = rows[~((rows["element"] == element) & (rows["site"] == site))].sample(frac=1.0, random_state=0)
+    for count in (1, 5, 10):
+        grown = model.refreshed(pd.concat([table, rows.iloc[:count].drop(columns="truth")], ignore_index=True))
+        width[count] = float(np.ptp(grown.predict(cell)[["lo", "hi"]].to_numpy()))
+    assert width[0] > width[1] > width[5] > width[10]
+
+
+def test_a_site_naming_a_host_atom_is_not_carried_over_unasked(family):
+    _world, _table, model = family
+    plan = plan_new_hosts(model, [NEW])
+    assert set(plan.columns["site"]) == {"int_oct"}
+    assert any("name host atoms" in note for note in plan.notes)
+
+
+def test_new_host_refusals_are_one_line(family, tmp_path):
+    _world, _table, model = family
+    with pytest.raises(DopantgapError, match="already has computed cells"):
+        plan_new_hosts(model, ["MgO"])
+    with pytest.raises(DopantgapError, match="host labels separated by commas"):
+        parse_host_list("SrO,,CaS")
+    odd = tmp_path / "odd.csv"
+    odd.write_text("host,formula,site,site_kind\nSrO,SrO,sub_Sr,cation_like\n")
+    with pytest.raises(DopantgapError, match="no site of the table is of kind 'cation_like'"):
+        plan_new_hosts(model, [NEW], odd)
+
+
+def test_two_hosts_cannot_place_a_third():
+    world = invent_host_family(element_symbols=ELEMENTS[:10], hosts={k: HOSTS[k] for k in ("MgO", "CaO")}, seed=1)
+    table = world[world["method"] == "gga"].drop(columns="truth")
+    model = Surrogate(learner="gp").fit(table)
+    assert not model.new_host_ready()
+    with pytest.raises(DopantgapError, match="needs at least 3"):
+        plan_new_hosts(model, ["SrO"])
