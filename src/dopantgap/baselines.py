@@ -50,9 +50,10 @@ BASELINES = (
 #: cheaper twin is its own upgrade case): anywhere else it would repeat the column mean.
 BASELINE_SCENARIOS = {
     "level-shift baseline": ("upgrade",),
-    # rules for a host with no rows; in a known host they would read the cell's own column
-    "other-hosts baseline": ("new-host",),
-    "nearest-host baseline": ("new-host",),
+    # rules for a host with no or few rows; in a well-computed host they would only
+    # repeat what the host's own column says
+    "other-hosts baseline": ("sparse-host", "new-host"),
+    "nearest-host baseline": ("sparse-host", "new-host"),
 }
 
 _COLUMN_KEYS = ("host", "site", "method", "quantity")
@@ -464,6 +465,12 @@ def _nearest_host_rule(training, cells, host_values, site_kinds=None):
     mean = _other_hosts_rule(training, cells, site_kinds)
     if host_values is None or len(training) == 0:
         return mean
+    undescribed = sorted(set(cells["host"]) - set(host_values.index))
+    if undescribed:
+        raise DopantgapError(
+            f"nearest-host baseline: host(s) {', '.join(undescribed)} have no host descriptors in "
+            "host_values; build them with hosts.host_descriptor_table over every host"
+        )
     training_hosts = [host for host in dict.fromkeys(training["host"]) if host in host_values.index]
     cell_hosts = [host for host in dict.fromkeys(cells["host"]) if host in host_values.index]
     if len(training_hosts) < 2 or not cell_hosts:

@@ -37,7 +37,7 @@ __all__ = [
 ]
 
 #: The scenarios a missing cell can be in, in the order they are reported.
-SCENARIOS = ("new-cell", "new-element", "upgrade", "new-host")
+SCENARIOS = ("new-cell", "new-element", "upgrade", "sparse-host", "new-host")
 
 # Fewer residuals than this and a key borrows the pooled residuals of a wider group
 # (common practice, no source: 20 points give a 90 % quantile to ~ +/-15 %).

@@ -188,16 +188,17 @@ class CellEncoder:
                 values[name] = rows[name].to_numpy(dtype=float)
         return pd.DataFrame(values)
 
-    def fit(self, cells, columns=None, indicator_keys=None):
+    def fit(self, cells, columns=None, indicator_keys=None, host_names=None):
         """Learn the column list and the scaling from training cells (a DataFrame).
 
         ``columns`` fixes the (host, site) column list instead of reading it from the
-        cells, and ``indicator_keys`` the columns with an indicator of their own, so that
-        a cross-validation fold keeps the full model's input layout.
+        cells, ``indicator_keys`` the columns with an indicator of their own and
+        ``host_names`` the host descriptor inputs, so that a cross-validation fold or a
+        refreshed model keeps a fitted model's input layout.
         """
-        self.host_names_ = []
+        self.host_names_ = [] if host_names is None else list(host_names)
         training_hosts = list(dict.fromkeys(cells["host"]))
-        if self.host_values is not None and len(training_hosts) >= MIN_HOSTS_FOR_HOST_DESCRIPTORS:
+        if host_names is None and self.host_values is not None and len(training_hosts) >= MIN_HOSTS_FOR_HOST_DESCRIPTORS:
             self.host_names_ = _host_columns(self.host_values, training_hosts)
         physical = self._physical(cells)
         self.physical_names_ = list(physical.columns)

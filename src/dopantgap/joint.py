@@ -10,6 +10,7 @@ import pandas as pd
 from dopantgap.errors import DopantgapError
 from dopantgap.symbols import normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+from dopantgap.surrogate.stages import stage_joint
 
 __all__ = ["MissingJoint", "cell_grid", "missing_joint", "missing_joints"]
 
@@ -29,8 +30,9 @@ class MissingJoint:
         self.cov = cov
 
 
-def cell_grid(surrogate, element_symbols=()):
-    """Every element (table's, then extra ones) times every column of the table."""
+def cell_grid(surrogate, element_symbols=(), extra_columns=None):
+    """Every element (table's, then extra ones) times every column of the table (and the
+    (host, site, method, quantity) rows of ``extra_columns``, e.g. a new host's)."""
     table = surrogate.table_
     symbols = list(dict.fromkeys(table["element"]))
     for symbol in element_symbols or ():
@@ -42,6 +44,8 @@ def cell_grid(surrogate, element_symbols=()):
         if canonical not in symbols:
             symbols.append(canonical)
     columns = table[["host", "site", "method", "quantity"]].drop_duplicates()
+    if extra_columns is not None:
+        columns = pd.concat([columns, extra_columns[["host", "site", "method", "quantity"]]], ignore_index=True)
     return pd.DataFrame(
         [
             {"element": symbol, "host": host, "site": site, "method": method, "quantity": quantity}
@@ -74,8 +78,8 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     stage_covs, level_means, level_weights, level_computed = [], [], [], []
     for position, method in enumerate(levels[: top + 1]):
         stage = surrogate.stages_[(quantity, method)]
-        stage_mean, stage_cov = stage.learner.predict(stage.encoder.transform(units), return_cov=True)
-        stage_covs.append(np.array(stage_cov, dtype=float).reshape(n_units, n_units))
+        stage_mean, stage_cov = stage_joint(surrogate, stage, units)
+        stage_covs.append(stage_cov)
         values = np.array([known.get(key + (method, quantity), np.nan) for key in unit_keys])
         computed = ~np.isnan(values)
         open_ = (~computed).astype(float)

@@ -142,8 +142,12 @@ def plan_new_hosts(surrogate, labels, host_file=None):
         distance, nearest = domain.distance(values), domain.nearest(values)
         for position, label in enumerate(labels):
             if flags[position]:
+                # enough digits that the distance and the limit never print alike
+                digits = 2
+                while digits < 6 and f"{distance[position]:.{digits}f}" == f"{domain.threshold_:.{digits}f}":
+                    digits += 1
                 outside[label] = (
-                    f"{distance[position]:.2f} from the nearest table host ({nearest[position]}) in "
-                    f"standardised host descriptors, beyond the domain limit {domain.threshold_:.2f}"
+                    f"{distance[position]:.{digits}f} from the nearest table host ({nearest[position]}) in "
+                    f"standardised host descriptors, beyond the domain limit {domain.threshold_:.{digits}f}"
                 )
     return NewHostPlan(placed, columns, notes, outside)

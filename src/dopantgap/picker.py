@@ -422,6 +422,8 @@ def pick_next(
     window=None,
     element_symbols=(),
     random_state=0,
+    host=None,
+    new_hosts=None,
 ):
     """A ranked batch of missing cells worth calculating next.
 
@@ -445,6 +447,12 @@ def pick_next(
     random_state : None, int, RandomState or Generator, default=0
         Seed of the site goal's Monte Carlo draws (``reproducible.seed_integer``,
         checked before any work).
+    host : str or None, default=None
+        Propose, and count the benefit over, this host's cells only: what to compute
+        first in a host (a new one included, with ``new_hosts``).
+    new_hosts : NewHostPlan or None, default=None
+        Hosts with no computed cell (``new_hosts.plan_new_hosts``): their cells join
+        the candidates, predicted by the plan's model.
 
     Returns
     -------
@@ -506,7 +514,17 @@ def pick_next(
             )
         quantities = [quantity for quantity in quantities if quantity in site_qs]
     methods = levels if method is None else [method]
-    grid = cell_grid(surrogate, element_symbols)
+    extra_columns = None
+    if new_hosts is not None:
+        surrogate, extra_columns = new_hosts.surrogate, new_hosts.columns
+    grid = cell_grid(surrogate, element_symbols, extra_columns)
+    if host is not None:
+        if host not in set(grid["host"]):
+            raise DopantgapError(
+                f"--host: {host!r} is not a host of the model; choose one of "
+                f"{', '.join(dict.fromkeys(grid['host']))}, or name a new host with its formula."
+            )
+        grid = grid[grid["host"] == host].reset_index(drop=True)
     blocks = missing_joints(surrogate, grid, methods, quantities)
     if goal == "table":
         rule = _TableGoal(blocks)

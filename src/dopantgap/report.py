@@ -543,7 +543,8 @@ def _validation(surrogate, manifest=None):
     parts = [
         "<p>In each of the folds a group of elements was hidden entirely (new-element), the "
         "expensive cells of another group were hidden (upgrade) and single cells of the others "
-        "(new-cell); with three or more hosts, whole hosts were hidden in turn too (new-host). "
+        "(new-cell); with three or more hosts, whole hosts were hidden in turn too (new-host), then "
+        "given back five of their cells (sparse-host). "
         "The model was refitted on the rest and predicted what was hidden. The "
         "calibrated coverage is cross-conformal: each fold's cells are judged by the interval "
         "widths the other folds' residuals give.</p>",

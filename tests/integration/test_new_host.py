@@ -55,7 +55,13 @@ def test_the_host_loop_calibrates_a_new_host_scenario(family):
     held = residuals[residuals["scenario"] == "new-host"]
     # every cell of the five hosts is hidden once, whole hosts at a time
     assert len(held) == len(model.table_)
+    assert not held.duplicated(list(KEY_COLUMNS)).any()
     assert held.groupby("fold")["host"].nunique().max() == 1
+    # then each host is given back five cells and its others predicted (a quantity none
+    # of the five has stays new-host, predicted once above)
+    sparse = residuals[residuals["scenario"] == "sparse-host"]
+    assert not sparse.duplicated(list(KEY_COLUMNS)).any()
+    assert len(model.table_) / 2 < len(sparse) <= len(model.table_) - 5 * model.table_["host"].nunique()
 
 
 def test_leaving_one_host_out_beats_the_impurity_mean_over_other_hosts(family, host_file):
@@ -122,3 +128,41 @@ def test_two_hosts_cannot_place_a_third():
     assert not model.new_host_ready()
     with pytest.raises(DopantgapError, match="needs at least 3"):
         plan_new_hosts(model, ["SrO"])
+
+
+def test_next_names_the_first_calculations_in_a_new_host(family, host_file):
+    from dopantgap.picker import pick_next
+
+    _world, _table, model = family
+    plan = plan_new_hosts(model, [NEW], host_file)
+    picks = pick_next(model, count=5, host=NEW, new_hosts=plan)
+    assert len(picks) == 5
+    assert set(picks["host"]) == {NEW} and set(picks["scenario"]) == {"new-host"}
+    # a batch: each pick is worth less once the ones above it are known
+    assert (np.diff(picks["benefit"].to_numpy()) <= 1e-12).all()
+    assert len(picks[["element", "site"]].drop_duplicates()) == 5
+
+
+def test_fill_and_next_commands_take_a_new_host(family, host_file, tmp_path, capsys):
+    from dopantgap.cli import main
+    from dopantgap.store import save_model
+
+    _world, _table, model = family
+    folder = tmp_path / "model"
+    save_model(model, folder)
+    out = tmp_path / "filled.csv"
+    assert main(["fill", str(folder), "--out", str(out), "--hosts-new", NEW, "--hosts", str(host_file), "--quiet"]) == 0
+    filled = pd.read_csv(out)
+    new = filled[filled["host"] == NEW]
+    assert len(new) == len(ELEMENTS) * 4  # three sites, and the binding energy on the cation site
+    assert set(new["scenario"]) == {"new-host"} and set(new["status"]) == {"predicted"}
+    preference = pd.read_csv(tmp_path / "site_preference.csv")
+    assert NEW in set(preference["host"])
+    picks = tmp_path / "next.csv"
+    assert main(["next", str(folder), "--out", str(picks), "--host", NEW, "--hosts", str(host_file),
+                 "--count", "3", "--quiet"]) == 0
+    assert set(pd.read_csv(picks)["host"]) == {NEW}
+    # a host file without --hosts-new is a mistake said in one line
+    assert main(["fill", str(folder), "--out", str(out), "--hosts", str(host_file), "--quiet"]) == 2
+    said = capsys.readouterr().err.strip().splitlines()
+    assert said == ["dopantgap fill: --hosts describes new hosts; name them with --hosts-new (e.g. --hosts-new MgO,CaO)."]

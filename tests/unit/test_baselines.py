@@ -12,6 +12,7 @@ from sklearn.ensemble import HistGradientBoostingRegressor
 
 from dopantgap.baselines import (
     BASELINES,
+    BASELINE_SCENARIOS,
     baseline_applies,
     boosted_trees_baseline,
     column_mean_baseline,
@@ -329,18 +330,65 @@ def test_missing_column_and_bad_symbol_are_user_errors(training):
 
 def test_names_are_the_documented_ones():
     assert BASELINES == (
-        "column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline"
+        "column-mean baseline", "group-neighbour baseline", "level-shift baseline", "boosted-trees baseline",
+        "other-hosts baseline", "nearest-host baseline",
     )
+
+
+def _host_training():
+    rows = [
+        ("Ti", "Cu", "sub", 1.0), ("Ti", "Ag", "sub", 2.0), ("Ti", "Ni", "sub", 4.0),
+        ("V", "Cu", "sub", 0.5), ("V", "Ni", "sub", 1.5),
+    ]
+    return pd.DataFrame(
+        [{"element": e, "host": h, "site": s, "method": "gga", "quantity": "Q", "value": v} for e, h, s, v in rows]
+    )
+
+
+def test_other_hosts_rule_is_the_impurity_mean_elsewhere_by_hand():
+    """Ti in Au: mean of Ti in Cu, Ag, Ni = (1 + 2 + 4) / 3; Cr, never computed, falls
+    back on the column rules (the table's mean at that method and quantity)."""
+    cells = pd.DataFrame({"element": ["Ti", "Cr"], "host": "Au", "site": "sub", "method": "gga", "quantity": "Q"})
+    found = predict_baseline("other-hosts baseline", _host_training(), cells, ["gga"])
+    assert found[0] == pytest.approx(7.0 / 3.0)
+    assert found[1] == pytest.approx((1.0 + 2.0 + 4.0 + 0.5 + 1.5) / 5.0)
+
+
+def test_site_kinds_tie_differently_named_sites_together():
+    training = pd.DataFrame({"element": "Ti", "host": ["MgO", "CaO"], "site": ["sub_Mg", "sub_Ca"],
+                             "method": "gga", "quantity": "Q", "value": [1.0, 3.0]})
+    cells = pd.DataFrame({"element": ["Ti"], "host": ["SrO"], "site": ["sub_Sr"], "method": "gga", "quantity": "Q"})
+    kinds = {("MgO", "sub_Mg"): "cation", ("CaO", "sub_Ca"): "cation", ("SrO", "sub_Sr"): "cation"}
+    found = predict_baseline("other-hosts baseline", training, cells, ["gga"], site_kinds=kinds)
+    assert found[0] == pytest.approx(2.0)
+
+
+def test_nearest_host_rule_takes_the_value_in_the_closest_host():
+    """Pd's nearest host among Cu, Ag, Ni in the default host descriptors (mendeleev's
+    data: electronegativity, covalent radius, valence electrons, first ionisation
+    energy) is Ag, then Ni, then Cu. Ti in Pd takes Ti's value in Ag (2.0); V, not
+    computed in Ag, takes its value in Ni (1.5)."""
+    from dopantgap.domain import HostDomain
+    from dopantgap.hosts import host_descriptor_table
+
+    values = host_descriptor_table({h: {h: 1.0} for h in ("Cu", "Ag", "Ni", "Pd")})
+    assert HostDomain().fit(values.loc[["Cu", "Ag", "Ni"]]).ranked(values.loc[["Pd"]]) == [["Ag", "Ni", "Cu"]]
+    cells = pd.DataFrame({"element": ["Ti", "V"], "host": "Pd", "site": "sub", "method": "gga", "quantity": "Q"})
+    found = predict_baseline("nearest-host baseline", _host_training(), cells, ["gga"], host_values=values)
+    assert found.tolist() == pytest.approx([2.0, 1.5])
 
 
 def test_level_shift_is_scored_in_the_upgrade_scenario_only(training):
     """Without the cheaper twin (a new element, or a cell with no cheaper level computed)
-    the level-shift rule is the column mean, so validation lists it for upgrade only."""
+    the level-shift rule is the column mean, so validation lists it for upgrade only; the
+    host rules are listed for new-host only."""
     from dopantgap.calibration import SCENARIOS
 
     assert [s for s in SCENARIOS if baseline_applies("level-shift baseline", s)] == ["upgrade"]
+    for name in ("other-hosts baseline", "nearest-host baseline"):
+        assert [s for s in SCENARIOS if baseline_applies(name, s)] == ["sparse-host", "new-host"]
     for name in BASELINES:
-        if name != "level-shift baseline":
+        if name not in BASELINE_SCENARIOS:
             assert all(baseline_applies(name, scenario) for scenario in SCENARIOS)
     no_twin = make_cells(("Ga", "ZnS", "sub_Zn", "hyb", FORMATION), ("B", "ZnS", "int_hex", "hyb", FORMATION))
     np.testing.assert_array_equal(

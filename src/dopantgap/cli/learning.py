@@ -174,13 +174,13 @@ def _command_validate(arguments, say):
     say(validation_text(result.metrics).rstrip("\n"))
     say("new-element: all cells of an element hidden together; new-cell: single cells of computed "
         "elements; upgrade: expensive cells whose cheap level is computed"
-        + ("; new-host: all cells of a host hidden together (hosts left out in turn)."
-           if result.surrogate.new_host_ready() else "."))
+        + ("; new-host: all cells of a host hidden together (hosts left out in turn); sparse-host: "
+           "the same hosts with 5 of their cells given back." if result.surrogate.new_host_ready() else "."))
     say("gp, boost: the learners ('fit' keeps the marked one); 'auto, chosen per fold': the choice "
         "between them judged out of fold (each fold predicted by the learner the other folds chose). "
         "Baselines are rules one could follow by hand, for comparison; level-shift is listed for "
         "upgrade only (elsewhere no cheaper level is computed and it would repeat the column mean), "
-        "other-hosts and nearest-host for new-host only.")
+        "other-hosts and nearest-host for new-host and sparse-host only.")
     say("Coverage is out of fold: each fold judged by the interval widths the other folds give.")
     say()
     say(f"Where the kept learner ({result.surrogate.learner_}) fails, element by element "

@@ -80,6 +80,15 @@ def _add_next_parser(commands):
         help="propose and count only this method's cells (default: every method's)",
     )
     pick.add_argument(
+        "--host", default=None, metavar="HOST",
+        help="propose and count only this host's cells; a host with no computed cell (a formula, "
+             "or a label of --hosts) asks which first calculations teach most about the rest of it",
+    )
+    pick.add_argument(
+        "--hosts", default=None, metavar="HOST_FILE",
+        help="host file for a new --host: host,formula and site,site_kind rows (as for 'fill --hosts-new')",
+    )
+    pick.add_argument(
         "--cost", default=None, metavar="gga=1,hyb=30",
         help="cost of one calculation per method (default: 1 each)",
     )
@@ -249,6 +258,7 @@ def _command_fill(arguments, say):
 
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
+    from dopantgap.new_hosts import plan_new_hosts
     from dopantgap.picker import parse_cost, parse_window, pick_next
     from dopantgap import elements
     from dopantgap.table import write_table
@@ -258,6 +268,13 @@ def _command_next(arguments, say):
     window = parse_window(arguments.window) if arguments.window is not None else None
     goal = arguments.goal if arguments.goal is not None else ("window" if window else "table")
     surrogate, _manifest = _load_model(arguments, arguments.model, say)
+    if arguments.hosts and not arguments.host:
+        raise DopantgapError("--hosts describes a new host; name it with --host (e.g. --host MgO).")
+    plan = None
+    if arguments.host and arguments.host not in set(surrogate.table_["host"]):
+        plan = plan_new_hosts(surrogate, [arguments.host], arguments.hosts)
+        for note in plan.notes:
+            say(f"note: {note}")
     picks = pick_next(
         surrogate,
         count=arguments.count,
@@ -267,6 +284,8 @@ def _command_next(arguments, say):
         window=window,
         element_symbols=extra,
         random_state=arguments.seed,
+        host=arguments.host,
+        new_hosts=plan,
     )
     write_table(picks, arguments.out)
     if len(picks) == 0:
@@ -290,6 +309,12 @@ def _command_next(arguments, say):
             f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
     _say_outside_levels(say, outside_levels(surrogate, picks, skip=unfamiliar))
+    if plan is not None:
+        say(f"{arguments.host} has no computed cell: the picks are the first calculations that teach most "
+            "about the rest of it (benefit counted over its cells only).")
+        if arguments.host in plan.outside:
+            say(f"caution: host {arguments.host} lies outside the table's hosts ({plan.outside[arguments.host]}): "
+                "its estimates are extrapolations.")
     shown = list(dict.fromkeys(list(picks["element"]) + extra))
     if shown:
         flags = elements.element_flags(shown)

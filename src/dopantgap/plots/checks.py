@@ -12,6 +12,7 @@ _SCENARIO_STYLE = {
     "new-cell": ("#0072B2", "o"),
     "new-element": ("#D55E00", "s"),
     "upgrade": ("#009E73", "^"),
+    "sparse-host": ("#E69F00", "v"),
     "new-host": ("#CC79A7", "D"),
 }
 

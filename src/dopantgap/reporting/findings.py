@@ -16,6 +16,7 @@ _SCENARIO_WORDS = {
     "new-element": "an element never computed",
     "new-cell": "a missing cell of a computed element",
     "upgrade": "a dear-level cell whose cheap level is known",
+    "sparse-host": "a cell of a host with a first few computed cells",
     "new-host": "a host with no computed cell",
 }
 

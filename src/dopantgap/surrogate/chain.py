@@ -13,7 +13,8 @@ import pandas as pd
 
 from dopantgap.calibration import SCENARIOS
 from dopantgap.errors import DopantgapError
-from dopantgap.surrogate.stages import other_hosts_rule
+from dopantgap.features import MIN_CELLS_FOR_OWN_INDICATOR, MIN_HOSTS_FOR_HOST_DESCRIPTORS
+from dopantgap.surrogate.stages import stage_joint
 from dopantgap.table import KEY_COLUMNS
 
 # Cells predicted together (their joint covariance is formed in memory: 1500^2 doubles
@@ -37,19 +38,10 @@ def joint(surrogate, stages, known, quantity, method, cells):
     methods = surrogate.quantity_levels_[quantity]
     position = methods.index(method)
     stage = stages.get((quantity, method))
-    n_cells = len(cells)
     if stage is None:
         # a level with no training cell of its own: only reachable through a bad call
         raise DopantgapError(f"No model for quantity {quantity!r} at method {method!r}.")
-    mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
-    mean = np.array(mean, dtype=float)
-    cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
-    if getattr(stage, "new_host_rule", False):
-        # hosts the stage never saw take the other-hosts rule's mean (the host loop found
-        # it closer than the learner on hosts left out); the learner's covariance stays
-        unseen = ~cells["host"].isin(stage.hosts).to_numpy()
-        if unseen.any():
-            mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
+    mean, cov = stage_joint(surrogate, stage, cells)
     if stage.kind == "correction":
         below_mean, below_cov = surrogate._joint(stages, known, quantity, methods[position - 1], cells)
         mean, cov = mean + below_mean, cov + below_cov
@@ -68,10 +60,15 @@ def joint(surrogate, stages, known, quantity, method, cells):
 
 def scenarios(surrogate, core, cells):
     """Scenario of each cell given the cells computed in ``core``: ``new-host`` when its
-    host has no computed cell of its quantity (whatever the element), else
-    ``new-element``, ``upgrade`` or ``new-cell``."""
+    host has no computed cell of its quantity (whatever the element); ``upgrade`` when
+    its cheaper level is computed; ``sparse-host`` when, in a table of three or more
+    hosts, its host has fewer than ``features.MIN_CELLS_FOR_OWN_INDICATOR`` computed
+    cells of its quantity (placed mostly by host descriptors, as the encoder does);
+    else ``new-element`` or ``new-cell``."""
     with_quantity = set(zip(core["element"], core["quantity"]))
     host_quantity = set(zip(core["host"], core["quantity"]))
+    host_cells = core.groupby(["host", "quantity"]).size().to_dict()
+    many_hosts = core["host"].nunique() >= MIN_HOSTS_FOR_HOST_DESCRIPTORS
     computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
     found = []
     for element, host, site, method, quantity in cells[list(KEY_COLUMNS)].itertuples(
@@ -81,10 +78,12 @@ def scenarios(surrogate, core, cells):
         position = methods.index(method) if method in methods else 0
         if (host, quantity) not in host_quantity:
             found.append("new-host")
-        elif (element, quantity) not in with_quantity:
-            found.append("new-element")
         elif position > 0 and (element, host, site, methods[position - 1], quantity) in computed:
             found.append("upgrade")
+        elif many_hosts and host_cells[(host, quantity)] < MIN_CELLS_FOR_OWN_INDICATOR:
+            found.append("sparse-host")
+        elif (element, quantity) not in with_quantity:
+            found.append("new-element")
         else:
             found.append("new-cell")
     return np.array(found, dtype=object)

@@ -27,8 +27,13 @@ _HOST_FOLDS = 8
 #: Fewest hosts for the host loop, and so for the ``new-host`` scenario (with two, a
 #: host held out leaves one to learn host effects from).
 MIN_HOSTS_FOR_NEW_HOST = 3
-# Fold ids of the host loop start here, after any main or upgrade fold's.
+# Fold ids of the host loop start here, after any main or upgrade fold's; its
+# sparse-host fits follow at this offset.
 _HOST_FOLD_START = 100_000
+_SPARSE_FOLD_OFFSET = 50_000
+#: Cells of a held-out host given back in the host loop's second fit (the issue's "a host
+#: with five calculations"; common practice, no source).
+SPARSE_HOST_CELLS = 5
 
 
 def fit_candidate(surrogate, core, name):
@@ -57,16 +62,20 @@ def host_groups(core, seed):
 
 
 def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
-    """Out-of-fold predictions of every cell of hosts held out whole (``new-host``).
+    """Out-of-fold predictions of hosts held out whole (``new-host``) and of hosts just
+    started (``sparse-host``).
 
     Every stage is refitted from scratch without the held-out hosts (their columns are
     not in its input layout, as a new host's are not), so the hidden hosts are placed
     only by their host descriptors and the site kinds: the way a host with no rows is
-    predicted. Each hidden cell is predicted twice: by the learners, and with every
-    stage's mean replaced by the other-hosts rule (``stages.other_hosts_rule``: the
-    impurity's mean over the other hosts' sites of the same kind), covariances kept.
-    The form with the lower out-of-fold mean absolute error is kept, so a new host is
-    never predicted worse than the rule on the table's own evidence.
+    predicted. Then ``SPARSE_HOST_CELLS`` cells of each hidden host (at the lowest
+    level, drawn at random) are given back, the stages refitted, and the host's other
+    cells predicted: a host with a first few calculations. Each hidden cell is predicted
+    twice: by the learners, and with every stage's mean replaced, for hosts the stage
+    never saw, by the other-hosts rule (``stages.other_hosts_rule``: the impurity's mean
+    over the other hosts' sites of the same kind), covariances kept. The form with the
+    lower out-of-fold mean absolute error is kept, so a new host is never predicted
+    worse than the rule on the table's own evidence.
 
     Returns
     -------
@@ -76,25 +85,45 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
         Whether the rule was kept.
     """
     forms = {False: [], True: []}
+    levels = surrogate.quantity_levels_
+    lowest = np.array([levels[q].index(m) == 0 for q, m in zip(core["quantity"], core["method"])], dtype=bool)
     for position, group in enumerate(host_groups(core, surrogate._seed())):
         test = core["host"].isin(group).to_numpy()
-        training, held_out = core[~test], core[test].reset_index(drop=True)
-        stages = surrogate._fit_stages(training, name, template=None, shift_only=shift_only)
-        servable = np.array([(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])])
-        held_out = held_out[servable].reset_index(drop=True)
-        if len(held_out) == 0:
-            continue
-        level_domain = LevelDomain(
-            descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
-        ).fit(training)
-        difficulty = difficulty_features(level_domain, training, held_out)
-        scenario = surrogate._scenarios(training, held_out)
-        for use_rule, parts in forms.items():
-            for stage in stages.values():
-                stage.new_host_rule = use_rule
-            mean, std = surrogate._predict_raw(stages, training, held_out)
-            part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=_HOST_FOLD_START + position)
-            parts.append(pd.concat([part, difficulty], axis=1))
+        rng = np.random.default_rng(surrogate._seed() + 3 + position)
+        given = np.zeros(len(core), dtype=bool)
+        for host in group:
+            candidates = np.flatnonzero((core["host"] == host).to_numpy() & lowest)
+            if len(candidates) > 2 * SPARSE_HOST_CELLS:
+                given[rng.choice(candidates, size=SPARSE_HOST_CELLS, replace=False)] = True
+        fits = [(test, _HOST_FOLD_START + position, "new-host")]
+        if given.any():
+            fits.append((test & ~given, _HOST_FOLD_START + _SPARSE_FOLD_OFFSET + position, "sparse-host"))
+        stages = None
+        for hidden, fold, kept in fits:
+            training, held_out = core[~hidden], core[hidden].reset_index(drop=True)
+            # the host's first cells condition the stages fitted without it (their
+            # kernels kept, as a refreshed model keeps them when a user adds rows)
+            stages = surrogate._fit_stages(
+                training, name, template=stages, mode="fresh" if stages is None else "grown", shift_only=shift_only
+            )
+            servable = np.array([(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])])
+            # each cell once per scenario: a quantity none of the given cells has stays
+            # new-host, already predicted by the first fit
+            servable &= surrogate._scenarios(training, held_out) == kept
+            held_out = held_out[servable].reset_index(drop=True)
+            if len(held_out) == 0:
+                continue
+            level_domain = LevelDomain(
+                descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+            ).fit(training)
+            difficulty = difficulty_features(level_domain, training, held_out)
+            scenario = surrogate._scenarios(training, held_out)
+            for use_rule, parts in forms.items():
+                for stage in stages.values():
+                    stage.new_host_rule = use_rule
+                mean, std = surrogate._predict_raw(stages, training, held_out)
+                part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=fold)
+                parts.append(pd.concat([part, difficulty], axis=1))
     if not forms[False]:
         return pd.DataFrame(), False
     found = {}

@@ -9,7 +9,7 @@ names delegate here.
 import numpy as np
 import pandas as pd
 
-from dopantgap.features import CellEncoder, site_kind
+from dopantgap.features import MIN_CELLS_FOR_OWN_INDICATOR, CellEncoder, site_kind
 from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, ShiftPriorLearner
 from dopantgap.reproducible import learner_seed
 
@@ -72,6 +72,25 @@ def other_hosts_means(cells, target, site_kinds):
     by_element = frame.groupby(["element", "kind"])["target"].mean().to_dict()
     by_kind = frame.groupby("kind")["target"].mean().to_dict()
     return {"element": by_element, "kind": by_kind, "all": float(np.mean(target))}
+
+
+def stage_joint(surrogate, stage, cells):
+    """Mean and covariance of one stage's own output (a level, or a correction) at cells.
+
+    The learner's, except that where the host loop kept the other-hosts rule
+    (``stage.new_host_rule``) cells of hosts the stage never saw take the rule's mean;
+    the learner's covariance stays. Every consumer (the chain of levels, the picker's
+    joint) reads a stage through here.
+    """
+    n_cells = len(cells)
+    mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
+    mean = np.array(mean, dtype=float)
+    cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
+    if getattr(stage, "new_host_rule", False):
+        unseen = ~cells["host"].isin(stage.hosts).to_numpy()
+        if unseen.any():
+            mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
+    return mean, cov
 
 
 def other_hosts_rule(stage, cells, site_kinds):
@@ -184,6 +203,31 @@ def new_learner(surrogate, name, encoder, n_rows, template, mode="fresh", kind="
     return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=learner_seed(surrogate._seed()))
 
 
+def _template_layout(template, cells):
+    """The input layout a stage keeps from its template: (columns, indicator keys, host
+    descriptor names), or (None, None, None) when it cannot be kept.
+
+    Columns the template never saw (a new host's) are appended when none of them
+    needs an indicator of its own (host descriptors place them, as
+    ``features.MIN_CELLS_FOR_OWN_INDICATOR`` says); otherwise the layout changes and
+    the learner is tuned afresh.
+    """
+    if template is None:
+        return None, None, None
+    encoder = template.encoder
+    columns = list(encoder.columns_)
+    keys = getattr(encoder, "indicator_keys_", columns if len(encoder.indicator_columns_) else [])
+    host_names = getattr(encoder, "host_names_", [])
+    known = set(columns)
+    unseen = [key for key in dict.fromkeys(zip(cells["host"], cells["site"])) if key not in known]
+    if unseen:
+        counts = cells.groupby(["host", "site"]).size().to_dict()
+        if not host_names or any(counts[key] >= MIN_CELLS_FOR_OWN_INDICATOR for key in unseen):
+            return None, None, None
+        columns += unseen
+    return columns, keys, host_names
+
+
 def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozenset()):
     """Fit one stage per quantity and level; ``template`` (fitted stages) warm-starts
     the hyperparameters of each fold (``mode="fold"``) or keeps them in a refreshed
@@ -197,18 +241,10 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
                 continue
             model_template = None if template is None else template.get((quantity, method))
             encoder = new_encoder(surrogate)
-            columns = None if model_template is None else model_template.encoder.columns_
-            if columns is not None and not set(zip(cells["host"], cells["site"])) <= set(columns):
-                # a column the template never saw: its input layout cannot be kept
-                columns, model_template = None, None
-            indicator_keys = None
-            if model_template is not None:
-                template_encoder = model_template.encoder
-                indicator_keys = getattr(
-                    template_encoder, "indicator_keys_",
-                    template_encoder.columns_ if len(template_encoder.indicator_columns_) else [],
-                )
-            encoder.fit(cells, columns=columns, indicator_keys=indicator_keys)
+            columns, indicator_keys, host_names = _template_layout(model_template, cells)
+            if columns is None:
+                model_template = None
+            encoder.fit(cells, columns=columns, indicator_keys=indicator_keys, host_names=host_names)
             learner = surrogate._new_learner(
                 name, encoder, len(cells), model_template, mode=mode, kind=kind,
                 n_elements=cells["element"].nunique(), shift_only=(quantity, method) in shift_only,
