@@ -199,6 +199,9 @@ def new_learner(surrogate, name, encoder, n_rows, template, mode="fresh", kind="
             selection_group_column=element_label,
             max_optimiser_iterations=iterations,
             random_state=learner_seed(surrogate._seed()),
+            smooth_columns=tuple(
+                encoder.physical_names_.index(name) for name in getattr(encoder, "host_names_", ())
+            ),
         )
     return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=learner_seed(surrogate._seed()))
 
