@@ -383,9 +383,13 @@ class LevelDomain(BaseEstimator):
         As in :class:`ElementDomain`.
     quantile : float, default 0.95
         As in :class:`ElementDomain`.
-    min_host_elements : int, default 3
+    min_host_elements : int, default 10
         Fewest elements computed at a level in one host for that host's own set to
-        serve as the reference.
+        serve as the reference; the same count as
+        ``features.MIN_CELLS_FOR_OWN_INDICATOR``, below which a host's cells are
+        placed through the other hosts (measured in tests/integration/test_new_host.py:
+        with 3, a host's intervals widened from one computed cell to five, as its own
+        few elements became the reference).
     descriptor_values : DataFrame or None, default=None
         As in :class:`ElementDomain`.
 
@@ -409,7 +413,7 @@ class LevelDomain(BaseEstimator):
     [False, True]
     """
 
-    def __init__(self, descriptors=None, quantile=0.95, min_host_elements=3, descriptor_values=None):
+    def __init__(self, descriptors=None, quantile=0.95, min_host_elements=10, descriptor_values=None):
         self.descriptors = descriptors
         self.quantile = quantile
         self.min_host_elements = min_host_elements

@@ -244,7 +244,7 @@ def outside_levels(surrogate, cells, skip=()):
     at the expensive level (a halogen when only metals were computed with the hybrid
     functional): its estimates at that level extrapolate the correction between levels.
     The rule is ``domain.LevelDomain``'s (distance to the elements computed at the cell's
-    level, in its host where that host has three or more, against the table's domain
+    level, in its host where that host has ten or more, against the table's domain
     threshold; or a periodic-table block none of them belongs to).
 
     Parameters

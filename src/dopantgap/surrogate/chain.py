@@ -155,18 +155,30 @@ def calibrated_factors(surrogate, core, cells, scenarios, level=0.9, raw_std=Non
     scale = np.ones(len(cells))
     half = np.full(len(cells), 1.6448536269514722)
     quantities = cells["quantity"].to_numpy()
-    for scenario in SCENARIOS:
-        in_scenario = scenarios == scenario
-        if not in_scenario.any():
-            continue
+
+    def factors(scenario, in_scenario):
         difficulty = (
             calibration.difficulty(scenario, features[in_scenario])
             if features is not None else np.ones(int(in_scenario.sum()))
         )
-        scale[in_scenario] = difficulty
-        half[in_scenario] = difficulty
+        found_scale, found_half = difficulty.copy(), difficulty.copy()
         for quantity in set(quantities[in_scenario]):
-            rows = in_scenario & (quantities == quantity)
-            scale[rows] *= calibration.std_scale(scenario, quantity)
-            half[rows] *= calibration.half_width(scenario, level, quantity)
+            rows = quantities[in_scenario] == quantity
+            found_scale[rows] *= calibration.std_scale(scenario, quantity)
+            found_half[rows] *= calibration.half_width(scenario, level, quantity)
+        return found_scale, found_half
+
+    for scenario in SCENARIOS:
+        in_scenario = scenarios == scenario
+        if not in_scenario.any():
+            continue
+        scale[in_scenario], half[in_scenario] = factors(scenario, in_scenario)
+        if scenario == "sparse-host" and calibration.n_residuals("new-host") > 0:
+            # a host's first cells never make it less known per unit of the model's own
+            # spread than none: the factors are at most a new host's (the sparse-host
+            # residuals come from hosts given five cells, and would widen a host given one
+            # beyond what it had with none)
+            new_scale, new_half = factors("new-host", in_scenario)
+            scale[in_scenario] = np.minimum(scale[in_scenario], new_scale)
+            half[in_scenario] = np.minimum(half[in_scenario], new_half)
     return scale, half

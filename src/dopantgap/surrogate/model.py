@@ -516,7 +516,7 @@ class Surrogate(BaseEstimator):
             std 0 and lo = hi = value; ``predicted`` otherwise), ``scenario``
             (empty for computed cells), ``domain_distance`` (distance of the element
             from the elements computed at the cell's level, in its host where that
-            host has three or more, in standardised descriptors; 0 for computed
+            host has ten or more, in standardised descriptors; 0 for computed
             cells) and ``outside_domain`` (``domain.LevelDomain`` rule). ``std`` and
             the interval scale the model's own spread by the scenario's calibration
             and the cell's difficulty (``calibration.DifficultyModel``).
