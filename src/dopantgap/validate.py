@@ -14,7 +14,8 @@ figure is out of fold:
   with three or more hosts, ``new-host`` (every cell of a host hidden, one host or a
   few at a time; baselines: the impurity's mean over the other hosts, and its value in
   the nearest host by host descriptors) and ``sparse-host`` (the same hosts with five
-  of their cells given back, and cells of hosts with fewer than ten computed cells);
+  of their cells given back, and cells of host/site columns with fewer than ten
+  computed cells);
 * ``coverage`` is the share of hidden values inside the 90 % interval, judged
   cross-conformally: each fold's cells against the widths the *other* folds' residuals
   give (``calibration.cross_conformal_covered``). A learner's interval is its

@@ -62,12 +62,12 @@ def scenarios(surrogate, core, cells):
     """Scenario of each cell given the cells computed in ``core``: ``new-host`` when its
     host has no computed cell of its quantity (whatever the element); ``upgrade`` when
     its cheaper level is computed; ``sparse-host`` when, in a table of three or more
-    hosts, its host has fewer than ``features.MIN_CELLS_FOR_OWN_INDICATOR`` computed
-    cells of its quantity (placed mostly by host descriptors, as the encoder does);
-    else ``new-element`` or ``new-cell``."""
+    hosts, its host/site column has fewer than ``features.MIN_CELLS_FOR_OWN_INDICATOR``
+    computed cells of its quantity (placed through the other hosts, as the encoder
+    places it, not by a column of its own); else ``new-element`` or ``new-cell``."""
     with_quantity = set(zip(core["element"], core["quantity"]))
     host_quantity = set(zip(core["host"], core["quantity"]))
-    host_cells = core.groupby(["host", "quantity"]).size().to_dict()
+    column_cells = core.groupby(["host", "site", "quantity"]).size().to_dict()
     many_hosts = core["host"].nunique() >= MIN_HOSTS_FOR_HOST_DESCRIPTORS
     computed = set(core[list(KEY_COLUMNS)].itertuples(index=False, name=None))
     found = []
@@ -80,7 +80,7 @@ def scenarios(surrogate, core, cells):
             found.append("new-host")
         elif position > 0 and (element, host, site, methods[position - 1], quantity) in computed:
             found.append("upgrade")
-        elif many_hosts and host_cells[(host, quantity)] < MIN_CELLS_FOR_OWN_INDICATOR:
+        elif many_hosts and column_cells.get((host, site, quantity), 0) < MIN_CELLS_FOR_OWN_INDICATOR:
             found.append("sparse-host")
         elif (element, quantity) not in with_quantity:
             found.append("new-element")
