@@ -24,8 +24,8 @@ Sources (cite them beside any figure quoted from this script):
 Targets (issue 15, diffusion table): leave-one-host-out RMSE at most 0.16 eV and 5 rows
 given at most 0.20 eV, both with 90 % coverage 0.87-0.93.
 
-Run ``python benchmarks/bench_new_host.py`` (k = 5, diffusion; about 15 minutes on two
-idle cores) or ``--ks 0,1,5,10 --tables diffusion,segregation``.
+Run ``python benchmarks/bench_new_host.py`` (k = 5, diffusion; about 25 minutes on two
+busy cores, one full fit per host) or ``--ks 0,1,5,10 --tables diffusion,segregation``.
 """
 
 import argparse
