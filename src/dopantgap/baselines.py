@@ -150,9 +150,11 @@ def _mean_by(training, columns):
 
 
 # ------------------------------------------------------------------------ rules
-def _column_mean_rule(training, cells):
+def _fallback_means(training, cells, groupings):
+    """Each cell's mean over the training cells sharing its keys, trying the groupings in
+    turn (finest first); NaN where none has a training cell."""
     mean = np.full(len(cells), np.nan)
-    for columns in _MEAN_FALLBACKS:
+    for columns in groupings:
         missing = np.flatnonzero(np.isnan(mean))
         if missing.size == 0:
             break
@@ -160,6 +162,11 @@ def _column_mean_rule(training, cells):
         keys = _keys(cells, columns)
         for row in missing:
             mean[row] = means.get(keys[row], np.nan)
+    return mean
+
+
+def _column_mean_rule(training, cells):
+    mean = _fallback_means(training, cells, _MEAN_FALLBACKS)
     if len(training):
         mean[np.isnan(mean)] = float(training["value"].mean())
     return mean
@@ -422,15 +429,9 @@ def _kinds(frame, site_kinds):
 def _other_hosts_rule(training, cells, site_kinds=None):
     training = training.assign(kind=_kinds(training, site_kinds))
     cells = cells.assign(kind=_kinds(cells, site_kinds))
-    mean = np.full(len(cells), np.nan)
-    for columns in (("element", "kind", "method", "quantity"), ("element", "method", "quantity")):
-        missing = np.flatnonzero(np.isnan(mean))
-        if missing.size == 0:
-            break
-        means = _mean_by(training, columns)
-        keys = _keys(cells, columns)
-        for row in missing:
-            mean[row] = means.get(keys[row], np.nan)
+    mean = _fallback_means(
+        training, cells, (("element", "kind", "method", "quantity"), ("element", "method", "quantity"))
+    )
     missing = np.isnan(mean)
     if missing.any():
         mean[missing] = _column_mean_rule(training, cells[missing].reset_index(drop=True))
