@@ -166,3 +166,16 @@ def test_fill_and_next_commands_take_a_new_host(family, host_file, tmp_path, cap
     assert main(["fill", str(folder), "--out", str(out), "--hosts", str(host_file), "--quiet"]) == 2
     said = capsys.readouterr().err.strip().splitlines()
     assert said == ["dopantgap fill: --hosts describes new hosts; name them with --hosts-new (e.g. --hosts-new MgO,CaO)."]
+
+
+def test_a_refreshed_model_keeps_the_host_loops_choice(family):
+    _world, table, model = family
+    kept = {key: stage.new_host_rule for key, stage in model.stages_.items()}
+    for stage in model.stages_.values():
+        stage.new_host_rule = True
+    try:
+        grown = model.refreshed(table)
+        assert all(stage.new_host_rule for stage in grown.stages_.values())
+    finally:
+        for key, stage in model.stages_.items():
+            stage.new_host_rule = kept[key]

@@ -261,4 +261,6 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
                 other_hosts_means=other_hosts_means(cells, target, getattr(surrogate, "site_kinds_", None)),
                 hosts=set(cells["host"]),
             )
+            # a refreshed model keeps the host loop's choice of form for unseen hosts
+            stages[(quantity, method)].new_host_rule = getattr(model_template, "new_host_rule", False)
     return stages
