@@ -31,7 +31,7 @@ SMALL_ELEMENTS = ("Li", "B", "N", "Mg", "Al", "P", "Ti", "Fe", "Cu", "Ga", "As",
                   "Na", "K", "Ca", "Zn", "In", "Bi", "Cr", "Mn")
 SMALL_HOSTS = {"ZnS": ("sub_Zn", "int_tet_Zn", "int_hex")}
 # one host: no host to leave out, so no new-host scenario and no host rules
-ONE_HOST_SCENARIOS = tuple(scenario for scenario in SCENARIOS if scenario != "new-host")
+ONE_HOST_SCENARIOS = tuple(scenario for scenario in SCENARIOS if "host" not in scenario)
 ONE_HOST_BASELINES = tuple(name for name in BASELINES if "host" not in name)
 
 
