@@ -40,6 +40,7 @@ import pandas as pd
 from dopantgap.fill import fill_table
 from dopantgap.new_hosts import plan_new_hosts
 from dopantgap.surrogate import Surrogate
+from dopantgap.surrogate.stages import new_host_form
 from dopantgap.table import KEY_COLUMNS, read_table
 
 REAL = Path(__file__).resolve().parents[2] / "shared" / "real"
@@ -88,7 +89,9 @@ def run_host(table, host, k, seed):
     merged = cells.merge(filled, on=list(KEY_COLUMNS), how="left")
     inside = (truth >= merged["lo"].to_numpy()) & (truth <= merged["hi"].to_numpy())
     scored["dopantgap"] = (merged["value"].to_numpy() - truth, inside)
-    return scored, seconds
+    # the form the host loop kept for hosts the model never saw (stages.NEW_HOST_FORMS)
+    form = "/".join(sorted({new_host_form(stage) for stage in model.stages_.values()}))
+    return scored, seconds, form
 
 
 def main():
@@ -108,7 +111,7 @@ def main():
         for k in (int(text) for text in arguments.ks.split(",")):
             errors, inside, seconds = {}, [], []
             for position, host in enumerate(hosts):
-                scored, spent = run_host(table, host, k, seed=position)
+                scored, spent, form = run_host(table, host, k, seed=position)
                 seconds.append(spent)
                 for method, (error, covered) in scored.items():
                     errors.setdefault(method, []).append(error)
@@ -117,7 +120,8 @@ def main():
                 line = ", ".join(
                     f"{method} {np.sqrt(np.mean(error ** 2)):.3f}" for method, (error, _) in scored.items()
                 )
-                print(f"  {name} k={k} {host:<3} ({len(error)} rows hidden): RMSE {line}", flush=True)
+                print(f"  {name} k={k} {host:<3} ({len(error)} rows hidden): RMSE {line}; form kept: {form}",
+                      flush=True)
             print(f"{name} ({source}), {len(hosts)} hosts, {k} rows of each given in turn:")
             for method, parts in errors.items():
                 error = np.concatenate(parts)

@@ -12,6 +12,7 @@ from dopantgap.fill import fill_table
 from dopantgap.new_hosts import parse_host_list, plan_new_hosts
 from dopantgap.surrogate import Surrogate
 from dopantgap.table import KEY_COLUMNS
+from dopantgap.surrogate.stages import new_host_form
 from dopantgap.world import FAMILY_SITE_KINDS, family_host_file_text, invent_host_family
 
 HOSTS = {
@@ -168,14 +169,16 @@ def test_fill_and_next_commands_take_a_new_host(family, host_file, tmp_path, cap
     assert said == ["dopantgap fill: --hosts describes new hosts; name them with --hosts-new (e.g. --hosts-new MgO,CaO)."]
 
 
-def test_a_refreshed_model_keeps_the_host_loops_choice(family):
+@pytest.mark.parametrize("form", ["rule", "pairs"])
+def test_a_refreshed_model_keeps_the_host_loops_choice(family, form):
     _world, table, model = family
-    kept = {key: stage.new_host_rule for key, stage in model.stages_.items()}
+    kept = {key: stage.new_host_form for key, stage in model.stages_.items()}
     for stage in model.stages_.values():
-        stage.new_host_rule = True
+        assert stage.pairs is not None  # eight hosts: every stage has a pair model
+        stage.new_host_form = form
     try:
         grown = model.refreshed(table)
-        assert all(stage.new_host_rule for stage in grown.stages_.values())
+        assert {new_host_form(stage) for stage in grown.stages_.values()} == {form}
     finally:
         for key, stage in model.stages_.items():
-            stage.new_host_rule = kept[key]
+            stage.new_host_form = kept[key]

@@ -189,3 +189,36 @@ def test_host_table_index_and_dtype():
     assert table.index.name == "host"
     assert (table.dtypes == np.float64).all()
     assert isinstance(table, pd.DataFrame)
+
+
+def test_pair_encoder_compares_the_impurity_with_the_host_atoms_at_its_site():
+    # Hand values from mendeleev package data (Mentel, mendeleev 2014-), Pauling scale:
+    # Li 0.98, Mg 1.31, Ca 1.00, O 3.44. A site naming Mg compares with Mg alone; an
+    # interstitial site with the host's atoms by atom fraction, (1.31 + 3.44) / 2 = 2.375.
+    from dopantgap.features import PairEncoder
+
+    for symbol, value in (("Li", 0.98), ("Mg", 1.31), ("Ca", 1.00), ("O", 3.44)):
+        assert mendeleev.element(symbol).en_pauling == pytest.approx(value)
+    cells = pd.DataFrame({
+        "element": ["Li", "Li", "Na", "K"],
+        "host": ["MgO", "MgO", "CaO", "CaO"],
+        "site": ["sub_Mg", "int_oct", "sub_Ca", "int_oct"],
+    })
+    compositions = host_compositions(["MgO", "CaO"])
+    kinds = {("MgO", "sub_Mg"): "cation", ("CaO", "sub_Ca"): "cation"}
+    encoder = PairEncoder(compositions, site_kinds=kinds).fit(cells)
+    matrix = encoder.transform(cells)
+    names = encoder.feature_names_
+    physical = len(encoder.mean_)
+    values = matrix[:, :physical] * encoder.scale_ + encoder.mean_
+    host_en = values[:, names.index("host_atoms_electronegativity_pauling")]
+    np.testing.assert_allclose(host_en, [1.31, 2.375, 1.00, (1.00 + 3.44) / 2])
+    np.testing.assert_allclose(values[:2, names.index("impurity_electronegativity_pauling")], [0.98, 0.98])
+    # site kinds from the host file tie sub_Mg to sub_Ca; int_oct is its own kind
+    assert names[physical:] == ["kind[cation]", "kind[int_oct]"]
+    np.testing.assert_array_equal(matrix[:, physical:], [[1, 0], [0, 1], [1, 0], [0, 1]])
+    # the inputs are standardised over the training cells
+    np.testing.assert_allclose(matrix[:, :physical].mean(axis=0), 0.0, atol=1e-12)
+    # a host without a formula is refused in one line
+    with pytest.raises(DopantgapError, match="no formula"):
+        encoder.transform(cells.assign(host="SrO"))

@@ -16,7 +16,15 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteK
 from sklearn.utils.estimator_checks import parametrize_with_checks
 from threadpoolctl import threadpool_limits
 
-from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, OnColumns, SameLabel, ShiftPriorLearner
+from dopantgap.learners import (
+    BoostLearner,
+    ColumnMeanLearner,
+    GPLearner,
+    HostTransferGP,
+    OnColumns,
+    SameLabel,
+    ShiftPriorLearner,
+)
 from dopantgap.learners.boosted import _shrunk_offsets
 
 
@@ -35,6 +43,7 @@ def _one_thread():
         ColumnMeanLearner(),
         ShiftPriorLearner(),
         ShiftPriorLearner(residual_learner=GPLearner(random_state=0)),
+        HostTransferGP(random_state=0),
     ],
 )
 def test_scikit_learn_estimator_checks(estimator, check):
@@ -440,3 +449,46 @@ def test_gp_descriptor_selection_switches_off_what_does_not_help_unseen_groups()
     # a well-found optimum: nothing to gain, nothing switched off by the selection
     settled = GPLearner(selection_group_column=n_descriptors, **layout).fit(X, y)
     assert settled.kernel_.theta == pytest.approx(settled.ard_kernel_.theta)
+
+
+# ------------------------------------------------------------------ pair model (new hosts)
+
+
+def test_host_transfer_gp_with_a_fixed_kernel_is_rasmussen_williams_algorithm_2_1():
+    # Rasmussen & Williams 2006, "Gaussian Processes for Machine Learning", Algorithm 2.1,
+    # with the Matern nu = 3/2 covariance of their eq. 4.17:
+    # k(r) = s (1 + sqrt(3) r / l) exp(-sqrt(3) r / l)
+    X = np.array([[-1.6, 0.2], [-0.9, -0.4], [-0.2, 0.9], [0.4, 0.1], [1.1, -1.0], [1.9, 0.5]])
+    y = np.array([0.3, 1.4, 0.9, -0.4, -1.2, 0.2])
+    X_star = np.array([[-1.2, 0.0], [0.0, 0.3], [2.5, -0.5]])
+    signal, length, noise = 1.3, 1.1, 0.04
+    kernel = ConstantKernel(signal, "fixed") * Matern(length, "fixed", nu=1.5) + WhiteKernel(noise, "fixed")
+    learner = HostTransferGP(fixed_kernel=kernel).fit(X, y)
+    _, cov = learner.predict(X_star, return_cov=True)
+    mean = learner.predict(X_star)
+
+    def matern(A, B):
+        r = np.sqrt(((A[:, None, :] - B[None, :, :]) ** 2).sum(axis=2)) / length
+        return signal * (1.0 + np.sqrt(3.0) * r) * np.exp(-np.sqrt(3.0) * r)
+
+    y_mean, y_scale = y.mean(), y.std()
+    K = matern(X, X) + (noise + 1e-10) * np.eye(len(X))
+    L = cholesky(K, lower=True)
+    k_star = matern(X, X_star)
+    v = solve_triangular(L, k_star, lower=True)
+    np.testing.assert_allclose(mean, k_star.T @ cho_solve((L, True), (y - y_mean) / y_scale) * y_scale + y_mean,
+                               rtol=1e-9, atol=1e-12)
+    expected_cov = (matern(X_star, X_star) + noise * np.eye(len(X_star)) - v.T @ v) * y_scale**2
+    np.testing.assert_allclose(cov, expected_cov, rtol=1e-7, atol=1e-12)
+    assert learner.kernel_ == kernel
+
+
+def test_host_transfer_gp_has_one_length_scale_for_every_input():
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(60, 5))
+    y = np.sin(X[:, 0]) + 0.1 * rng.normal(size=60)
+    learner = HostTransferGP(random_state=0).fit(X, y)
+    scales = [value for name, value in learner.kernel_.get_params().items() if name.endswith("length_scale")]
+    assert len(scales) == 1 and np.ndim(scales[0]) == 0
+    # it learned something: the fitted mean follows the signal better than the mean does
+    assert np.mean((learner.predict(X) - np.sin(X[:, 0])) ** 2) < 0.5 * np.var(np.sin(X[:, 0]))

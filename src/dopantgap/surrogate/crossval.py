@@ -14,7 +14,7 @@ from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibr
 from dopantgap.domain import LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.surrogate.chain import difficulty_features
-from dopantgap.surrogate.stages import _CELL, new_encoder
+from dopantgap.surrogate.stages import _CELL, NEW_HOST_FORMS, new_encoder
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 # Folds of the upgrade loop: at most this many, over the elements computed at both
@@ -42,9 +42,9 @@ def fit_candidate(surrogate, core, name):
     upgrade, shift_only = surrogate._cross_validate_upgrade(core, name)
     stages = surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
     residuals = surrogate._cross_validate(core, name, stages, shift_only)
-    new_host, use_rule = cross_validate_hosts(surrogate, core, name, shift_only)
+    new_host, form = cross_validate_hosts(surrogate, core, name, shift_only)
     for stage in stages.values():
-        stage.new_host_rule = use_rule
+        stage.new_host_form = form
     parts = [residuals] + [part for part in (upgrade, new_host) if len(part)]
     if len(parts) > 1:
         residuals = pd.concat(parts, ignore_index=True)
@@ -71,20 +71,21 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     predicted. Then ``SPARSE_HOST_CELLS`` cells of each hidden host (at the lowest
     level, drawn at random) are given back, the stages refitted, and the host's other
     cells predicted: a host with a first few calculations. Each hidden cell is predicted
-    twice: by the learners, and with every stage's mean replaced, for hosts the stage
-    never saw, by the other-hosts rule (``stages.other_hosts_rule``: the impurity's mean
-    over the other hosts' sites of the same kind), covariances kept. The form with the
-    lower out-of-fold mean absolute error is kept, so a new host is never predicted
-    worse than the rule on the table's own evidence.
+    in every form of ``stages.NEW_HOST_FORMS``: by the learners; with every stage's mean
+    replaced, for hosts the stage never saw, by the other-hosts rule
+    (``stages.other_hosts_rule``: the impurity's mean over the other hosts' sites of the
+    same kind); or by the pair model (``stages.fit_pairs``); covariances kept. The form
+    with the lowest out-of-fold mean absolute error is kept (the earlier on a tie), so a
+    new host is never predicted worse than the rule on the table's own evidence.
 
     Returns
     -------
     residuals : DataFrame
         The kept form's out-of-fold predictions (empty below three hosts).
-    use_rule : bool
-        Whether the rule was kept.
+    form : str
+        The form kept ("learner" below three hosts).
     """
-    forms = {False: [], True: []}
+    forms = {form: [] for form in NEW_HOST_FORMS}
     levels = surrogate.quantity_levels_
     lowest = np.array([levels[q].index(m) == 0 for q, m in zip(core["quantity"], core["method"])], dtype=bool)
     for position, group in enumerate(host_groups(core, surrogate._seed())):
@@ -118,22 +119,22 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
             ).fit(training)
             difficulty = difficulty_features(level_domain, training, held_out)
             scenario = surrogate._scenarios(training, held_out)
-            for use_rule, parts in forms.items():
+            for form, parts in forms.items():
                 for stage in stages.values():
-                    stage.new_host_rule = use_rule
+                    stage.new_host_form = form
                 mean, std = surrogate._predict_raw(stages, training, held_out)
                 part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=fold)
                 parts.append(pd.concat([part, difficulty], axis=1))
-    if not forms[False]:
-        return pd.DataFrame(), False
+    if not forms["learner"]:
+        return pd.DataFrame(), "learner"
     found = {}
-    for use_rule, parts in forms.items():
+    for form, parts in forms.items():
         residuals = pd.concat(parts, ignore_index=True)
         residuals["error"] = residuals["value"] - residuals["mean"]
         residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
-        found[use_rule] = residuals
-    use_rule = float(np.mean(np.abs(found[True]["error"]))) < float(np.mean(np.abs(found[False]["error"])))
-    return found[use_rule], use_rule
+        found[form] = residuals
+    form = min(NEW_HOST_FORMS, key=lambda name: float(np.mean(np.abs(found[name]["error"]))))
+    return found[form], form
 
 
 def fold_masks(surrogate, core):

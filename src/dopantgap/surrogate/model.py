@@ -426,6 +426,9 @@ class Surrogate(BaseEstimator):
         for key, stage in self.stages_.items():
             stage = copy.copy(stage)
             stage.encoder = stage.encoder.with_hosts(fresh.compositions_, fresh.host_values_, fresh.site_kinds_)
+            if getattr(stage, "pairs", None) is not None:
+                encoder, learner = stage.pairs
+                stage.pairs = (encoder.with_hosts(fresh.compositions_, fresh.site_kinds_), learner)
             fresh.stages_[key] = stage
         return fresh
 

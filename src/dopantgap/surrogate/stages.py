@@ -9,8 +9,14 @@ names delegate here.
 import numpy as np
 import pandas as pd
 
-from dopantgap.features import MIN_CELLS_FOR_OWN_INDICATOR, CellEncoder, site_kind
-from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, ShiftPriorLearner
+from dopantgap.features import (
+    MIN_CELLS_FOR_OWN_INDICATOR,
+    MIN_HOSTS_FOR_HOST_DESCRIPTORS,
+    CellEncoder,
+    PairEncoder,
+    site_kind,
+)
+from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, HostTransferGP, ShiftPriorLearner
 from dopantgap.reproducible import learner_seed
 
 # Below this many training rows a stage falls back on column means (common practice,
@@ -36,6 +42,14 @@ _FOLD_OPTIMISER_ITERATIONS = 30
 # in benchmarks/bench_replay.py on the invented demo world: a replay that never
 # re-optimised learned the expensive level half as fast).
 _REOPTIMISE_GROWTH = 1.25
+#: The forms a stage can predict a host it never saw with; the host loop keeps the one
+#: with the lowest out-of-fold error (``crossval.cross_validate_hosts``): the stage's
+#: learner, the other-hosts rule, or the pair model (``learners.HostTransferGP`` on
+#: ``features.PairEncoder`` rows).
+NEW_HOST_FORMS = ("learner", "rule", "pairs")
+# Largest stage the pair model is fitted on (its Gaussian process costs the cube of the
+# rows; common practice, no source).
+_MAX_PAIR_ROWS = 4000
 
 _CELL = ["element", "host", "site"]
 
@@ -44,13 +58,14 @@ class _Stage:
     """A fitted model of one quantity at one level: its encoder, learner and kind.
 
     ``other_hosts_means`` holds what the other-hosts rule reads (the stage's mean target
-    per element and site kind, and per site kind); ``new_host_rule`` says whether cells
-    of a host the stage never saw take it instead of the learner's mean (the host loop
-    decides: ``crossval.cross_validate_hosts``).
+    per element and site kind, and per site kind); ``pairs`` is the fitted pair model
+    (encoder, learner) or None; ``new_host_form`` (one of ``NEW_HOST_FORMS``) says which
+    mean cells of a host the stage never saw take (the host loop decides:
+    ``crossval.cross_validate_hosts``).
     """
 
     def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None, other_hosts_means=None,
-                 hosts=()):
+                 hosts=(), pairs=None):
         self.quantity = quantity
         self.method = method
         self.kind = kind  # "direct" or "correction"
@@ -60,7 +75,19 @@ class _Stage:
         self.tuned_rows = tuned_rows
         self.other_hosts_means = other_hosts_means
         self.hosts = frozenset(hosts)
-        self.new_host_rule = False
+        self.pairs = pairs
+        self.new_host_form = "learner"
+
+
+def new_host_form(stage):
+    """The form a stage predicts hosts it never saw with (``NEW_HOST_FORMS``)."""
+    form = getattr(stage, "new_host_form", None)
+    if form is None:
+        # model folders written before the pair model kept a yes/no for the rule
+        form = "rule" if getattr(stage, "new_host_rule", False) else "learner"
+    if form == "pairs" and getattr(stage, "pairs", None) is None:
+        return "learner"
+    return form
 
 
 def other_hosts_means(cells, target, site_kinds):
@@ -77,19 +104,32 @@ def other_hosts_means(cells, target, site_kinds):
 def stage_joint(surrogate, stage, cells):
     """Mean and covariance of one stage's own output (a level, or a correction) at cells.
 
-    The learner's, except that where the host loop kept the other-hosts rule
-    (``stage.new_host_rule``) cells of hosts the stage never saw take the rule's mean;
-    the learner's covariance stays. Every consumer (the chain of levels, the picker's
-    joint) reads a stage through here.
+    The learner's, except that where the host loop kept another form
+    (:func:`new_host_form`) cells of hosts the stage never saw take the other-hosts
+    rule's mean, or the pair model's (which also takes the columns of hosts just
+    started); the learner's covariance stays (the host
+    loop calibrates it for the form kept). Every consumer (the chain of levels, the
+    picker's joint) reads a stage through here.
     """
     n_cells = len(cells)
     mean, cov = stage.learner.predict(stage.encoder.transform(cells), return_cov=True)
     mean = np.array(mean, dtype=float)
     cov = np.array(cov, dtype=float).reshape(n_cells, n_cells)
-    if getattr(stage, "new_host_rule", False):
-        unseen = ~cells["host"].isin(stage.hosts).to_numpy()
+    form = new_host_form(stage)
+    if form == "learner":
+        return mean, cov
+    unseen = ~cells["host"].isin(stage.hosts).to_numpy()
+    if form == "rule" and unseen.any():
+        mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
+    elif form == "pairs":
+        # the pair model also places the columns without an indicator of their own
+        # (fewer than features.MIN_CELLS_FOR_OWN_INDICATOR cells: a host just started),
+        # since it learns from their few cells; the rule would ignore them
+        own = set(stage.encoder.indicator_keys_)
+        unseen |= np.array([key not in own for key in zip(cells["host"], cells["site"])], dtype=bool)
         if unseen.any():
-            mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
+            encoder, learner = stage.pairs
+            mean[unseen] = learner.predict(encoder.transform(cells[unseen].reset_index(drop=True)))
     return mean, cov
 
 
@@ -210,9 +250,11 @@ def _template_layout(template, cells):
     """The input layout a stage keeps from its template: (columns, indicator keys, host
     descriptor names), or (None, None, None) when it cannot be kept.
 
-    Columns the template never saw (a new host's) are appended when none of them
-    needs an indicator of its own (host descriptors place them, as
-    ``features.MIN_CELLS_FOR_OWN_INDICATOR`` says); otherwise the layout changes and
+    Columns the template never saw (a new host's) are appended when the stage spans
+    ``features.MIN_HOSTS_FOR_HOST_DESCRIPTORS`` hosts and none of them needs an indicator
+    of its own (``features.MIN_CELLS_FOR_OWN_INDICATOR``): they sit at the mean indicator
+    of their site kind, placed by the host descriptors if the template has them, and
+    their own cells shift them as cells of one column. Otherwise the layout changes and
     the learner is tuned afresh.
     """
     if template is None:
@@ -225,7 +267,8 @@ def _template_layout(template, cells):
     unseen = [key for key in dict.fromkeys(zip(cells["host"], cells["site"])) if key not in known]
     if unseen:
         counts = cells.groupby(["host", "site"]).size().to_dict()
-        if not host_names or any(counts[key] >= MIN_CELLS_FOR_OWN_INDICATOR for key in unseen):
+        few_hosts = cells["host"].nunique() < MIN_HOSTS_FOR_HOST_DESCRIPTORS
+        if few_hosts or any(counts[key] >= MIN_CELLS_FOR_OWN_INDICATOR for key in unseen):
             return None, None, None
         columns += unseen
     return columns, keys, host_names
@@ -256,11 +299,37 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
             process = _gaussian_process(learner)
             reused = process is not None and process.fixed_kernel is not None
             tuned = _tuned_rows(model_template) if reused else len(cells)
-            stages[(quantity, method)] = _Stage(
+            previous = None if template is None else template.get((quantity, method))
+            stage = _Stage(
                 quantity, method, kind, encoder, learner, tuned,
                 other_hosts_means=other_hosts_means(cells, target, getattr(surrogate, "site_kinds_", None)),
                 hosts=set(cells["host"]),
+                pairs=None if mode == "fold" else fit_pairs(surrogate, cells, target, previous, mode),
             )
             # a refreshed model keeps the host loop's choice of form for unseen hosts
-            stages[(quantity, method)].new_host_rule = getattr(model_template, "new_host_rule", False)
+            if previous is not None:
+                stage.new_host_form = new_host_form(previous)
+            stages[(quantity, method)] = stage
     return stages
+
+
+def fit_pairs(surrogate, cells, target, template=None, mode="fresh"):
+    """The pair model of a stage, as (encoder, learner), or None when the stage has too
+    few hosts to learn what a host does, or too many rows.
+
+    Cross-validation folds of the main loop never predict a host they did not see, so
+    ``fit_stages`` skips it there; a ``grown`` stage keeps its template's kernel.
+    """
+    if cells["host"].nunique() < MIN_HOSTS_FOR_HOST_DESCRIPTORS or not (
+        _MIN_ROWS_FOR_LEARNER <= len(cells) <= _MAX_PAIR_ROWS
+    ):
+        return None
+    encoder = PairEncoder(
+        surrogate.compositions_, surrogate.descriptor_values_, site_kinds=getattr(surrogate, "site_kinds_", None)
+    ).fit(cells)
+    kept = getattr(template, "pairs", None) if mode == "grown" else None
+    learner = HostTransferGP(
+        fixed_kernel=None if kept is None else kept[1].kernel_, random_state=learner_seed(surrogate._seed())
+    )
+    learner.fit(encoder.transform(cells), target)
+    return encoder, learner
