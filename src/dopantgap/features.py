@@ -8,10 +8,9 @@ one level of theory) its input row is
    the host atom(s) the impurity replaces or sits among), standardised;
 3. host descriptors (``hosts.host_descriptor_table``: composition-weighted element
    descriptors and host-file properties), standardised, when the training cells span
-   at least three hosts and some host/site column has fewer than
-   ``MIN_CELLS_FOR_OWN_INDICATOR`` cells: they place such a column through what the
-   other hosts teach (a host with no rows is placed by the pair model,
-   :class:`PairEncoder`, or the rules the host loop weighs against it);
+   at least three hosts: they let what one host teaches carry to a host with no or few
+   rows (the host loop weighs this against the pair model, :class:`PairEncoder`, and
+   the other-hosts rule);
 4. one 0/1 indicator per host/site column the model was trained on. A cell of a column
    never trained on (a new host), or with host descriptors of a column trained on fewer
    than ``MIN_CELLS_FOR_OWN_INDICATOR`` cells, gets the mean indicator of the columns of
@@ -202,13 +201,7 @@ class CellEncoder:
         self.host_names_ = [] if host_names is None else list(host_names)
         training_hosts = list(dict.fromkeys(cells["host"]))
         counts = cells.groupby(["host", "site"]).size().to_dict()
-        # host descriptors are needed only to place columns with too few cells for an
-        # indicator of their own; where every column has one, they only let the
-        # optimiser trade indicators for chance host trends (measured on the real
-        # segregation table: new-element MAE 0.107 eV with them, 0.081 eV without)
-        sparse = min(counts.values(), default=0) < MIN_CELLS_FOR_OWN_INDICATOR
-        if (host_names is None and self.host_values is not None and sparse
-                and len(training_hosts) >= MIN_HOSTS_FOR_HOST_DESCRIPTORS):
+        if host_names is None and self.host_values is not None and len(training_hosts) >= MIN_HOSTS_FOR_HOST_DESCRIPTORS:
             self.host_names_ = _host_columns(self.host_values, training_hosts)
         physical = self._physical(cells)
         self.physical_names_ = list(physical.columns)

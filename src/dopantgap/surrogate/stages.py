@@ -65,7 +65,7 @@ class _Stage:
     """
 
     def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None, other_hosts_means=None,
-                 hosts=(), pairs=None):
+                 hosts=(), pairs=None, elements=()):
         self.quantity = quantity
         self.method = method
         self.kind = kind  # "direct" or "correction"
@@ -75,6 +75,7 @@ class _Stage:
         self.tuned_rows = tuned_rows
         self.other_hosts_means = other_hosts_means
         self.hosts = frozenset(hosts)
+        self.elements = frozenset(elements)
         self.pairs = pairs
         self.new_host_form = "learner"
 
@@ -106,7 +107,7 @@ def stage_joint(surrogate, stage, cells):
 
     The learner's, except that where the host loop kept another form
     (:func:`new_host_form`) cells of hosts the stage never saw take the other-hosts
-    rule's mean, or the pair model's (which also takes the columns of hosts just
+    rule's mean, or the pair model's (which also takes the known elements of hosts just
     started); the learner's covariance stays (the host
     loop calibrates it for the form kept). Every consumer (the chain of levels, the
     picker's joint) reads a stage through here.
@@ -122,11 +123,13 @@ def stage_joint(surrogate, stage, cells):
     if form == "rule" and unseen.any():
         mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
     elif form == "pairs":
-        # the pair model also places the columns without an indicator of their own
-        # (fewer than features.MIN_CELLS_FOR_OWN_INDICATOR cells: a host just started),
-        # since it learns from their few cells; the rule would ignore them
+        # the pair model also places an element the stage has cells of in a column
+        # without an indicator of its own (fewer than features.MIN_CELLS_FOR_OWN_INDICATOR
+        # cells: a host just started), as the host loop's sparse-host fits scored it; an
+        # element never computed stays with the learner, which the main loop scored
         own = set(stage.encoder.indicator_keys_)
-        unseen |= np.array([key not in own for key in zip(cells["host"], cells["site"])], dtype=bool)
+        started = np.array([key not in own for key in zip(cells["host"], cells["site"])], dtype=bool)
+        unseen |= started & cells["element"].isin(getattr(stage, "elements", ())).to_numpy()
         if unseen.any():
             encoder, learner = stage.pairs
             mean[unseen] = learner.predict(encoder.transform(cells[unseen].reset_index(drop=True)))
@@ -304,6 +307,7 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
                 quantity, method, kind, encoder, learner, tuned,
                 other_hosts_means=other_hosts_means(cells, target, getattr(surrogate, "site_kinds_", None)),
                 hosts=set(cells["host"]),
+                elements=set(cells["element"]),
                 pairs=None if mode == "fold" else fit_pairs(surrogate, cells, target, previous, mode),
             )
             # a refreshed model keeps the host loop's choice of form for unseen hosts
