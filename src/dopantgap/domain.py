@@ -608,4 +608,6 @@ class HostDomain(BaseEstimator):
 
     def outside(self, host_values):
         """Whether each host row lies farther from every training host than the threshold."""
-        return self.distance(host_values) > self.threshold_
+        # a host exactly as far as the farthest training host lies from its neighbour is
+        # at the limit, not beyond it; rounding in the host file's numbers must not flip it
+        return self.distance(host_values) > self.threshold_ * (1.0 + 1e-6)

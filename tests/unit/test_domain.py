@@ -6,12 +6,13 @@ dopantgap.elements.descriptor_table so that the hand calculations use the same n
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.base import clone
 from sklearn.exceptions import NotFittedError
 from sklearn.neighbors import NearestNeighbors
 
-from dopantgap.domain import ElementDomain
+from dopantgap.domain import ElementDomain, HostDomain
 from dopantgap.elements import descriptor_table
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS
@@ -344,3 +345,13 @@ def test_level_domain_uses_the_host_set_only_when_it_has_enough_elements():
     missing = pd.DataFrame({"element": ["Fe"], "host": ["ZnS"], "site": ["sub_Zn"], "method": ["hse"],
                             "quantity": ["E_sol"]})
     assert np.isinf(domain.distance(missing)[0]) and domain.outside(missing)[0]
+
+
+def test_a_host_exactly_at_the_host_domain_limit_is_inside():
+    # three hosts one unit apart: each lies 1 from its nearest neighbour, so the limit is
+    # 1; a new host 1 beyond the last is at the limit (inside), even with rounding noise
+    # in its numbers, and a host clearly farther is outside
+    known = pd.DataFrame({"host_x": [0.0, 1.0, 2.0]}, index=pd.Index(["A", "B", "C"], name="host"))
+    domain = HostDomain().fit(known)
+    new = pd.DataFrame({"host_x": [3.0, 3.0 + 1e-9, 3.1]}, index=pd.Index(["D", "E", "F"], name="host"))
+    assert domain.outside(new).tolist() == [False, False, True]
