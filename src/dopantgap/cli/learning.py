@@ -151,6 +151,12 @@ def _command_fit(arguments, say):
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
     say(f"Learner kept: {surrogate.learner_} (lowest cross-validated error, whole elements held out)")
+    if surrogate.new_host_ready():
+        from dopantgap.surrogate.stages import NEW_HOST_FORM_WORDS, new_host_form
+
+        forms = sorted({new_host_form(stage) for stage in surrogate.stages_.values()})
+        say(f"Hosts with no rows: predicted by {' and '.join(NEW_HOST_FORM_WORDS[form] for form in forms)}, "
+            "the closest of three ways on hosts left out in turn")
     pooled = metrics[metrics["quantity"] == "all"]
     say(validation_text(metrics).rstrip("\n"))
     for scenario in sorted(surrogate.calibration_.borrowed_):

@@ -47,6 +47,12 @@ _REOPTIMISE_GROWTH = 1.25
 #: learner, the other-hosts rule, or the pair model (``learners.HostTransferGP`` on
 #: ``features.PairEncoder`` rows).
 NEW_HOST_FORMS = ("learner", "rule", "pairs")
+#: How ``fit`` names each form to the user.
+NEW_HOST_FORM_WORDS = {
+    "learner": "the learners",
+    "rule": "the other-hosts rule (the impurity's mean over the other hosts)",
+    "pairs": "the pair model (the impurity against the host atoms at its site)",
+}
 # Largest stage the pair model is fitted on (its Gaussian process costs the cube of the
 # rows; common practice, no source).
 _MAX_PAIR_ROWS = 4000
