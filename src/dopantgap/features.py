@@ -271,8 +271,9 @@ class PairEncoder:
     so an isotropic kernel over them weighs the host as much as the impurity. With the
     few host inputs of a :class:`CellEncoder` instead, hosts left out of the real
     diffusion table (Wu, Mayeshiba & Morgan, Sci. Data 3, 160054, 2016) were predicted
-    with RMSE 0.46 eV, worse than the impurity's mean over the other hosts (0.39 eV);
-    with these inputs, 0.32 eV (measured once, same isotropic Matern kernel).
+    with RMSE 0.46 eV by the same isotropic kernel (measured once), worse than the
+    impurity's mean over the other hosts (0.39 eV); the pair model predicts them with
+    0.30 eV (``benchmarks/bench_new_host.py --ks 0``).
 
     Parameters
     ----------
