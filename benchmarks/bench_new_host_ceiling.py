@@ -51,7 +51,6 @@ import os
 import sys
 import time
 import warnings
-from pathlib import Path
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")  # 2 shared cores: one BLAS thread
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -67,15 +66,9 @@ from sklearn.model_selection import GridSearchCV, GroupKFold  # noqa: E402
 from sklearn.pipeline import make_pipeline  # noqa: E402
 from sklearn.preprocessing import StandardScaler  # noqa: E402
 
-from bench_new_host import additive, other_hosts_mean  # noqa: E402
+from bench_new_host import REAL, TABLES, TARGET_RMSE, additive, other_hosts_mean  # noqa: E402
 from dopantgap.elements import descriptor_table  # noqa: E402
 
-REAL = Path(__file__).resolve().parents[2] / "shared" / "real"
-TABLES = {
-    "diffusion": ("diffusion_Qrel.csv", "Wu, Mayeshiba & Morgan, Sci. Data 3, 160054 (2016)"),
-    "segregation": ("segregation_ruban1999.csv", "Ruban, Skriver & Norskov, PRB 59, 15990 (1999)"),
-}
-TARGET_RMSE = {0: 0.16, 5: 0.20}
 KS = (0, 5)
 KRR_GRID = {"kernelridge__alpha": [0.003, 0.01, 0.03, 0.1, 0.3], "kernelridge__gamma": [0.003, 0.01, 0.03, 0.1]}
 # selection kernel: exp(-gamma_mean * mean absolute standardised difference); grid for tuning after it
