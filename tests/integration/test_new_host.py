@@ -182,3 +182,34 @@ def test_a_refreshed_model_keeps_the_host_loops_choice(family, form):
     finally:
         for key, stage in model.stages_.items():
             stage.new_host_form = kept[key]
+
+
+def test_the_pair_form_places_a_new_host_by_the_pair_model(family, host_file):
+    # the form is read in one place (stages.stage_joint): with "pairs" kept, a new host's
+    # cells at a direct stage take the pair model's mean, and known hosts keep the learner's
+    _world, table, model = family
+    kept = {key: stage.new_host_form for key, stage in model.stages_.items()}
+    for stage in model.stages_.values():
+        stage.new_host_form = "pairs"
+    try:
+        plan = plan_new_hosts(model, [NEW], host_file)
+        filled = fill_table(plan.surrogate, new_hosts=plan)
+        lowest = {quantity: levels[0] for quantity, levels in model.quantity_levels_.items()}
+        checked = 0
+        for (quantity, method), stage in plan.surrogate.stages_.items():
+            if method != lowest[quantity]:
+                continue
+            here = filled[(filled["quantity"] == quantity) & (filled["method"] == method)
+                          & (filled["status"] == "predicted")]
+            new = here[here["host"] == NEW].reset_index(drop=True)
+            encoder, learner = stage.pairs
+            np.testing.assert_allclose(new["value"], learner.predict(encoder.transform(new)), atol=1e-9)
+            old = here[here["host"] != NEW].reset_index(drop=True)
+            if len(old):
+                by_learner = stage.learner.predict(stage.encoder.transform(old))
+                np.testing.assert_allclose(old["value"], by_learner, atol=1e-9)
+            checked += len(new)
+        assert checked > 0
+    finally:
+        for key, stage in model.stages_.items():
+            stage.new_host_form = kept[key]
