@@ -13,6 +13,9 @@ the 90 % intervals, and two rules a researcher could apply by hand:
 
 A host with no rows at all (k = 0) is filled as ``dopantgap fill --hosts-new`` fills it
 (``new_hosts.plan_new_hosts``: every site of the table, which names no host atom here).
+With ``--structure`` each host's crystal structure (the tables' ``host_structure``
+column) is given in a host file, as ``dopantgap fit --hosts`` would read it, so the
+host loop can weigh the pair model that reads it.
 
 Sources (cite them beside any figure quoted from this script):
 
@@ -31,6 +34,7 @@ busy cores, one full fit per host) or ``--ks 0,1,5,10 --tables diffusion,segrega
 import argparse
 import os
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -38,6 +42,7 @@ import numpy as np
 import pandas as pd
 
 from dopantgap.fill import fill_table
+from dopantgap.hosts import read_host_file, read_host_properties
 from dopantgap.new_hosts import plan_new_hosts
 from dopantgap.surrogate import Surrogate
 from dopantgap.surrogate.stages import new_host_form
@@ -69,7 +74,17 @@ def additive(training, cells, sweeps=30):
     return (effect + cells["host"].map(host_shift).fillna(0.0)).to_numpy()
 
 
-def run_host(table, host, k, seed):
+def structure_host_file(table, folder):
+    """A host file (host,formula,structure) from the table's ``host_structure`` column,
+    as a user would write one for ``dopantgap fit --hosts``."""
+    rows = table.groupby("host")["host_structure"].first()
+    path = Path(folder) / "hosts.csv"
+    lines = ["host,formula,structure"] + [f"{host},{host},{structure}" for host, structure in rows.items()]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def run_host(table, host, k, seed, host_file=None):
     rows = table[table["host"] == host]
     rng = np.random.default_rng(seed)
     keep = rng.choice(len(rows), size=min(k, len(rows) - 1), replace=False) if k else np.array([], dtype=int)
@@ -81,10 +96,13 @@ def run_host(table, host, k, seed):
     found = {"other-hosts mean": other_hosts_mean(training, cells), "additive": additive(training, cells)}
     scored = {name: (mean - truth, None) for name, mean in found.items()}
     start = time.perf_counter()
-    model = Surrogate(random_state=seed).fit(training)
+    given_hosts = {}
+    if host_file is not None:
+        given_hosts = {"host_compositions": read_host_file(host_file), "host_properties": read_host_properties(host_file)}
+    model = Surrogate(random_state=seed, **given_hosts).fit(training)
     seconds = time.perf_counter() - start
     # a solute computed only in this host is a new element once its rows are hidden
-    plan = None if k else plan_new_hosts(model, [host])
+    plan = None if k else plan_new_hosts(model, [host], host_file)
     filled = fill_table(model, element_symbols=sorted(set(cells["element"])), new_hosts=plan)
     merged = cells.merge(filled, on=list(KEY_COLUMNS), how="left")
     inside = (truth >= merged["lo"].to_numpy()) & (truth <= merged["hi"].to_numpy())
@@ -103,6 +121,8 @@ def main():
     parser.add_argument("--ks", default="5", help="rows of the host given, comma-separated (default: 5)")
     parser.add_argument("--tables", default="diffusion", help="tables, comma-separated (default: diffusion)")
     parser.add_argument("--hosts", default=None, help="only these hosts (default: all)")
+    parser.add_argument("--structure", action="store_true",
+                        help="give each host's crystal structure in a host file (as fit --hosts reads it)")
     arguments = parser.parse_args()
     if not REAL.is_dir():
         print(f"skipped: {REAL} is absent (the real tables are read from there at run time)")
@@ -111,11 +131,13 @@ def main():
     for name in arguments.tables.split(","):
         file, source = TABLES[name]
         table = read_table(REAL / file)
+        folder = tempfile.mkdtemp(prefix="dopantgap-bench-")
+        host_file = structure_host_file(table, folder) if arguments.structure else None
         hosts = sorted(table["host"].unique()) if arguments.hosts is None else arguments.hosts.split(",")
         for k in (int(text) for text in arguments.ks.split(",")):
             errors, inside, seconds = {}, [], []
             for position, host in enumerate(hosts):
-                scored, spent, form, unfilled = run_host(table, host, k, seed=position)
+                scored, spent, form, unfilled = run_host(table, host, k, seed=position, host_file=host_file)
                 seconds.append(spent)
                 for method, (error, covered) in scored.items():
                     errors.setdefault(method, []).append(error)
@@ -127,7 +149,8 @@ def main():
                 note = f", {unfilled} on a site no other host has: not filled, not scored" if unfilled else ""
                 print(f"  {name} k={k} {host:<3} ({len(error)} rows scored{note}): RMSE {line}; form kept: {form}",
                       flush=True)
-            print(f"{name} ({source}), {len(hosts)} hosts, {k} rows of each given in turn:")
+            given = ", structure given in a host file" if host_file else ""
+            print(f"{name} ({source}), {len(hosts)} hosts, {k} rows of each given in turn{given}:")
             for method, parts in errors.items():
                 error = np.concatenate(parts)
                 text = f"  {method:<17} RMSE {np.sqrt(np.mean(error ** 2)):.3f} eV  MAE {np.mean(np.abs(error)):.3f} eV"

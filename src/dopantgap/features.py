@@ -266,8 +266,10 @@ class PairEncoder:
     Each cell's row is every elemental descriptor (``elements.DESCRIPTOR_NAMES``) of the
     impurity, the same descriptors of the host atoms it is compared with at its site
     (``elements.reference_atoms``: the atom a site names, else the host's atoms weighted
-    by atom fraction), both standardised over the training cells, and a 0/1 indicator
-    per site kind (:func:`site_kind`). Impurity and host atoms get as many inputs each,
+    by atom fraction), both standardised over the training cells, then the host file's
+    properties when ``host_properties`` is given (numbers and category one-hots,
+    standardised; only those known for every training host and not constant over
+    them), and a 0/1 indicator per site kind (:func:`site_kind`). Impurity and host atoms get as many inputs each,
     so an isotropic kernel over them weighs the host as much as the impurity. With the
     few host inputs of a :class:`CellEncoder` instead, hosts left out of the real
     diffusion table (Wu, Mayeshiba & Morgan, Sci. Data 3, 160054, 2016) were predicted
@@ -284,24 +286,34 @@ class PairEncoder:
         mendeleev's.
     site_kinds : dict or None, default=None
         (host, site) -> site kind.
+    host_properties : DataFrame or None, default=None
+        Host-file properties, one row per host label (the property columns of
+        ``hosts.host_descriptor_table``: ``hosts.host_property_columns``); None: none.
 
     Attributes
     ----------
     feature_names_ : list of str
         ``impurity_<descriptor>``, ``host_atoms_<descriptor>`` (descriptors constant over
-        the training cells left out) and ``kind[<site kind>]``.
+        the training cells left out), the host properties kept (``property_names_``) and
+        ``kind[<site kind>]``.
+    property_names_ : list of str
+        The host-property columns used (empty without ``host_properties``).
     """
 
-    def __init__(self, compositions, descriptor_values=None, site_kinds=None):
+    def __init__(self, compositions, descriptor_values=None, site_kinds=None, host_properties=None):
         self.compositions = compositions
         self.descriptor_values = descriptor_values
         self.site_kinds = site_kinds
+        self.host_properties = host_properties
 
-    def with_hosts(self, compositions, site_kinds):
-        """A copy of this fitted encoder that also knows the hosts of ``compositions``."""
+    def with_hosts(self, compositions, site_kinds, host_properties=None):
+        """A copy of this fitted encoder that also knows the hosts of ``compositions``
+        (and their host-file properties, when the encoder uses some)."""
         fresh = copy.copy(self)
         fresh.compositions = compositions
         fresh.site_kinds = site_kinds
+        if host_properties is not None:
+            fresh.host_properties = host_properties
         return fresh
 
     def _descriptors(self, cells):
@@ -322,10 +334,27 @@ class PairEncoder:
             for key, found in weights.items()
         }
         host_atoms = np.array([reference[key] for key in zip(cells["host"], cells["site"])])
-        return np.hstack([impurity, host_atoms.reshape(len(cells), len(names))])
+        found = [impurity, host_atoms.reshape(len(cells), len(names))]
+        properties = getattr(self, "property_names_", [])
+        if properties:
+            unknown = sorted(set(cells["host"]) - set(self.host_properties.index))
+            rows = self.host_properties.reindex(list(cells["host"]))[properties]
+            lacking = sorted(set(unknown) | set(rows.index[rows.isna().any(axis=1)]))
+            if lacking:
+                raise DopantgapError(
+                    f"host(s) {', '.join(lacking)} lack {', '.join(properties)} in the host file, "
+                    "which the model was fitted with; give them there"
+                )
+            found.append(rows.to_numpy(dtype=float))
+        return np.hstack(found)
 
     def fit(self, cells):
         """Learn the scaling and the site kinds from training cells (a DataFrame)."""
+        self.property_names_ = []
+        if self.host_properties is not None and len(self.host_properties.columns):
+            training_hosts = [host for host in dict.fromkeys(cells["host"]) if host in self.host_properties.index]
+            if len(training_hosts) == cells["host"].nunique():
+                self.property_names_ = _host_columns(self.host_properties, training_hosts)
         values = self._descriptors(cells)
         spread = values.std(axis=0)
         self.kept_ = np.flatnonzero(spread > 1e-12)
@@ -334,6 +363,7 @@ class PairEncoder:
         self.kinds_ = sorted({site_kind(host, site, self.site_kinds) for host, site in zip(cells["host"], cells["site"])})
         names = [f"impurity_{name}" for name in elements.DESCRIPTOR_NAMES]
         names += [f"host_atoms_{name}" for name in elements.DESCRIPTOR_NAMES]
+        names += list(self.property_names_)
         self.feature_names_ = [names[position] for position in self.kept_] + [f"kind[{kind}]" for kind in self.kinds_]
         return self
 

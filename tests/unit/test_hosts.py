@@ -20,6 +20,7 @@ from dopantgap.hosts import (
     host_compositions,
     host_descriptor_table,
     host_descriptors,
+    host_property_columns,
     parse_formula,
     read_host_file,
     read_host_properties,
@@ -222,3 +223,35 @@ def test_pair_encoder_compares_the_impurity_with_the_host_atoms_at_its_site():
     # a host without a formula is refused in one line
     with pytest.raises(DopantgapError, match="no formula"):
         encoder.transform(cells.assign(host="SrO"))
+
+
+def test_pair_encoder_reads_the_host_files_properties_standardised(tmp_path):
+    # Rock-salt lattice constants, values from memory (MgO 4.21, CaO 4.81, SrO 5.16
+    # angstrom): only the standardising arithmetic is checked, against numpy by hand.
+    from dopantgap.features import PairEncoder
+
+    path = tmp_path / "hosts.csv"
+    path.write_text(
+        "host,formula,lattice_constant [angstrom],anion,band\n"
+        "MgO,MgO,4.21,oxide,wide\nCaO,CaO,4.81,oxide,wide\nSrO,SrO,5.16,oxide,wide\n"
+        "BaO,BaO,,oxide,wide\n"
+    )
+    compositions = host_compositions(["MgO", "CaO", "SrO", "BaO"])
+    values = host_descriptor_table(compositions, read_host_properties(path))
+    properties = values[host_property_columns(values)]
+    assert host_property_columns(values) == ["host_lattice_constant", "host_anion=oxide", "host_band=wide"]
+    cells = pd.DataFrame({"element": ["Li", "Na", "K", "Li"], "host": ["MgO", "CaO", "CaO", "SrO"],
+                          "site": ["int_oct"] * 4})
+    encoder = PairEncoder(compositions, host_properties=properties).fit(cells)
+    # the one-hots are constant over these hosts: they carry nothing and are left out
+    assert encoder.property_names_ == ["host_lattice_constant"]
+    column = encoder.feature_names_.index("host_lattice_constant")
+    given = np.array([4.21, 4.81, 4.81, 5.16])
+    np.testing.assert_allclose(encoder.transform(cells)[:, column], (given - given.mean()) / given.std())
+    # a host the file gives no lattice constant for is refused in one line, naming it
+    with pytest.raises(DopantgapError, match="BaO lack host_lattice_constant"):
+        encoder.transform(cells.assign(host="BaO"))
+    # a property some training host lacks is not used at all
+    encoder = PairEncoder(compositions, host_properties=properties).fit(cells.assign(host=["MgO", "BaO", "CaO", "SrO"]))
+    assert encoder.property_names_ == []
+    assert not any(name.startswith("host_lattice") for name in encoder.feature_names_)

@@ -156,7 +156,7 @@ def _command_fit(arguments, say):
 
         forms = sorted({new_host_form(stage) for stage in surrogate.stages_.values()})
         say(f"Hosts with no rows: predicted by {' and '.join(NEW_HOST_FORM_WORDS[form] for form in forms)}, "
-            "the closest of three ways on hosts left out in turn")
+            "of the ways tried, the closest on hosts left out in turn")
     pooled = metrics[metrics["quantity"] == "all"]
     say(validation_text(metrics).rstrip("\n"))
     for scenario in sorted(surrogate.calibration_.borrowed_):

@@ -17,7 +17,12 @@ the two packages import each other's modules without a cycle.
 from dopantgap.hosts.formulas import host_compositions, parse_formula, read_host_file
 from dopantgap.hosts.properties import HOST_FILE_RESERVED_COLUMNS, HostProperties, read_host_properties
 from dopantgap.hosts.site_properties import SiteProperties, read_site_properties
-from dopantgap.hosts.descriptors import HOST_ELEMENT_DESCRIPTORS, host_descriptor_table, host_descriptors
+from dopantgap.hosts.descriptors import (
+    HOST_ELEMENT_DESCRIPTORS,
+    host_descriptor_table,
+    host_descriptors,
+    host_property_columns,
+)
 
 __all__ = [
     "HOST_ELEMENT_DESCRIPTORS",
@@ -27,6 +32,7 @@ __all__ = [
     "host_compositions",
     "host_descriptor_table",
     "host_descriptors",
+    "host_property_columns",
     "parse_formula",
     "read_host_file",
     "read_host_properties",

@@ -14,7 +14,7 @@ import pandas as pd
 from dopantgap.elements.descriptors import DESCRIPTORS, Descriptor, descriptor_table
 from dopantgap.errors import DopantgapError
 
-__all__ = ["HOST_ELEMENT_DESCRIPTORS", "host_descriptor_table", "host_descriptors"]
+__all__ = ["HOST_ELEMENT_DESCRIPTORS", "host_descriptor_table", "host_descriptors", "host_property_columns"]
 
 HOST_ELEMENT_DESCRIPTORS = (
     "electronegativity_pauling",
@@ -167,3 +167,17 @@ def host_descriptor_table(compositions, properties=None, descriptor_values=None,
                     if isinstance(cell, str):
                         table.loc[host, column] = float(cell == value)
     return table
+
+
+def host_property_columns(table, names=HOST_ELEMENT_DESCRIPTORS):
+    """The columns of a :func:`host_descriptor_table` that come from the host file
+    (numeric properties and category one-hots), in order: every column but the ones
+    summarising the elements of ``names``.
+
+    Examples
+    --------
+    >>> host_property_columns(host_descriptor_table({"MgO": {"Mg": 1.0, "O": 1.0}}))
+    []
+    """
+    elemental = {record.name for record in host_descriptors(None, names)}
+    return [column for column in table.columns if column not in elemental]

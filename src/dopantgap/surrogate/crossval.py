@@ -13,6 +13,7 @@ import pandas as pd
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
 from dopantgap.domain import LevelDomain
 from dopantgap.errors import DopantgapError
+from dopantgap.hosts import host_property_columns
 from dopantgap.surrogate.chain import difficulty_features
 from dopantgap.surrogate.stages import _CELL, NEW_HOST_FORMS, new_encoder
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
@@ -74,7 +75,8 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     in every form of ``stages.NEW_HOST_FORMS``: by the learners; with every stage's mean
     replaced, for hosts the stage never saw, by the other-hosts rule
     (``stages.other_hosts_rule``: the impurity's mean over the other hosts' sites of the
-    same kind); or by the pair model (``stages.fit_pairs``); covariances kept. The form
+    same kind); or by the pair model (``stages.fit_pairs``), with the host file's
+    properties too when it gives some; covariances kept. The form
     with the lowest out-of-fold mean absolute error is kept (the earlier on a tie), so a
     new host is never predicted worse than the rule on the table's own evidence.
 
@@ -85,7 +87,10 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     form : str
         The form kept ("learner" below three hosts).
     """
-    forms = {form: [] for form in NEW_HOST_FORMS}
+    # the properties' form competes only when the host file gives some
+    values = getattr(surrogate, "host_values_", None)
+    with_properties = values is not None and bool(host_property_columns(values))
+    forms = {form: [] for form in NEW_HOST_FORMS if with_properties or form != "pairs_properties"}
     levels = surrogate.quantity_levels_
     lowest = np.array([levels[q].index(m) == 0 for q, m in zip(core["quantity"], core["method"])], dtype=bool)
     for position, group in enumerate(host_groups(core, surrogate._seed())):
@@ -133,7 +138,7 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
         residuals["error"] = residuals["value"] - residuals["mean"]
         residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
         found[form] = residuals
-    form = min(NEW_HOST_FORMS, key=lambda name: float(np.mean(np.abs(found[name]["error"]))))
+    form = min(found, key=lambda name: float(np.mean(np.abs(found[name]["error"]))))
     return found[form], form
 
 

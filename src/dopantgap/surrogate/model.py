@@ -19,7 +19,7 @@ from dopantgap import elements
 from dopantgap.domain import ElementDomain, HostDomain, LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS
-from dopantgap.hosts import host_descriptor_table
+from dopantgap.hosts import host_descriptor_table, host_property_columns
 from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.surrogate import chain, crossval
 from dopantgap.surrogate.crossval import _calibration, _selection_residuals
@@ -429,6 +429,12 @@ class Surrogate(BaseEstimator):
             if getattr(stage, "pairs", None) is not None:
                 encoder, learner = stage.pairs
                 stage.pairs = (encoder.with_hosts(fresh.compositions_, fresh.site_kinds_), learner)
+            if getattr(stage, "pairs_properties", None) is not None:
+                encoder, learner = stage.pairs_properties
+                properties = fresh.host_values_[host_property_columns(fresh.host_values_)]
+                stage.pairs_properties = (
+                    encoder.with_hosts(fresh.compositions_, fresh.site_kinds_, properties), learner
+                )
             fresh.stages_[key] = stage
         return fresh
 

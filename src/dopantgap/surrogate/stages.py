@@ -16,6 +16,7 @@ from dopantgap.features import (
     PairEncoder,
     site_kind,
 )
+from dopantgap.hosts import host_property_columns
 from dopantgap.learners import BoostLearner, ColumnMeanLearner, GPLearner, HostTransferGP, ShiftPriorLearner
 from dopantgap.reproducible import learner_seed
 
@@ -44,14 +45,19 @@ _FOLD_OPTIMISER_ITERATIONS = 30
 _REOPTIMISE_GROWTH = 1.25
 #: The forms a stage can predict a host it never saw with; the host loop keeps the one
 #: with the lowest out-of-fold error (``crossval.cross_validate_hosts``): the stage's
-#: learner, the other-hosts rule, or the pair model (``learners.HostTransferGP`` on
-#: ``features.PairEncoder`` rows).
-NEW_HOST_FORMS = ("learner", "rule", "pairs")
+#: learner, the other-hosts rule, the pair model (``learners.HostTransferGP`` on
+#: ``features.PairEncoder`` rows), or the pair model that also reads the host file's
+#: properties (only when the host file gives some for every host).
+NEW_HOST_FORMS = ("learner", "rule", "pairs", "pairs_properties")
 #: How ``fit`` names each form to the user.
 NEW_HOST_FORM_WORDS = {
     "learner": "the learners",
     "rule": "the other-hosts rule (the impurity's mean over the other hosts)",
     "pairs": "the pair model (the impurity against the host atoms at its site)",
+    "pairs_properties": (
+        "the pair model with the host file's properties (the impurity against the host "
+        "atoms at its site and the host's own properties)"
+    ),
 }
 # Largest stage the pair model is fitted on (its Gaussian process costs the cube of the
 # rows; common practice, no source).
@@ -71,7 +77,7 @@ class _Stage:
     """
 
     def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None, other_hosts_means=None,
-                 hosts=(), pairs=None, elements=()):
+                 hosts=(), pairs=None, elements=(), pairs_properties=None):
         self.quantity = quantity
         self.method = method
         self.kind = kind  # "direct" or "correction"
@@ -83,6 +89,7 @@ class _Stage:
         self.hosts = frozenset(hosts)
         self.elements = frozenset(elements)
         self.pairs = pairs
+        self.pairs_properties = pairs_properties
         self.new_host_form = "learner"
 
 
@@ -92,6 +99,8 @@ def new_host_form(stage):
     if form is None:
         # model folders written before the pair model kept a yes/no for the rule
         form = "rule" if getattr(stage, "new_host_rule", False) else "learner"
+    if form == "pairs_properties" and getattr(stage, "pairs_properties", None) is None:
+        form = "pairs"
     if form == "pairs" and getattr(stage, "pairs", None) is None:
         return "learner"
     return form
@@ -126,9 +135,10 @@ def stage_joint(surrogate, stage, cells):
     if form == "learner":
         return mean, cov
     unseen = ~cells["host"].isin(stage.hosts).to_numpy()
-    if form == "rule" and unseen.any():
-        mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
-    elif form == "pairs":
+    if form == "rule":
+        if unseen.any():
+            mean[unseen] = other_hosts_rule(stage, cells[unseen], getattr(surrogate, "site_kinds_", None))
+    else:
         # the pair model also places an element the stage has cells of in a column
         # without an indicator of its own (fewer than features.MIN_CELLS_FOR_OWN_INDICATOR
         # cells: a host just started), as the host loop's sparse-host fits scored it; an
@@ -137,7 +147,7 @@ def stage_joint(surrogate, stage, cells):
         started = np.array([key not in own for key in zip(cells["host"], cells["site"])], dtype=bool)
         unseen |= started & cells["element"].isin(getattr(stage, "elements", ())).to_numpy()
         if unseen.any():
-            encoder, learner = stage.pairs
+            encoder, learner = stage.pairs_properties if form == "pairs_properties" else stage.pairs
             mean[unseen] = learner.predict(encoder.transform(cells[unseen].reset_index(drop=True)))
     return mean, cov
 
@@ -315,6 +325,9 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
                 hosts=set(cells["host"]),
                 elements=set(cells["element"]),
                 pairs=None if mode == "fold" else fit_pairs(surrogate, cells, target, previous, mode),
+                pairs_properties=None if mode == "fold" else fit_pairs(
+                    surrogate, cells, target, previous, mode, properties=True
+                ),
             )
             # a refreshed model keeps the host loop's choice of form for unseen hosts
             if previous is not None:
@@ -323,9 +336,11 @@ def fit_stages(surrogate, core, name, template, mode="fresh", shift_only=frozens
     return stages
 
 
-def fit_pairs(surrogate, cells, target, template=None, mode="fresh"):
+def fit_pairs(surrogate, cells, target, template=None, mode="fresh", properties=False):
     """The pair model of a stage, as (encoder, learner), or None when the stage has too
-    few hosts to learn what a host does, or too many rows.
+    few hosts to learn what a host does, or too many rows; with ``properties``, the one
+    that also reads the host file's properties, or None when the host file gives none
+    usable (known for every training host, not constant).
 
     Cross-validation folds of the main loop never predict a host they did not see, so
     ``fit_stages`` skips it there; a ``grown`` stage keeps its template's kernel.
@@ -334,10 +349,19 @@ def fit_pairs(surrogate, cells, target, template=None, mode="fresh"):
         _MIN_ROWS_FOR_LEARNER <= len(cells) <= _MAX_PAIR_ROWS
     ):
         return None
+    host_properties = None
+    if properties:
+        values = getattr(surrogate, "host_values_", None)
+        if values is None or not host_property_columns(values):
+            return None
+        host_properties = values[host_property_columns(values)]
     encoder = PairEncoder(
-        surrogate.compositions_, surrogate.descriptor_values_, site_kinds=getattr(surrogate, "site_kinds_", None)
+        surrogate.compositions_, surrogate.descriptor_values_, site_kinds=getattr(surrogate, "site_kinds_", None),
+        host_properties=host_properties,
     ).fit(cells)
-    kept = getattr(template, "pairs", None) if mode == "grown" else None
+    if properties and not encoder.property_names_:
+        return None
+    kept = getattr(template, "pairs_properties" if properties else "pairs", None) if mode == "grown" else None
     learner = HostTransferGP(
         fixed_kernel=None if kept is None else kept[1].kernel_, random_state=learner_seed(surrogate._seed())
     )
