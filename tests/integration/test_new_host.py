@@ -213,3 +213,70 @@ def test_the_pair_form_places_a_new_host_by_the_pair_model(family, host_file):
     finally:
         for key, stage in model.stages_.items():
             stage.new_host_form = kept[key]
+
+
+# Rock-salt lattice constants in angstrom, values from memory; they only need to differ
+# between hosts for the pair model to read them.
+LATTICE = {"MgO": 4.21, "CaO": 4.81, "SrO": 5.16, "MgS": 5.20, "CaS": 5.69, "SrS": 6.02}
+
+
+def test_the_pair_form_with_host_properties_reads_the_host_file(family, tmp_path):
+    # a model whose host file gives a property has a second pair model that reads it
+    # (the host loop's fourth form); with that form kept, a new host's cells take its
+    # mean, and a refreshed model keeps the form
+    from dopantgap.hosts import read_host_properties
+
+    _world, table, model = family
+    lines = family_host_file_text(HOSTS).splitlines()
+    path = tmp_path / "hosts_with_lattice.csv"
+    path.write_text("\n".join(
+        [lines[0] + ",lattice_constant [angstrom]"] + [f"{line},{LATTICE[line.split(',')[0]]}" for line in lines[1:]]
+    ) + "\n")
+    described = model.refreshed(table)
+    described.host_properties = read_host_properties(path)
+    described = described.refreshed(table)
+    lowest = {quantity: levels[0] for quantity, levels in model.quantity_levels_.items()}
+    for stage in described.stages_.values():
+        encoder, _learner = stage.pairs_properties
+        assert encoder.property_names_ == ["host_lattice_constant"]
+        stage.new_host_form = "pairs_properties"
+    assert {new_host_form(stage) for stage in described.refreshed(table).stages_.values()} == {"pairs_properties"}
+    plan = plan_new_hosts(described, [NEW], path)
+    filled = fill_table(plan.surrogate, new_hosts=plan)
+    checked = 0
+    for (quantity, method), stage in plan.surrogate.stages_.items():
+        if method != lowest[quantity]:
+            continue
+        new = filled[(filled["quantity"] == quantity) & (filled["method"] == method)
+                     & (filled["host"] == NEW) & (filled["status"] == "predicted")].reset_index(drop=True)
+        encoder, learner = stage.pairs_properties
+        np.testing.assert_allclose(new["value"], learner.predict(encoder.transform(new)), atol=1e-9)
+        without, _ = stage.pairs
+        assert not np.allclose(new["value"], stage.pairs[1].predict(without.transform(new)))
+        checked += len(new)
+    assert checked > 0
+
+
+def test_fill_says_a_new_hosts_caution_once(family, tmp_path, capsys):
+    # caesium iodide is unlike every oxide and sulfide of the table: it lies outside the
+    # table's hosts. The caution is said once for the host, not once more per impurity
+    # (every one of its cells carries it in the file's caution column)
+    from dopantgap.cli import main
+    from dopantgap.store import save_model
+
+    _world, _table, model = family
+    outside = "CsI"
+    path = tmp_path / "hosts.csv"
+    path.write_text("host,formula,site,site_kind\nCsI,CsI,sub_Cs,sub_cation\nCsI,CsI,sub_I,sub_anion\n"
+                    "CsI,CsI,int_oct,int_oct\n")
+    assert outside in plan_new_hosts(model, [outside], path).outside
+    folder = tmp_path / "model"
+    save_model(model, folder)
+    out = tmp_path / "filled.csv"
+    assert main(["fill", str(folder), "--out", str(out), "--hosts-new", outside, "--hosts", str(path)]) == 0
+    said = capsys.readouterr()
+    lines = (said.out + said.err).splitlines()
+    assert sum(f"host {outside} lies outside the table's hosts" in line for line in lines) == 1
+    filled = pd.read_csv(out, keep_default_na=False)
+    new = filled[filled["host"] == outside]
+    assert new["caution"].str.contains(f"host {outside} lies outside").all()

@@ -123,9 +123,11 @@ def _say_outside_levels(say, outside):
         names = [
             f"{element} ({row.nearest})" if row.nearest else element for element, row in per_element.iterrows()
         ]
+        n_cells = int(per_element["n_cells"].sum())
+        verb = "lies" if len(names) == 1 else "lie"
         say(
-            f"caution: at {method}, {', '.join(names)} lie outside what was computed at that level "
-            f"(in brackets the nearest element computed there; {per_element['n_cells'].sum()} cells, "
+            f"caution: at {method}, {', '.join(names)} {verb} outside what was computed at that level "
+            f"(in brackets the nearest element computed there; {n_cells} cell{'s' * (n_cells != 1)}, "
             f"e.g. {per_element.index[0]}: {per_element['reason'].iat[0]}): those estimates extrapolate "
             f"the step between levels; computing one of them is the way to check."
         )

@@ -250,9 +250,17 @@ def _command_fill(arguments, say):
             f"extrapolations; they do not replace calculation, experiment or local safety rules."
         )
     _say_outside_levels(say, outside_levels(surrogate, filled, skip=unfamiliar))
-    flagged = filled.loc[filled["caution"] != "", ["element", "caution"]].drop_duplicates()
-    for row in flagged.itertuples(index=False):
-        say(f"caution: {row.element}: {row.caution}")
+    # a new host's caution was said once above; the file repeats it on each of its cells
+    said = set() if plan is None else {
+        f"host {host} lies outside the table's hosts ({reason})" for host, reason in plan.outside.items()
+    }
+    flagged = filled.loc[filled["caution"] != "", ["element", "caution"]]
+    for element, caution in dict.fromkeys(
+        (row.element, "; ".join(part for part in row.caution.split("; ") if part not in said))
+        for row in flagged.itertuples(index=False)
+    ):
+        if caution:
+            say(f"caution: {element}: {caution}")
     say(_CAUTION)
 
 
