@@ -93,6 +93,7 @@ from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 __all__ = [
     "GOALS",
     "PICK_COLUMNS",
+    "benefit_text",
     "binary_entropy",
     "condition_on",
     "expected_site_entropy",
@@ -126,6 +127,17 @@ _SITE_SAMPLES = 1024
 # than this share of its largest variance (common practice, no source).
 _SITE_RESCORE_SHARE = 1e-3
 _SETTLED = SETTLED_VARIANCE
+#: Smallest benefit a pick must bring to be listed, per benefit unit (common practice, no
+#: source): for the table goal a variance the model already treats as settled
+#: (``gaussian.SETTLED_VARIANCE``: a cell teaches at least its own variance, so only
+#: settled cells fall below it); for the entropy goals half the last digit their reason
+#: prints, so that no listed pick reads as worth nothing. ``pick_next`` stops short of
+#: ``count`` rather than pad its list.
+USEFUL_BENEFIT = {"eV^2": SETTLED_VARIANCE, "bits": 5e-3}
+# Probability of the likeliest site from which the site goal's reason calls a preference
+# leaning, nearly decided or decided (common practice, no source: words for the reader,
+# the ranking uses the entropies themselves).
+_SITE_WORDS = ((0.99, "decided"), (0.9, "nearly decided"), (0.6, "leaning"), (0.0, "undecided"))
 
 
 # ----------------------------------------------------------------- parsing options
@@ -179,6 +191,12 @@ def parse_cost(text):
     return costs
 
 
+def benefit_text(benefit):
+    """A benefit as printed: three decimals, or two significant digits below 0.0005
+    (a table of small energies has small variances, never shown as 0.000)."""
+    return f"{benefit:.3f}" if abs(benefit) >= 5e-4 else f"{benefit:.1e}"
+
+
 def parse_window(text):
     """The window goal's ``QUANTITY:LOW:HIGH`` (eV), e.g. ``"E_bind:-1.2:-0.4"``.
 
@@ -228,7 +246,7 @@ class _TableGoal:
         block = self.blocks[block_index]
         block.cov = condition_on(block.cov, cell)
 
-    def reason(self, block_index, cell, benefit):
+    def reason(self, block_index, cell, benefit, std):
         block = self.blocks[block_index]
         cov = block.cov
         pivot = cov[cell, cell]
@@ -246,7 +264,12 @@ class _TableGoal:
         else:
             parts = ", ".join(f"{int(n)} {m}" for m, n in counts.items())
             reach = f"informs {int(counts.sum())} other missing cells ({parts})"
-        return f"{reach} (summed variance -{benefit:.3f} eV^2; own std {math.sqrt(pivot):.2f} eV)"
+        own = f"own std {std:.2f} eV"
+        left = math.sqrt(max(pivot, 0.0))
+        if abs(left - std) > 0.005:
+            # the batch's earlier picks already taught part of what this cell holds
+            own += f", {left:.2f} eV given the picks above"
+        return f"{reach} (summed variance -{benefit_text(benefit)} eV^2; {own})"
 
 
 class _WindowGoal:
@@ -265,9 +288,8 @@ class _WindowGoal:
         block = self.blocks[block_index]
         block.cov = condition_on(block.cov, cell)
 
-    def reason(self, block_index, cell, benefit):
+    def reason(self, block_index, cell, benefit, std):
         block = self.blocks[block_index]
-        std = math.sqrt(max(block.cov[cell, cell], 0.0))
         p = float(window_probability(block.mean[cell], std, self.low, self.high))
         verdict = "undecided" if 0.2 <= p <= 0.8 else ("likely" if p > 0.8 else "unlikely")
         return (
@@ -379,15 +401,18 @@ class _SiteGoal:
             if moved > _SITE_RESCORE_SHARE * max(np.max(np.diag(question["cov_seen"])), _SETTLED):
                 self._score_question(question_index)
 
-    def reason(self, block_index, cell, benefit):
+    def reason(self, block_index, cell, benefit, std):
         question_indices = self.by_cell[block_index].get(cell, [])
         best = max(question_indices, key=lambda q: self.reductions[q].get(cell, 0.0))
         question = self.questions[best]
         current, probabilities = self.current[best]
         order = np.argsort(-probabilities, kind="stable")[:2]
         shown = ", ".join(f"P({question['sites'][i]})={probabilities[i]:.2f}" for i in order)
-        verdict = "undecided" if probabilities[order[0]] < 0.8 else "nearly decided"
-        reduction = self.reductions[best].get(cell, 0.0)
+        top = float(probabilities[order[0]])
+        verdict = next(word for floor, word in _SITE_WORDS if top >= floor)
+        if verdict == "leaning":
+            verdict = f"leaning to {question['sites'][order[0]]}"
+        reduction = abs(self.reductions[best].get(cell, 0.0))
         text = (
             f"{question['method']} site preference in {question['host']} {verdict}: {shown}; "
             f"entropy {current:.2f} bits, expected -{reduction:.2f}"
@@ -461,7 +486,10 @@ def pick_next(
         calibrated ``value`` and ``std`` (eV), the method's ``cost``, ``benefit``
         (in ``benefit_unit``: eV^2 for table, bits for site and window; given the
         picks ranked above), ``benefit_per_cost`` (the ranking score), the cell's
-        ``scenario`` and a short ``reason``.
+        ``scenario`` and a short ``reason`` (quoting the row's ``std``). Only picks
+        worth at least ``USEFUL_BENEFIT`` of their unit are listed: fewer than ``count``
+        rows come back when fewer cells would teach anything noticeable.
+        ``attrs["candidates"]`` holds the number of missing cells weighed.
 
     Raises
     ------
@@ -539,6 +567,7 @@ def pick_next(
         rule.candidate_mask(b) if isinstance(rule, _SiteGoal) else np.ones(len(block.cells), dtype=bool)
         for b, block in enumerate(blocks)
     ]
+    candidates = [mask.copy() for mask in allowed]
     cell_costs = [
         np.array([float(costs.get(name, 1.0)) for name in block.cells["method"]]) for block in blocks
     ]
@@ -547,7 +576,8 @@ def pick_next(
     for rank in range(1, count + 1):
         best = None
         for b in range(len(blocks)):
-            value = np.where(allowed[b], scores[b] / cell_costs[b], -np.inf)
+            useful = allowed[b] & (np.abs(scores[b]) >= USEFUL_BENEFIT[rule.unit])
+            value = np.where(useful, scores[b] / cell_costs[b], -np.inf)
             if not len(value):
                 continue
             cell = int(np.argmax(value))  # first of ties: grid order, deterministic
@@ -557,7 +587,7 @@ def pick_next(
             break
         b, cell, per_cost = best
         block = blocks[b]
-        benefit = float(scores[b][cell])
+        benefit = abs(float(scores[b][cell]))
         row = dict(zip(KEY_COLUMNS, block.cells.loc[cell, list(KEY_COLUMNS)]))
         row.update(
             rank=rank,
@@ -565,7 +595,7 @@ def pick_next(
             std=float(summaries[b][1][cell]),
             cost=float(cell_costs[b][cell]),
             benefit=benefit,
-            reason=rule.reason(b, cell, benefit),
+            reason=rule.reason(b, cell, benefit, float(summaries[b][1][cell])),
             benefit_unit=rule.unit,
             benefit_per_cost=per_cost,
             scenario=block.cells.at[cell, "scenario"],
@@ -574,4 +604,7 @@ def pick_next(
         allowed[b][cell] = False
         rule.picked(b, cell)
         scores[b] = rule.scores(b)
-    return pd.DataFrame(records, columns=list(PICK_COLUMNS))
+    picks = pd.DataFrame(records, columns=list(PICK_COLUMNS))
+    # how many missing cells were weighed, so that an empty or short list can say why
+    picks.attrs["candidates"] = int(sum(int(mask.sum()) for mask in candidates))
+    return picks

@@ -29,6 +29,7 @@ from dopantgap.learners import BoostLearner
 from dopantgap.errors import DopantgapError
 from dopantgap.picker import (
     PICK_COLUMNS,
+    USEFUL_BENEFIT,
     binary_entropy,
     condition_on,
     expected_site_entropy,
@@ -278,14 +279,43 @@ def test_site_goal_three_sites_by_monte_carlo():
     pd.testing.assert_frame_equal(picks, again)  # same seed, same output
 
 
+def test_site_goal_lists_only_questions_it_can_move_and_words_follow_the_probability():
+    # Ti: s1 below s2 by 0.277 eV with variance 0.05 each, so P(s1 lowest) =
+    # Phi(0.277 / sqrt(0.1)) = 0.81 (scipy.stats.norm.cdf): a leaning, not "nearly
+    # decided"; V: 20 std apart, decided, so computing its cells teaches nothing
+    sites = ["s1", "s2"]
+    means = [1.0, 1.277, 0.0, 2.0 + 20 * np.sqrt(0.1)]
+    assert stats.norm.cdf(0.277 / np.sqrt(0.1)) == pytest.approx(0.81, abs=0.005)
+    model = hand_surrogate(sites, ["Ti", "V"], [("gga", "direct", padded(means, 2), padded(0.05 * np.eye(4), 2))])
+    picks = pick_next(model, count=4, goal="site", element_symbols=["Ti", "V"])
+    assert set(picks["element"]) == {"Ti"} and len(picks) <= 2
+    assert (picks["benefit"] >= USEFUL_BENEFIT["bits"]).all()
+    assert "leaning to s1" in picks["reason"].iat[0] and "nearly decided" not in picks["reason"].iat[0]
+    assert "--" not in "".join(picks["reason"])
+
+
+def test_table_goal_reason_quotes_the_rows_std():
+    # two correlated cells: after the first pick the second's std drops, and its reason
+    # says so beside the row's own std (the one before any pick)
+    sites = ["s1"]
+    cov = np.array([[0.49, 0.3], [0.3, 0.49]])
+    model = hand_surrogate(sites, ["Ti", "V"], [("gga", "direct", padded(np.zeros(2), 1), padded(cov, 1))])
+    picks = pick_next(model, count=2, element_symbols=["Ti", "V"])
+    for row in picks.itertuples(index=False):
+        assert f"own std {row.std:.2f} eV" in row.reason
+    left = np.sqrt(0.49 - 0.3**2 / 0.49)  # R&W 2006 eq. 2.24 with one point observed
+    assert f"{left:.2f} eV given the picks above" in picks["reason"].iat[1]
+
+
 def test_window_goal_prefers_the_straddling_element():
     sites = ["s1"]
     means = [1.0, 0.5, 3.0]  # Ti on the upper edge, V inside, Cr far outside
     model = hand_surrogate(sites, ["Ti", "V", "Cr"], [("gga", "direct", padded(means, 1), padded(0.04 * np.eye(3), 1))])
     picks = pick_next(model, count=3, goal="window", window=("E", 0.0, 1.0), element_symbols=["Ti", "V", "Cr"])
-    assert list(picks["element"]) == ["Ti", "V", "Cr"]
     assert picks["benefit"].iat[0] == pytest.approx(1.0, abs=1e-6)  # H(0.5) = 1 bit, settled
-    assert picks["benefit"].iat[2] < 1e-6
+    # Cr, 10 std above the window, would teach nothing: it is left out, not listed last
+    assert list(picks["element"]) == ["Ti", "V"]
+    assert picks.attrs["candidates"] == 3
 
 
 def test_cost_turns_the_choice_to_the_cheap_level():
@@ -379,7 +409,9 @@ def test_bad_arguments_raise_one_line_errors():
 def test_demo_picks_are_missing_unique_and_ranked(demo, kwargs):
     picks = pick_next(demo, count=8, **kwargs)
     assert list(picks.columns) == list(PICK_COLUMNS)
-    assert list(picks["rank"]) == list(range(1, 9))
+    assert 1 <= len(picks) <= 8 and list(picks["rank"]) == list(range(1, len(picks) + 1))
+    # no pick is listed that teaches nothing noticeable
+    assert (picks["benefit"] >= USEFUL_BENEFIT[picks["benefit_unit"].iat[0]]).all()
     keys = list(picks[list(KEY_COLUMNS)].itertuples(index=False, name=None))
     assert len(set(keys)) == len(keys)
     assert not set(keys) & computed_keys(demo)

@@ -267,7 +267,7 @@ def _command_fill(arguments, say):
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.new_hosts import plan_new_hosts
-    from dopantgap.picker import parse_cost, parse_window, pick_next
+    from dopantgap.picker import benefit_text, parse_cost, parse_window, pick_next
     from dopantgap import elements
     from dopantgap.table import write_table
 
@@ -296,16 +296,23 @@ def _command_next(arguments, say):
         new_hosts=plan,
     )
     write_table(picks, arguments.out)
-    if len(picks) == 0:
+    candidates = int(picks.attrs.get("candidates", 0))
+    if len(picks) == 0 and candidates == 0:
         say(f"No missing cell to propose for goal {goal}: every candidate cell is computed -> {arguments.out}")
+    elif len(picks) == 0:
+        say(f"No pick for goal {goal}: none of the {candidates} missing cells would teach anything noticeable "
+            f"for it (the list is left empty rather than padded) -> {arguments.out}")
     else:
         unit = picks["benefit_unit"].iat[0]
         say(f"{len(picks)} picks for goal {goal} (benefit in {unit}, ranked by benefit / cost) -> {arguments.out}")
+        if len(picks) < int(arguments.count):
+            say(f"  only {len(picks)} of the {arguments.count} asked would teach anything noticeable for this goal; "
+                "the list is not padded with the others")
         say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
             f"{'value eV':>9} {'std':>5} {'cost':>5} {'benefit':>8}  reason")
         for row in picks.itertuples(index=False):
             say(f"  {row.rank:>2} {row.element:<7} {row.host:<6} {row.site:<12} {row.method:<6} "
-                f"{row.quantity:<8} {row.value:>9.3f} {row.std:>5.2f} {row.cost:>5g} {row.benefit:>8.3f}  {row.reason}")
+                f"{row.quantity:<8} {row.value:>9.3f} {row.std:>5.2f} {row.cost:>5g} {benefit_text(row.benefit):>8}  {row.reason}")
     table_elements = set(surrogate.table_["element"])
     for symbol in extra:
         if symbol not in table_elements:
