@@ -42,10 +42,10 @@ Summary
 -------
 For each picker goal and figure (``error``: lower is better, ``decided``: higher is
 better): the picker's final figure, the median over random seeds after the same
-number of picks, their ratio, and "calculations saved": the number of picks the
-random median curve needs to reach the picker's final figure (linear interpolation
-between rounds, first crossing) minus the picker's number of picks. When random never
-reaches it within the replay the saving is not known (NaN, at least 0; see ``note``).
+number of picks, their ratio, and "calculations saved": the picker's number of picks
+minus the picks its own curve needed to reach random's final figure (linear
+interpolation between rounds, first crossing). A picker that never reached random's
+final figure saved nothing (0, with a ``note`` saying so): a saving is never negative.
 """
 
 import json
@@ -83,7 +83,7 @@ CURVE_COLUMNS = (
 )
 SUMMARY_COLUMNS = (
     "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
-    "ratio", "random_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "note",
+    "ratio", "picker_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "note",
 )
 RANDOM = "random"
 # fewest elements that keep their replayed-level cells visible (common practice, no source)
@@ -363,15 +363,20 @@ def savings(curves, goal, metric, cost_per_cell=1.0):
     random_final = float(median.loc[final["round"], metric]) if final["round"] in median.index else math.nan
     picker_final = float(final[metric])
     ratio = picker_final / random_final if random_final not in (0.0,) and not math.isnan(random_final) else math.nan
-    needed = _crossing(median["n_revealed"].to_numpy(float), median[metric].to_numpy(float), picker_final, higher)
+    needed = _crossing(
+        picker["n_revealed"].to_numpy(float), picker[metric].to_numpy(float), random_final, higher
+    )
     note = ""
     if math.isnan(needed):
-        note = f"random did not reach the picker's final {metric} within {int(median['n_revealed'].max())} picks: saving unknown, at least 0"
-    saved = needed - picks
+        # a saving is never negative: a picker behind random saved nothing
+        note = f"the picker did not reach random's final {metric} within {picks} picks: nothing saved"
+        saved = 0.0
+    else:
+        saved = picks - needed
     return {
         "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
         "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
-        "random_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
+        "picker_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
         "n_random_seeds": int(randoms["seed"].nunique()), "note": note,
     }
 
@@ -500,20 +505,22 @@ def replay_text(result):
         f"Figures scored against the {settings.get('scored_against', 'completed table')}.",
         "",
         f"  {'goal':<8} {'figure':<8} {'picks':>5} {'picker':>9} {'random':>9} {'ratio':>6} "
-        f"{'random needs':>13} {'saved':>7}",
+        f"{'picker needs':>13} {'saved':>7}",
     ]
     for row in result.summary.itertuples(index=False):
         digits = 3 if row.metric == "error" else 1
-        needs = "n/a" if math.isnan(row.random_picks_to_match) else f"{row.random_picks_to_match:.1f}"
-        saved = "?" if math.isnan(row.picks_saved) else f"{row.picks_saved:+.1f}"
+        needs = "never" if math.isnan(row.picker_picks_to_match) else f"{row.picker_picks_to_match:.1f}"
+        if row.picker_picks_to_match == 0.0:
+            needs = "at start"
+        saved = "none" if row.picks_saved <= 0.0 else f"{row.picks_saved:.1f}"
         label = "MAE eV" if row.metric == "error" else "decided"
         lines.append(
             f"  {row.goal:<8} {label:<8} {row.picks:>5} {row.picker_final:>9.{digits}f} "
             f"{row.random_median_final:>9.{digits}f} {row.ratio:>6.2f} {needs:>13} {saved:>7}"
         )
     lines.append("")
-    lines.append("saved: picks random needs (median curve, interpolated) to reach the picker's final "
-                 "figure, minus the picker's picks")
+    lines.append("saved: the picker's picks minus those its curve needed (interpolated) to reach random's "
+                 "final figure (median over seeds); never negative")
     for row in result.summary.itertuples(index=False):
         if row.note:
             lines.append(f"note: {row.goal}/{row.metric}: {row.note}")

@@ -126,26 +126,31 @@ def test_random_picks_are_uniform_over_candidates():
     assert stats.chisquare(biased, f_exp=np.full(12, biased.sum() / 12)).pvalue < 1e-3
 
 
-def test_savings_interpolate_the_random_median_curve():
+def test_savings_interpolate_the_pickers_curve_to_randoms_final_figure():
     rows = []
     for seed, errors in enumerate([[1.0, 0.8, 0.6, 0.4], [1.0, 0.9, 0.7, 0.5], [1.0, 0.7, 0.5, 0.3]]):
         for number, error in enumerate(errors):
             rows.append({"strategy": "random", "seed": seed, "round": number, "n_revealed": 10 * number,
                          "error": error, "decided": number})
-    for number, error in enumerate([1.0, 0.6, 0.5, 0.45]):
+    for number, error in enumerate([1.0, 0.6, 0.35, 0.3]):
         rows.append({"strategy": "table", "seed": 0, "round": number, "n_revealed": 10 * number,
-                     "error": error, "decided": 2 * number})
+                     "error": error, "decided": 0})
     curves = pd.DataFrame(rows)
     error = savings(curves, "table", "error", cost_per_cell=30.0)
-    # random median 1.0, 0.8, 0.6, 0.4: reaches 0.45 between 20 and 30 picks;
-    # reference: numpy.interp on the decreasing curve (reversed to increasing x for interp)
-    expected = float(np.interp(0.45, [0.4, 0.6], [30.0, 20.0]))
-    assert math.isclose(error["random_picks_to_match"], expected)
-    assert math.isclose(error["picks_saved"], expected - 30.0)
-    assert math.isclose(error["cost_saved"], 30.0 * (expected - 30.0))
-    assert math.isclose(error["ratio"], 0.45 / 0.4)
+    # random median 1.0, 0.8, 0.6, 0.4: its final 0.4 is reached by the picker's curve
+    # (1.0, 0.6, 0.35, 0.3) between 10 and 20 picks; reference: numpy.interp on the
+    # decreasing curve (reversed to increasing x for interp)
+    expected = float(np.interp(0.4, [0.35, 0.6], [20.0, 10.0]))
+    assert math.isclose(error["picker_picks_to_match"], expected)
+    assert math.isclose(error["picks_saved"], 30.0 - expected)
+    assert math.isclose(error["cost_saved"], 30.0 * (30.0 - expected))
+    assert math.isclose(error["ratio"], 0.3 / 0.4)
+    assert error["note"] == ""
+    # the picker decided nothing while random decided 3: never a negative saving
     decided = savings(curves, "table", "decided")
-    assert math.isnan(decided["random_picks_to_match"]) and decided["note"]
+    assert math.isnan(decided["picker_picks_to_match"])
+    assert decided["picks_saved"] == 0.0 and decided["cost_saved"] == 0.0
+    assert "nothing saved" in decided["note"]
 
 
 def test_write_replay_files(result, tmp_path):
