@@ -97,6 +97,16 @@ expensive level adds a correction that grows with the anion's electronegativity
 plus its own noise N(0, noise_sd). ``FAMILY_SITE_KINDS`` names the kind shared across
 hosts (``sub_cation``, ``sub_anion``, ``int_oct``) of every (host, site), and
 ``family_host_file_text`` writes it as a host file.
+
+Worlds with undecided sites
+---------------------------
+``close_site_gaps`` takes any of these worlds and makes the site preference of a share
+of its elements (a third by default, drawn with its own seed) nearly undecided: for each
+drawn element and host, the site second-lowest in cheap-level ``E_sol`` truth is moved
+(every level, truth and value alike, so noise and corrections stay as they were) to
+sit g ~ N(0, gap_sd) above the lowest (gap_sd 0.05 eV by default; g < 0 swaps them). A
+picker that decides site preferences has work to do there that no descriptor can do
+for it. INVENTED like the rest.
 """
 
 import numpy as np
@@ -111,6 +121,7 @@ __all__ = [
     "FAMILY_SITE_KINDS",
     "SECOND_ELEMENTS",
     "SECOND_HOSTS",
+    "close_site_gaps",
     "family_host_file_text",
     "invent_host_family",
     "invent_second_world",
@@ -578,6 +589,50 @@ def family_host_file_text(hosts=None):
     for host, sites in hosts.items():
         lines += [f"{host},{host},{site},{_family_site_kind(site, compositions[host])}" for site in sites]
     return "\n".join(lines) + "\n"
+
+
+def close_site_gaps(world, share=1.0 / 3.0, gap_sd=0.05, seed=0):
+    """The world with the site preference of a share of its elements made nearly
+    undecided (module docstring, *Worlds with undecided sites*).
+
+    Parameters
+    ----------
+    world : DataFrame
+        An invented world (``invent_world``, ``invent_second_world``, ...), with ``truth``.
+    share : float, default=1/3
+        Share of the elements drawn (rounded to a whole number of elements).
+    gap_sd : float, default=0.05
+        Standard deviation (eV) of the gap g between the two lowest sites.
+    seed : int, default=0
+
+    Returns
+    -------
+    DataFrame
+        A copy with the same rows and columns; only ``E_sol`` cells of the drawn
+        elements' second-lowest sites are moved. ``attrs["close_elements"]`` lists the
+        drawn elements.
+    """
+    if not 0.0 <= share <= 1.0 or gap_sd < 0.0:
+        raise ValueError(f"share must lie in [0, 1] and gap_sd be >= 0, got {share} and {gap_sd}")
+    rng = np.random.default_rng(seed)
+    world = world.copy()
+    symbols = sorted(world["element"].unique())
+    drawn = sorted(rng.choice(symbols, size=int(round(share * len(symbols))), replace=False).tolist())
+    cheap = pd.unique(world["method"])[0]
+    sites = world[(world["quantity"] == "E_sol") & (world["method"] == cheap)]
+    for symbol in drawn:
+        for host, part in sites[sites["element"] == symbol].groupby("host", sort=True):
+            if len(part) < 2:
+                continue
+            lowest, second = part.sort_values("truth", kind="stable").iloc[:2].itertuples(index=False)
+            shift = lowest.truth + rng.normal(0.0, gap_sd) - second.truth
+            rows = (
+                (world["element"] == symbol) & (world["host"] == host)
+                & (world["site"] == second.site) & (world["quantity"] == "E_sol")
+            )
+            world.loc[rows, ["truth", "value"]] += shift
+    world.attrs["close_elements"] = drawn
+    return world
 
 
 def observe(

@@ -363,3 +363,26 @@ def test_family_unknown_site_is_refused():
         invent_host_family(hosts={"MgO": ("int_tet",)})
     with pytest.raises(ValueError, match=re.escape("no site 'sub_Zn'")):
         family_host_file_text({"MgO": ("sub_Zn",)})
+
+
+def test_close_site_gaps_makes_a_third_of_the_elements_undecided(world):
+    from dopantgap.world import close_site_gaps
+
+    closed = close_site_gaps(world, gap_sd=0.05, seed=4)
+    drawn = closed.attrs["close_elements"]
+    assert len(drawn) == round(world["element"].nunique() / 3)
+    assert close_site_gaps(world, gap_sd=0.05, seed=4).equals(closed)  # same seed, same world
+    moved = (closed["truth"] - world["truth"]).abs() > 0
+    # only E_sol cells of the drawn elements move, truth and value alike (noise kept)
+    assert set(closed.loc[moved, "element"]) <= set(drawn) and set(closed.loc[moved, "quantity"]) == {"E_sol"}
+    np.testing.assert_allclose(closed["value"] - world["value"], closed["truth"] - world["truth"])
+    cheap = closed[(closed["method"] == "gga") & (closed["quantity"] == "E_sol")]
+    for (symbol, _host), part in cheap.groupby(["element", "host"]):
+        gap = np.diff(np.sort(part["truth"].to_numpy())[:2])[0]
+        if symbol in drawn:
+            assert gap < 0.25  # |g| < 5 sd of 0.05 eV
+    # the drawn elements' gaps are near zero, most of the others' are not
+    gaps = cheap.groupby(["element", "host"])["truth"].apply(lambda t: np.diff(np.sort(t.to_numpy())[:2])[0])
+    close = gaps[gaps.index.get_level_values(0).isin(drawn)]
+    far = gaps[~gaps.index.get_level_values(0).isin(drawn)]
+    assert close.median() < 0.06 < far.median()
