@@ -268,11 +268,11 @@ class PairEncoder:
     (``elements.reference_atoms``: the atom a site names, else the host's atoms weighted
     by atom fraction), both standardised over the training cells, then the host file's
     properties when ``host_properties`` is given (numbers and category one-hots,
-    standardised; only those known for every training host and not constant over
-    them), and a 0/1 indicator per site kind (:func:`site_kind`). Impurity and host atoms get as many inputs each,
-    so an isotropic kernel over them weighs the host as much as the impurity. With the
-    few host inputs of a :class:`CellEncoder` instead, hosts left out of the real
-    diffusion table (Wu, Mayeshiba & Morgan, Sci. Data 3, 160054, 2016) were predicted
+    standardised; only those known for every training host and not constant over them),
+    and a 0/1 indicator per site kind (:func:`site_kind`). Impurity and host atoms get as
+    many inputs each, so an isotropic kernel over them weighs the host as much as the
+    impurity. With the few host inputs of a :class:`CellEncoder` instead, hosts left out
+    of the real diffusion table (Wu, Mayeshiba & Morgan, Sci. Data 3, 160054, 2016) were predicted
     with RMSE 0.46 eV by the same isotropic kernel (measured once), worse than the
     impurity's mean over the other hosts (0.39 eV); the pair model predicts them with
     0.30 eV (``benchmarks/bench_new_host.py --ks 0``).

@@ -305,7 +305,7 @@ def _command_next(arguments, say):
     else:
         unit = picks["benefit_unit"].iat[0]
         say(f"{len(picks)} picks for goal {goal} (benefit in {unit}, ranked by benefit / cost) -> {arguments.out}")
-        if len(picks) < int(arguments.count):
+        if len(picks) < int(arguments.count) and candidates > len(picks):
             say(f"  only {len(picks)} of the {arguments.count} asked would teach anything noticeable for this goal; "
                 "the list is not padded with the others")
         say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
