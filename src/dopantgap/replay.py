@@ -46,6 +46,9 @@ number of picks, their ratio, and "calculations saved": the picker's number of p
 minus the picks its own curve needed to reach random's final figure (linear
 interpolation between rounds, first crossing). A picker that never reached random's
 final figure saved nothing (0, with a ``note`` saying so): a saving is never negative.
+For the error, also the floor (``oracle_floor``: each hidden cell predicted with every
+other hidden cell known, the lowest error any picker could leave) and the share of
+random's excess error over that floor the picker removed.
 """
 
 import json
@@ -83,9 +86,13 @@ CURVE_COLUMNS = (
 )
 SUMMARY_COLUMNS = (
     "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
-    "ratio", "picker_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "note",
+    "ratio", "picker_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "floor",
+    "share_removed", "note",
 )
 RANDOM = "random"
+# Groups the oracle floor hides the hidden cells in, one refreshed model each (common
+# practice, no source: more groups move the floor little and cost a refit each).
+_FLOOR_GROUPS = 5
 # fewest elements that keep their replayed-level cells visible (common practice, no source)
 _KEEP_MIN_ELEMENTS = 2
 
@@ -206,7 +213,7 @@ class _Scorer:
         keys = remaining[list(KEY_COLUMNS)].itertuples(index=False, name=None)
         return np.array([self.reference[key] for key in keys], dtype=float)
 
-    def __call__(self, surrogate, remaining):
+    def __call__(self, surrogate, remaining, sites=True):
         figures = {"error": np.nan, "rmse": np.nan, "mean_std": np.nan}
         if len(remaining):
             predicted = surrogate.predict(remaining[list(KEY_COLUMNS)])
@@ -215,7 +222,7 @@ class _Scorer:
             figures["rmse"] = float(np.sqrt(np.mean(difference**2)))
             figures["mean_std"] = float(predicted["std"].mean())
         decided = wrong = 0
-        if self.truth:
+        if self.truth and sites:
             quantities = sorted({quantity for _e, _h, quantity in self.truth})
             preference = site_preference(
                 surrogate, element_symbols=self.symbols, quantities=quantities, random_state=self.random_state
@@ -337,7 +344,44 @@ def _crossing(n_picks, figures, target, higher_is_better):
     return x0 + (target - y0) * (x1 - x0) / (y1 - y0)
 
 
-def savings(curves, goal, metric, cost_per_cell=1.0):
+def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROUPS):
+    """The lowest error a picker could leave in a replay, measured on the data.
+
+    The hidden cells are cut into ``groups`` random groups; for each group the base model
+    is refreshed (``Surrogate.refreshed``) on the visible cells and every other hidden
+    cell, and the group is predicted. What is left is the table's own noise and what the
+    model cannot learn even with all but a few cells computed: no choice of picks gets
+    below it.
+
+    Parameters
+    ----------
+    base : Surrogate
+        The replay's model fitted on the visible cells.
+    visible, hidden : DataFrame
+        The replay's visible and hidden cells (long tables).
+    scorer : callable
+        The replay's scorer (its figures: ``error`` is the MAE of the cells it is given).
+    random_state : int
+    groups : int, default=5
+
+    Returns
+    -------
+    float
+        Mean absolute error (eV) over all hidden cells, weighted by cell.
+    """
+    hidden = hidden.reset_index(drop=True)
+    rng = np.random.default_rng((random_state, 7))
+    group_of = rng.permutation(len(hidden)) % max(1, min(groups, len(hidden)))
+    total = 0.0
+    for group in np.unique(group_of):
+        held = group_of == group
+        known = pd.concat([visible, hidden[~held]], ignore_index=True)
+        figures = scorer(base.refreshed(known), hidden[held].reset_index(drop=True), sites=False)
+        total += figures["error"] * int(held.sum())
+    return total / len(hidden)
+
+
+def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
     """Calculations saved by a picker goal against the random median, for one figure.
 
     Parameters
@@ -348,6 +392,9 @@ def savings(curves, goal, metric, cost_per_cell=1.0):
         Picker strategy (a goal name).
     metric : {"error", "decided"}
     cost_per_cell : float, default=1.0
+    floor : float, default=nan
+        The error floor (``oracle_floor``); with it, the error row gets the share of
+        random's excess over the floor that the picker removed.
 
     Returns
     -------
@@ -373,16 +420,21 @@ def savings(curves, goal, metric, cost_per_cell=1.0):
         saved = 0.0
     else:
         saved = picks - needed
+    share = math.nan
+    if metric == "error" and not math.isnan(floor) and random_final > floor:
+        share = (random_final - picker_final) / (random_final - floor)
     return {
         "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
         "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
         "picker_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
-        "n_random_seeds": int(randoms["seed"].nunique()), "note": note,
+        "n_random_seeds": int(randoms["seed"].nunique()), "floor": floor if metric == "error" else math.nan,
+        "share_removed": share, "note": note,
     }
 
 
 def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,
-           random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None, reference=None):
+           random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None, reference=None,
+           floor=True):
     """Replay a completed table: the picker's rounds against random picks.
 
     Parameters
@@ -418,6 +470,8 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         Values the figures are scored against instead of the completed table's (cell
         columns and ``value``, covering every cell of ``table``): for benchmarks on an
         invented world, its noise-free truth. The picker only ever sees ``table``.
+    floor : bool, default=True
+        Measure the error floor (``oracle_floor``: a few refreshed models more).
 
     Returns
     -------
@@ -469,12 +523,15 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         curves += part_curves
         revealed += part_revealed
     curves = pd.DataFrame(curves, columns=list(CURVE_COLUMNS))
+    error_floor = math.nan
+    if floor and len(hidden):
+        error_floor = oracle_floor(base, visible.reset_index(drop=True), hidden, scorer, random_state)
     picks_columns = ["strategy", "seed", "round"] + list(REQUIRED_COLUMNS)
     picks = pd.concat(revealed, ignore_index=True) if revealed else pd.DataFrame(columns=picks_columns)
     rows = []
     for name in goals:
         for metric in ("error", "decided"):
-            row = savings(curves, name, metric, cost_per_cell)
+            row = savings(curves, name, metric, cost_per_cell, floor=error_floor)
             row["method"] = method
             rows.append(row)
     summary = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
@@ -521,10 +578,40 @@ def replay_text(result):
     lines.append("")
     lines.append("saved: the picker's picks minus those its curve needed (interpolated) to reach random's "
                  "final figure (median over seeds); never negative")
+    lines += _round_lines(result)
     for row in result.summary.itertuples(index=False):
         if row.note:
             lines.append(f"note: {row.goal}/{row.metric}: {row.note}")
     return "\n".join(lines) + "\n"
+
+
+def _round_lines(result):
+    """Error per round: each goal, random's median and spread over seeds, and the floor."""
+    curves = result.curves
+    randoms = curves[curves["strategy"] == RANDOM].groupby("round")["error"]
+    goals = [goal for goal in dict.fromkeys(curves["strategy"]) if goal != RANDOM]
+    if curves.empty or randoms.ngroups == 0 or curves["error"].isna().all():
+        return []
+    median, low, high = randoms.median(), randoms.quantile(0.25), randoms.quantile(0.75)
+    picks = curves[curves["strategy"] == RANDOM].groupby("round")["n_revealed"].median()
+    lines = ["", "MAE (eV) per round; random: median [quartiles] over seeds:",
+             f"  {'round':>5} {'picks':>5} " + " ".join(f"{goal:>8}" for goal in goals) + "  random"]
+    for number in median.index:
+        picked = [
+            curves[(curves["strategy"] == goal) & (curves["round"] == number)]["error"] for goal in goals
+        ]
+        shown = " ".join(f"{part.iat[0]:>8.4f}" if len(part) else f"{'':>8}" for part in picked)
+        lines.append(f"  {number:>5} {int(picks.at[number]):>5} {shown}  {median.at[number]:.4f} "
+                     f"[{low.at[number]:.4f}, {high.at[number]:.4f}]")
+    error_rows = result.summary[result.summary["metric"] == "error"]
+    floor = float(error_rows["floor"].iat[0]) if len(error_rows) and "floor" in error_rows else math.nan
+    if not math.isnan(floor):
+        lines.append(f"floor: {floor:.4f} eV, each hidden cell predicted with every other hidden cell known "
+                     "(no picker gets below it)")
+        for row in error_rows.itertuples(index=False):
+            share = "n/a (random at the floor)" if math.isnan(row.share_removed) else f"{row.share_removed:.0%}"
+            lines.append(f"  {row.goal}: share of random's excess error over the floor removed: {share}")
+    return lines
 
 
 def write_replay(result, out_dir):

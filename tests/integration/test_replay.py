@@ -16,6 +16,7 @@ from dopantgap.replay import (
     hide_cells,
     random_picks,
     replay,
+    replay_text,
     savings,
     write_replay,
 )
@@ -151,6 +152,26 @@ def test_savings_interpolate_the_pickers_curve_to_randoms_final_figure():
     assert math.isnan(decided["picker_picks_to_match"])
     assert decided["picks_saved"] == 0.0 and decided["cost_saved"] == 0.0
     assert "nothing saved" in decided["note"]
+
+
+def test_savings_give_the_share_of_randoms_excess_removed():
+    rows = [{"strategy": "random", "seed": 0, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0}
+            for r, e in enumerate([1.0, 0.8, 0.6])]
+    rows += [{"strategy": "table", "seed": 0, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0}
+             for r, e in enumerate([1.0, 0.7, 0.5])]
+    error = savings(pd.DataFrame(rows), "table", "error", floor=0.2)
+    # random ends 0.4 above the floor, the picker 0.3: (0.6 - 0.5) / (0.6 - 0.2) removed (by hand)
+    assert math.isclose(error["share_removed"], 0.25) and error["floor"] == 0.2
+    assert math.isnan(savings(pd.DataFrame(rows), "table", "decided", floor=0.2)["share_removed"])
+
+
+def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):
+    floor = result.summary.loc[result.summary["metric"] == "error", "floor"]
+    assert floor.nunique() == 1 and 0.0 < floor.iat[0]
+    # with all but a fifth of the hidden cells known, the model does better than any
+    # strategy that knows the visible cells and a handful of picks
+    assert floor.iat[0] < result.curves["error"].min()
+    assert "floor:" in replay_text(result) and "[" in replay_text(result)
 
 
 def test_write_replay_files(result, tmp_path):
