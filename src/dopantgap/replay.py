@@ -42,9 +42,10 @@ Summary
 -------
 For each picker goal and figure (``error``: lower is better, ``decided``: higher is
 better): the picker's final figure, the median over random seeds after the same
-number of picks, their ratio, and "calculations saved": the picker's number of picks
-minus the picks its own curve needed to reach random's final figure (linear
-interpolation between rounds, first crossing). A picker that never reached random's
+number of picks, their ratio, and "calculations saved": random's number of picks minus
+the picks the picker's own curve needed to reach random's final figure (linear
+interpolation between rounds, first crossing; a picker that finds nothing worth
+computing spends nothing in a round, so it may end with fewer picks than random). A picker that never reached random's
 final figure saved nothing (0, with a ``note`` saying so): a saving is never negative.
 For the error, also the floor (``oracle_floor``: each hidden cell predicted with every
 other hidden cell known, the lowest error any picker could leave) and the share of
@@ -300,16 +301,18 @@ def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, meth
                    **figures, "n_hidden_left": len(remaining)})
     for round_number in range(1, rounds + 1):
         count = min(per_round, len(remaining))
-        if count == 0:
-            _tick(progress)
-            continue
-        if strategy == RANDOM:
+        chosen = []
+        if count and strategy == RANDOM:
             chosen = random_picks(len(remaining), count, rng)
-        else:
+        elif count:
             symbols = [s for s in element_symbols if s not in set(grown["element"])]
             chosen = _picker_choice(surrogate, remaining, count, strategy, method, cost, window,
                                     symbols, random_state)
         if not chosen:
+            # nothing left, or nothing the goal finds worth computing: the round spends
+            # nothing and the figures stand, so that every strategy has every round
+            curves.append({"strategy": strategy, "seed": seed, "round": round_number, "n_revealed": n_revealed,
+                           "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
             _tick(progress)
             continue
         picked = remaining.iloc[chosen]
@@ -413,13 +416,15 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
     needed = _crossing(
         picker["n_revealed"].to_numpy(float), picker[metric].to_numpy(float), random_final, higher
     )
+    # random spends every round; a picker with nothing worth computing may stop early
+    random_picks_spent = float(median.loc[final["round"], "n_revealed"]) if final["round"] in median.index else picks
     note = ""
     if math.isnan(needed):
         # a saving is never negative: a picker behind random saved nothing
         note = f"the picker did not reach random's final {metric} within {picks} picks: nothing saved"
         saved = 0.0
     else:
-        saved = picks - needed
+        saved = random_picks_spent - needed
     share = math.nan
     if metric == "error" and not math.isnan(floor) and random_final > floor:
         share = (random_final - picker_final) / (random_final - floor)
@@ -576,8 +581,8 @@ def replay_text(result):
             f"{row.random_median_final:>9.{digits}f} {row.ratio:>6.2f} {needs:>13} {saved:>7}"
         )
     lines.append("")
-    lines.append("saved: the picker's picks minus those its curve needed (interpolated) to reach random's "
-                 "final figure (median over seeds); never negative")
+    lines.append("saved: random's picks minus those the picker's curve needed (interpolated) to reach "
+                 "random's final figure (median over seeds); never negative")
     lines += _round_lines(result)
     for row in result.summary.itertuples(index=False):
         if row.note:
