@@ -648,5 +648,7 @@ def write_replay(result, out_dir):
 
     unit = "cost units" if result.settings.get("cost") else "calculations"
     paths["png"] = out_dir / "learning_curves.png"
-    plots.save_png(plots.learning_curve_figure(result.curves, cost_unit=unit), paths["png"])
+    floors = result.summary.loc[result.summary["metric"] == "error", "floor"] if "floor" in result.summary else []
+    floor = float(floors.iat[0]) if len(floors) else None
+    plots.save_png(plots.learning_curve_figure(result.curves, cost_unit=unit, floor=floor), paths["png"])
     return paths

@@ -398,6 +398,11 @@ def test_learning_curve_figure_draws_medians_over_seeds():
     lines = {line.get_label().split(" ")[0]: line for line in error_axes.get_lines()}
     expected = curves[curves["strategy"] == "spread"].groupby("round")["error"].median().to_numpy()
     np.testing.assert_allclose(lines["spread"].get_ydata(), expected)
+    assert "floor" not in lines
+    # the replay's floor, when given, is a level line at that error
+    floored = plots.learning_curve_figure(curves, floor=0.05)
+    drawn = {line.get_label().split(" ")[0]: line for line in floored.axes[0].get_lines()}
+    np.testing.assert_allclose(drawn["floor"].get_ydata(), [0.05, 0.05])
     with pytest.raises(DopantgapError, match="cost_spent"):
         plots.learning_curve_figure(curves.drop(columns="cost_spent"))
 

@@ -12,7 +12,7 @@ def _strategy_label(strategy, n_seeds):
 
 
 @_plain_text
-def learning_curve_figure(curves, cost_unit="cost units"):
+def learning_curve_figure(curves, cost_unit="cost units", floor=None):
     """Error against cost spent for each picking strategy, over replayed seeds.
 
     Parameters
@@ -20,6 +20,8 @@ def learning_curve_figure(curves, cost_unit="cost units"):
     curves : DataFrame
         Columns strategy, seed, round, cost_spent, error (eV), decided (count).
     cost_unit : str, default="cost units"
+    floor : float or None, default=None
+        The error no picker gets below (``replay.oracle_floor``), drawn as a dashed line.
 
     Returns
     -------
@@ -42,6 +44,9 @@ def learning_curve_figure(curves, cost_unit="cost units"):
             axes.fill_between(cost.to_numpy(), low.to_numpy(), high.to_numpy(), color=colour, alpha=0.2, linewidth=0)
             axes.plot(cost.to_numpy(), middle.to_numpy(), color=colour, marker=marker, markersize=3.5,
                       linewidth=1.4, label=_strategy_label(strategy, rows["seed"].nunique()))
+    if floor is not None and np.isfinite(floor):
+        error_axes.axhline(floor, color="0.35", linestyle="--", linewidth=1.0,
+                           label=f"floor {floor:.3g} eV (all other cells known)")
     error_axes.set_xlabel(f"cost spent ({cost_unit})")
     error_axes.set_ylabel("mean |error| of cells not yet revealed (eV)")
     error_axes.set_title("Error as calculations are added", fontsize=9)
