@@ -132,6 +132,9 @@ def main():
         file, source = TABLES[name]
         table = read_table(REAL / file)
         folder = tempfile.mkdtemp(prefix="dopantgap-bench-")
+        if arguments.structure and "host_structure" not in table.columns:
+            print(f"{name}: --structure needs a host_structure column, which {file} lacks; skipped")
+            continue
         host_file = structure_host_file(table, folder) if arguments.structure else None
         hosts = sorted(table["host"].unique()) if arguments.hosts is None else arguments.hosts.split(",")
         for k in (int(text) for text in arguments.ks.split(",")):
