@@ -353,8 +353,9 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROU
     The hidden cells are cut into ``groups`` random groups; for each group the base model
     is refreshed (``Surrogate.refreshed``) on the visible cells and every other hidden
     cell, and the group is predicted. What is left is the table's own noise and what the
-    model cannot learn even with all but a few cells computed: no choice of picks gets
-    below it.
+    model cannot learn even with all but a few cells computed. It is averaged over every
+    hidden cell, while a strategy's error is over the cells it has not revealed yet: a
+    picker that reveals the hardest cells first can end below it.
 
     Parameters
     ----------
@@ -612,7 +613,7 @@ def _round_lines(result):
     floor = float(error_rows["floor"].iat[0]) if len(error_rows) and "floor" in error_rows else math.nan
     if not math.isnan(floor):
         lines.append(f"floor: {floor:.4f} eV, each hidden cell predicted with every other hidden cell known "
-                     "(no picker gets below it)")
+                     "(over all hidden cells)")
         for row in error_rows.itertuples(index=False):
             share = "n/a (random at the floor)" if math.isnan(row.share_removed) else f"{row.share_removed:.0%}"
             lines.append(f"  {row.goal}: share of random's excess error over the floor removed: {share}")
