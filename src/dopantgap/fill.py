@@ -16,6 +16,7 @@ __all__ = [
     "WIDE_COMPANIONS",
     "check_fill_format",
     "fill_table",
+    "host_outside_note",
     "outside_levels",
     "parse_element_list",
     "unfamiliar_elements",
@@ -136,7 +137,7 @@ def fill_table(surrogate, element_symbols=None, level=0.9, new_hosts=None):
         for host, reason in new_hosts.outside.items():
             rows = (filled["host"] == host).to_numpy()
             filled.loc[rows, "outside_domain"] = True
-            note = f"host {host} lies outside the table's hosts ({reason})"
+            note = host_outside_note(host, reason)
             filled.loc[rows, "caution"] = [
                 f"{text}; {note}" if text else note for text in filled.loc[rows, "caution"]
             ]
@@ -146,6 +147,12 @@ def fill_table(surrogate, element_symbols=None, level=0.9, new_hosts=None):
         for column in extras:
             filled[column] = filled[column].astype(object).where(filled[column].notna(), "")
     return filled[list(FILLED_COLUMNS) + extras]
+
+
+def host_outside_note(host, reason):
+    """The caution a new host outside the table's hosts puts on each of its filled cells
+    (``fill_table``'s ``caution`` column), so that the command line can recognise it."""
+    return f"host {host} lies outside the table's hosts ({reason})"
 
 
 def _companion_name(column, kind):

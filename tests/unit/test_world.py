@@ -377,12 +377,8 @@ def test_close_site_gaps_makes_a_third_of_the_elements_undecided(world):
     assert set(closed.loc[moved, "element"]) <= set(drawn) and set(closed.loc[moved, "quantity"]) == {"E_sol"}
     np.testing.assert_allclose(closed["value"] - world["value"], closed["truth"] - world["truth"])
     cheap = closed[(closed["method"] == "gga") & (closed["quantity"] == "E_sol")]
-    for (symbol, _host), part in cheap.groupby(["element", "host"]):
-        gap = np.diff(np.sort(part["truth"].to_numpy())[:2])[0]
-        if symbol in drawn:
-            assert gap < 0.25  # |g| < 5 sd of 0.05 eV
-    # the drawn elements' gaps are near zero, most of the others' are not
     gaps = cheap.groupby(["element", "host"])["truth"].apply(lambda t: np.diff(np.sort(t.to_numpy())[:2])[0])
     close = gaps[gaps.index.get_level_values(0).isin(drawn)]
     far = gaps[~gaps.index.get_level_values(0).isin(drawn)]
-    assert close.median() < 0.06 < far.median()
+    # every drawn gap is |g| below 5 sd of 0.05 eV; most undrawn ones are far wider
+    assert close.max() < 0.25 and close.median() < 0.06 < far.median()

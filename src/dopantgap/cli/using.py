@@ -187,7 +187,8 @@ def _fill_outputs(arguments, surrogate, manifest, say):
 
 def _command_fill(arguments, say):
     from dopantgap.fill import (
-        check_fill_format, fill_table, outside_levels, parse_element_list, unfamiliar_elements, wide_filled,
+        check_fill_format, fill_table, host_outside_note, outside_levels, parse_element_list,
+        unfamiliar_elements, wide_filled,
     )
     from dopantgap.new_hosts import parse_host_list, plan_new_hosts
     from dopantgap.sites import site_preference
@@ -251,9 +252,7 @@ def _command_fill(arguments, say):
         )
     _say_outside_levels(say, outside_levels(surrogate, filled, skip=unfamiliar))
     # a new host's caution was said once above; the file repeats it on each of its cells
-    said = set() if plan is None else {
-        f"host {host} lies outside the table's hosts ({reason})" for host, reason in plan.outside.items()
-    }
+    said = set() if plan is None else {host_outside_note(host, reason) for host, reason in plan.outside.items()}
     flagged = filled.loc[filled["caution"] != "", ["element", "caution"]]
     for element, caution in dict.fromkeys(
         (row.element, "; ".join(part for part in row.caution.split("; ") if part not in said))
