@@ -54,11 +54,28 @@ again, so a batch does not spend K calculations on one question. A pick's
 exceed an earlier pick's, when two calculations settle a question only together
 (the two competing sites of one element).
 
+Robust picks
+------------
+A covariance tuned on a handful of expensive elements is itself uncertain: its length
+scales, element offsets and noise could have come out otherwise with other elements.
+The benefit is therefore averaged, with equal weights, over ``kernels`` plausible
+versions of the model (``surrogate.plausible.plausible_surrogates``): the fitted one and
+versions whose stages learned from fewer than ``surrogate.plausible.FEW_ELEMENTS``
+elements re-tune their hyperparameters on a random two thirds of those elements, then
+condition on all of the stage's rows. Each version's covariance is conditioned on every
+pick (``AveragedGoal``), so a batch does not spend its picks on a question one version
+thinks one calculation settles and another thinks needs many: where the versions
+disagree about how cells share information, the batch spreads over columns and
+elements. When the versions coincide (many elements, or ``kernels=1``) the benefit is
+the single kernel's. The rows (value, std, reason) are the fitted model's.
+
 Approximations (stated so that they can be judged)
 --------------------------------------------------
-- Hyperparameters and the interval calibration stay fixed; the calibrated covariance
-  (raw covariance scaled by each cell's scenario factor, as ``predict_joint`` does) is
-  conditioned as if it were the exact Gaussian posterior.
+- Within each version, hyperparameters and the interval calibration stay fixed, and the
+  calibrated covariance (raw covariance scaled by each cell's scenario factor, as
+  ``predict_joint`` does) is conditioned as if it were the exact Gaussian posterior.
+  The versions are a few re-tunings on subsets of elements with equal weights, not
+  draws from the hyperparameters' posterior.
 - An expensive-level cell whose cheap level is missing is treated as informative for
   its neighbours through the joint Gaussian, although the surrogate learns the
   correction only from cells computed at both levels.
@@ -88,9 +105,11 @@ from dopantgap.gaussian import (
 )
 from dopantgap.joint import cell_grid, missing_joints
 from dopantgap.sites import site_quantities
+from dopantgap.surrogate.plausible import N_PLAUSIBLE, plausible_surrogates
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = [
+    "AveragedGoal",
     "GOALS",
     "PICK_COLUMNS",
     "benefit_text",
@@ -98,6 +117,7 @@ __all__ = [
     "condition_on",
     "expected_site_entropy",
     "expected_window_entropy",
+    "greedy_batch",
     "parse_cost",
     "parse_window",
     "pick_next",
@@ -423,7 +443,52 @@ class _SiteGoal:
         return text
 
 
+class AveragedGoal:
+    """A goal's benefit averaged, with equal weights, over the goals of plausible versions
+    of the model (``surrogate.plausible.plausible_surrogates``).
+
+    Every version's covariance is conditioned on each pick, so a pick's benefit is its
+    average benefit given the picks above under each version. Rows, reasons and the
+    std column are the first (the fitted) version's; only the benefit is averaged.
+
+    Parameters
+    ----------
+    rules : list of goal objects
+        The same goal built on each version's blocks (the same cells, in the same order).
+    """
+
+    def __init__(self, rules):
+        first = rules[0]
+        for other in rules[1:]:
+            if len(other.blocks) != len(first.blocks) or any(
+                len(a.cells) != len(b.cells) for a, b in zip(first.blocks, other.blocks)
+            ):
+                raise ValueError("every version's goal must hold the same cells")
+        self.rules = list(rules)
+        self.unit = first.unit
+        self.blocks = first.blocks
+        if hasattr(first, "candidate_mask"):
+            self.candidate_mask = first.candidate_mask
+
+    def scores(self, block_index):
+        return np.mean([rule.scores(block_index) for rule in self.rules], axis=0)
+
+    def picked(self, block_index, cell):
+        for rule in self.rules:
+            rule.picked(block_index, cell)
+
+    def reason(self, block_index, cell, benefit, std):
+        return self.rules[0].reason(block_index, cell, benefit, std)
+
+
 # ------------------------------------------------------------------------ picking
+def _check_versions(kernels):
+    """The number of plausible kernels as an int >= 1."""
+    if isinstance(kernels, bool) or not isinstance(kernels, (int, np.integer)) or kernels < 1:
+        raise DopantgapError(f"kernels must be a whole number of at least 1, got {kernels!r}.")
+    return int(kernels)
+
+
 def _check_count(count):
     """The number of picks as an int >= 1 (command-line text accepted)."""
     number = None
@@ -438,6 +503,63 @@ def _check_count(count):
     return number
 
 
+def _candidates(rule, block_index):
+    """Cells of a block the goal may propose (the site goal: cells of a site question)."""
+    mask = getattr(rule, "candidate_mask", None)
+    if mask is None:
+        return np.ones(len(rule.blocks[block_index].cells), dtype=bool)
+    return mask(block_index)
+
+
+def greedy_batch(rule, count, cell_costs=None):
+    """The batch a goal ranks: one pick after the other, each scored given those above.
+
+    Parameters
+    ----------
+    rule : goal object
+        One of the module's goals (or ``AveragedGoal``) built on ``MissingJoint`` blocks:
+        ``blocks``, ``unit``, ``scores(b)``, ``picked(b, cell)``, ``reason(...)``. Its
+        blocks' covariances are conditioned on the picks (changed in place).
+    count : int
+        Most picks; fewer come back when fewer candidates bring ``USEFUL_BENEFIT``.
+    cell_costs : list of ndarray or None, default=None
+        Cost of each block's cells (default 1 each); the ranking score is benefit / cost.
+
+    Returns
+    -------
+    list of tuple
+        ``(block, cell, benefit, benefit_per_cost, std, reason)`` per pick, best first;
+        ``std`` is the cell's std before any pick.
+    """
+    blocks = rule.blocks
+    if cell_costs is None:
+        cell_costs = [np.ones(len(block.cells)) for block in blocks]
+    stds = [np.sqrt(np.clip(np.diag(block.cov), 0.0, None)) for block in blocks]
+    allowed = [_candidates(rule, b) for b in range(len(blocks))]
+    scores = [rule.scores(b) for b in range(len(blocks))]
+    ranked = []
+    for _ in range(count):
+        best = None
+        for b in range(len(blocks)):
+            useful = allowed[b] & (np.abs(scores[b]) >= USEFUL_BENEFIT[rule.unit])
+            value = np.where(useful, scores[b] / cell_costs[b], -np.inf)
+            if not len(value):
+                continue
+            cell = int(np.argmax(value))  # first of ties: grid order, deterministic
+            if np.isfinite(value[cell]) and (best is None or value[cell] > best[2]):
+                best = (b, cell, float(value[cell]))
+        if best is None:
+            break
+        b, cell, per_cost = best
+        benefit = abs(float(scores[b][cell]))
+        std = float(stds[b][cell])
+        ranked.append((b, cell, benefit, per_cost, std, rule.reason(b, cell, benefit, std)))
+        allowed[b][cell] = False
+        rule.picked(b, cell)
+        scores[b] = rule.scores(b)
+    return ranked
+
+
 def pick_next(
     surrogate,
     count=5,
@@ -449,6 +571,7 @@ def pick_next(
     random_state=0,
     host=None,
     new_hosts=None,
+    kernels=N_PLAUSIBLE,
 ):
     """A ranked batch of missing cells worth calculating next.
 
@@ -478,6 +601,10 @@ def pick_next(
     new_hosts : NewHostPlan or None, default=None
         Hosts with no computed cell (``new_hosts.plan_new_hosts``): their cells join
         the candidates, predicted by the plan's model.
+    kernels : int, default=N_PLAUSIBLE
+        Plausible versions of the model the benefit is averaged over, the fitted one
+        included (``AveragedGoal``; module docstring, "Robust picks"); 1: the fitted
+        model alone. Only stages learned from few elements have versions.
 
     Returns
     -------
@@ -489,7 +616,8 @@ def pick_next(
         ``scenario`` and a short ``reason`` (quoting the row's ``std``). Only picks
         worth at least ``USEFUL_BENEFIT`` of their unit are listed: fewer than ``count``
         rows come back when fewer cells would teach anything noticeable.
-        ``attrs["candidates"]`` holds the number of missing cells weighed.
+        ``attrs["candidates"]`` holds the number of missing cells weighed,
+        ``attrs["kernels"]`` the number of versions the benefit was averaged over.
 
     Raises
     ------
@@ -553,58 +681,44 @@ def pick_next(
                 f"{', '.join(dict.fromkeys(grid['host']))}, or name a new host with its formula."
             )
         grid = grid[grid["host"] == host].reset_index(drop=True)
-    blocks = missing_joints(surrogate, grid, methods, quantities)
-    if goal == "table":
-        rule = _TableGoal(blocks)
-    elif goal == "window":
-        rule = _WindowGoal(blocks, low, high)
-    else:
-        known = surrogate._known(table[list(REQUIRED_COLUMNS)])
-        rule = _SiteGoal(blocks, grid, known, set(site_qs), random_state)
-    # a cell's value and std are reported as they were before any pick
-    summaries = [(block.mean.copy(), np.sqrt(np.clip(np.diag(block.cov), 0.0, None))) for block in blocks]
-    allowed = [
-        rule.candidate_mask(b) if isinstance(rule, _SiteGoal) else np.ones(len(block.cells), dtype=bool)
-        for b, block in enumerate(blocks)
-    ]
-    candidates = [mask.copy() for mask in allowed]
+    versions = plausible_surrogates(surrogate, n_versions=_check_versions(kernels), random_state=random_state)
+    rules = []
+    for version in versions:
+        blocks = missing_joints(version, grid, methods, quantities)
+        if goal == "table":
+            rules.append(_TableGoal(blocks))
+        elif goal == "window":
+            rules.append(_WindowGoal(blocks, low, high))
+        else:
+            known = surrogate._known(table[list(REQUIRED_COLUMNS)])
+            rules.append(_SiteGoal(blocks, grid, known, set(site_qs), random_state))
+    rule = rules[0] if len(rules) == 1 else AveragedGoal(rules)
+    blocks = rule.blocks
+    # a cell's value is reported as it was before any pick, by the fitted model
+    means = [block.mean.copy() for block in blocks]
     cell_costs = [
         np.array([float(costs.get(name, 1.0)) for name in block.cells["method"]]) for block in blocks
     ]
-    scores = [rule.scores(b) for b in range(len(blocks))]
+    ranked = greedy_batch(rule, count, cell_costs)
     records = []
-    for rank in range(1, count + 1):
-        best = None
-        for b in range(len(blocks)):
-            useful = allowed[b] & (np.abs(scores[b]) >= USEFUL_BENEFIT[rule.unit])
-            value = np.where(useful, scores[b] / cell_costs[b], -np.inf)
-            if not len(value):
-                continue
-            cell = int(np.argmax(value))  # first of ties: grid order, deterministic
-            if np.isfinite(value[cell]) and (best is None or value[cell] > best[2]):
-                best = (b, cell, float(value[cell]))
-        if best is None:
-            break
-        b, cell, per_cost = best
+    for rank, (b, cell, benefit, per_cost, std, reason) in enumerate(ranked, start=1):
         block = blocks[b]
-        benefit = abs(float(scores[b][cell]))
         row = dict(zip(KEY_COLUMNS, block.cells.loc[cell, list(KEY_COLUMNS)]))
         row.update(
             rank=rank,
-            value=float(summaries[b][0][cell]),
-            std=float(summaries[b][1][cell]),
+            value=float(means[b][cell]),
+            std=std,
             cost=float(cell_costs[b][cell]),
             benefit=benefit,
-            reason=rule.reason(b, cell, benefit, float(summaries[b][1][cell])),
+            reason=reason,
             benefit_unit=rule.unit,
             benefit_per_cost=per_cost,
             scenario=block.cells.at[cell, "scenario"],
         )
         records.append(row)
-        allowed[b][cell] = False
-        rule.picked(b, cell)
-        scores[b] = rule.scores(b)
     picks = pd.DataFrame(records, columns=list(PICK_COLUMNS))
     # how many missing cells were weighed, so that an empty or short list can say why
-    picks.attrs["candidates"] = int(sum(int(mask.sum()) for mask in candidates))
+    picks.attrs["candidates"] = int(sum(int(_candidates(rule, b).sum()) for b in range(len(blocks))))
+    # how many plausible versions of the model the benefits were averaged over
+    picks.attrs["kernels"] = len(versions)
     return picks

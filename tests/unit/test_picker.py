@@ -25,8 +25,9 @@ from sklearn.gaussian_process.kernels import RBF, ConstantKernel, WhiteKernel
 from threadpoolctl import threadpool_limits
 
 from dopantgap.calibration import ScenarioCalibration
-from dopantgap.learners import BoostLearner
+from dopantgap.learners import BoostLearner, ShiftPriorLearner
 from dopantgap.errors import DopantgapError
+import dopantgap.picker as picker_module
 from dopantgap.picker import (
     PICK_COLUMNS,
     USEFUL_BENEFIT,
@@ -45,6 +46,7 @@ from dopantgap.picker import (
 from dopantgap.joint import missing_joint
 from dopantgap.store import load_model
 from dopantgap.surrogate import Surrogate, _Stage
+from dopantgap.surrogate.plausible import plausible_surrogates, uncertain_stages
 from dopantgap.table import KEY_COLUMNS
 
 
@@ -256,6 +258,67 @@ def test_batch_spreads_over_elements_unlike_top_k():
     assert batch["benefit"].iat[0] == pytest.approx(1 + 3 * 0.95**2)
 
 
+def _versions(monkeypatch, models):
+    """Make pick_next average over the hand-built ``models`` (its plausible versions)."""
+    monkeypatch.setattr(picker_module, "plausible_surrogates", lambda *args, **kwargs: list(models))
+
+
+def test_benefit_averaged_over_coinciding_kernels_is_the_single_kernel_benefit(monkeypatch):
+    """Rasmussen & Williams 2006, eq. 2.24: observing cell i lowers the summed variance by
+    sum_j C[j, i]^2 / C[i, i]; averaged over kernels that coincide it is the same number,
+    pick after pick."""
+    sites = ["s1", "s2"]
+    elements = ["Ti", "V", "Cr"]
+    rng = np.random.default_rng(11)
+    factor = rng.normal(size=(6, 6))
+    cov = factor @ factor.T / 6 + 0.05 * np.eye(6)
+    stages = [("gga", "direct", padded(np.zeros(6), 2), padded(cov, 2))]
+    single = pick_next(hand_surrogate(sites, elements, stages), count=4, element_symbols=elements, kernels=1)
+    _versions(monkeypatch, [hand_surrogate(sites, elements, stages) for _ in range(3)])
+    averaged = pick_next(hand_surrogate(sites, elements, stages), count=4, element_symbols=elements)
+    by_hand = np.sum(cov**2, axis=0) / np.diag(cov)
+    assert averaged["benefit"].iat[0] == pytest.approx(by_hand.max(), rel=1e-12)
+    pd.testing.assert_frame_equal(
+        averaged[["element", "site", "benefit", "std", "value"]], single[["element", "site", "benefit", "std", "value"]]
+    )
+    assert averaged.attrs["kernels"] == 3 and single.attrs["kernels"] == 1
+    assert list(averaged["reason"]) == list(single["reason"])
+
+
+def test_batch_spreads_across_columns_when_the_kernels_disagree(monkeypatch):
+    """Column s1 dominates the variance (1.0 per cell against 0.3) and is uncorrelated with
+    s2 and s3. One plausible kernel holds its four cells independent, the other nearly
+    identical. Trusting the first alone, the batch spends all four picks on s1; averaged
+    over both, its second pick is worth (1.0 + ~0) / 2 and the batch moves to the other
+    columns (first pick of s2: 0.3 + 3 * 0.3 * 0.8^2 = 0.876 eV^2 under both kernels)."""
+    sites = ["s1", "s2", "s3"]
+    elements = ["Ti", "V", "Cr", "Mn"]
+
+    def covariance(s1_correlation):
+        cov = np.zeros((12, 12))
+        for site, (variance, correlation) in enumerate([(1.0, s1_correlation), (0.3, 0.8), (0.3, 0.8)]):
+            cells = [site + 3 * element for element in range(4)]  # element-major, 3 sites each
+            block = variance * (correlation + (1 - correlation) * np.eye(4))
+            cov[np.ix_(cells, cells)] = block
+        return cov
+
+    def model(s1_correlation):
+        stages = [("gga", "direct", padded(np.zeros(12), 3), padded(covariance(s1_correlation), 3))]
+        return hand_surrogate(sites, elements, stages)
+
+    trusting = pick_next(model(0.0), count=4, element_symbols=elements, kernels=1)
+    assert list(trusting["site"]) == ["s1"] * 4
+    _versions(monkeypatch, [model(0.0), model(0.99)])
+    robust = pick_next(model(0.0), count=4, element_symbols=elements)
+    assert set(robust["site"]) == {"s1", "s2", "s3"}
+    assert list(robust["site"]).count("s1") == 2
+    # the first pick is worth the mean of its two benefits: 1.0 and 1 + 3 * 0.99^2
+    assert robust["benefit"].iat[0] == pytest.approx((1.0 + 1.0 + 3 * 0.99**2) / 2)
+    assert robust["benefit"].iat[1] == pytest.approx(0.3 + 3 * 0.3 * 0.8**2)
+    # rows are the fitted (first) kernel's: its std, not an average
+    np.testing.assert_allclose(robust.loc[robust["site"] == "s1", "std"], 1.0)
+
+
 def test_site_goal_picks_the_undecided_element():
     sites = ["s1", "s2"]
     means = [1.0, 1.0, 1.0, 2.0]  # Ti: a tie; V: s1 far below s2
@@ -447,7 +510,8 @@ def test_demo_predicted_reduction_matches_a_refit_with_the_pick(demo):
     demo = copy.copy(demo)
     demo.calibration_ = copy.copy(demo.calibration_)
     demo.calibration_.difficulty_ = {}
-    picks = pick_next(demo, count=6, method="hyb")
+    # one kernel: eq. 2.24 describes the fitted model's own covariance
+    picks = pick_next(demo, count=6, method="hyb", kernels=1)
     computed = computed_keys(demo)
     chosen = None
     for position, pick in picks.iterrows():
@@ -488,6 +552,58 @@ def test_demo_predicted_reduction_matches_a_refit_with_the_pick(demo):
     after = fresh.predict(grid)
     drop = float(np.sum(before["std"] ** 2) - np.sum(after["std"] ** 2))
     assert drop == pytest.approx(chosen["benefit"], rel=1e-6)
+
+
+def test_plausible_versions_retune_only_the_stages_learned_from_few_elements(demo):
+    """The demo's expensive level covers a few elements: its stages get re-tuned kernels,
+    conditioned on all of their rows; the cheap level's stages are shared untouched."""
+    def process(learner):
+        return getattr(learner, "residual_learner_", learner)
+
+    keys = uncertain_stages(demo)
+    assert keys and {method for _quantity, method in keys} == {"hyb"}
+    versions = plausible_surrogates(demo, n_versions=3, random_state=0)
+    assert len(versions) == 3 and versions[0] is demo
+    for version in versions[1:]:
+        assert version.table_ is demo.table_ and version.calibration_ is demo.calibration_
+        for key, stage in demo.stages_.items():
+            if key not in keys:
+                assert version.stages_[key] is stage
+                continue
+            fitted, retuned = process(stage.learner).regressor_, process(version.stages_[key].learner).regressor_
+            assert not np.allclose(fitted.kernel_.theta, retuned.kernel_.theta)
+            np.testing.assert_array_equal(retuned.X_train_, fitted.X_train_)
+    again = plausible_surrogates(demo, n_versions=3, random_state=0)
+    for first, second in zip(versions[1:], again[1:]):
+        for key in keys:
+            np.testing.assert_array_equal(
+                process(first.stages_[key].learner).kernel_.theta, process(second.stages_[key].learner).kernel_.theta
+            )
+    assert plausible_surrogates(demo, n_versions=1) == [demo]
+    with pytest.raises(DopantgapError, match="kernels must be a whole number"):
+        pick_next(demo, kernels=0)
+
+
+def test_a_correction_kept_at_its_shifts_gets_versions_with_the_learner_on_top(demo):
+    """Kept at the column shifts alone, a correction holds an element's cells independent,
+    and a batch can spend itself on one element's columns; its versions put the Gaussian
+    process on top of the shifts, as a refit does once more elements are computed."""
+    key = uncertain_stages(demo)[0]
+    stage = demo.stages_[key]
+    cells, target, _kind = demo._stage_rows(demo.table_, key[0], demo.quantity_levels_[key[0]].index(key[1]))
+    X = stage.encoder.transform(cells)
+    shifts_only = copy.copy(demo)
+    shifts_only.stages_ = dict(demo.stages_)
+    shifts_only.stages_[key] = copy.copy(stage)
+    shifts_only.stages_[key].learner = ShiftPriorLearner(label_column=stage.learner.label_column).fit(X, target)
+    assert key in uncertain_stages(shifts_only)
+    versions = plausible_surrogates(shifts_only, n_versions=3, random_state=1)
+    for version in versions[1:]:
+        learner = version.stages_[key].learner
+        assert isinstance(learner, ShiftPriorLearner) and learner.residual_learner_ is not None
+        assert len(learner.residual_learner_.regressor_.X_train_) == len(cells)
+        # the shifts themselves are the fitted model's: the same rows, the same rule
+        assert learner.shifts_ == shifts_only.stages_[key].learner.shifts_
 
 
 def test_boosted_learner_is_served():
