@@ -45,8 +45,6 @@ from dopantgap.replay import replay, replay_text, write_replay
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import close_site_gaps
 
-TARGET_TABLE_RATIO = 0.85
-
 
 def noise_floor(world, hidden, against="truth"):
     """MAE of an oracle that knows the true correction hyb - gga but only the noisy gga
@@ -75,6 +73,9 @@ def main(argv=None):
                         help="score against the noise-free truth (default) or the noisy completed table")
     parser.add_argument("--world", choices=("demo", "close-sites"), default="demo",
                         help="the demo world, or the same with a third of its site preferences nearly undecided")
+    parser.add_argument("--goals", default="table,site", help="picker goals replayed (default: table,site)")
+    parser.add_argument("--relearn", choices=("refresh", "fit"), default="refresh",
+                        help="refresh the model after each round (default) or fit it in full, as a user does")
     parser.add_argument("--out", metavar="DIR", default=None,
                         help="also write the replay's files (curves, learning_curves.png) into DIR")
     arguments = parser.parse_args(argv)
@@ -102,10 +103,10 @@ def main(argv=None):
 
     started = time.perf_counter()
     result = replay(
-        table, goal=("table", "site"), rounds=arguments.rounds, per_round=arguments.per_round,
+        table, goal=tuple(arguments.goals.split(",")), rounds=arguments.rounds, per_round=arguments.per_round,
         method="hyb", n_random_seeds=arguments.seeds, random_state=arguments.seed,
         progress=Clock(), estimator=Surrogate(random_state=arguments.seed), keep_fraction=arguments.keep_fraction,
-        reference=reference,
+        reference=reference, relearn=arguments.relearn,
     )
     elapsed = time.perf_counter() - started
     fit_seconds = steps[0] - started
@@ -118,39 +119,51 @@ def main(argv=None):
     print()
     print(replay_text(result))
     curves = result.curves
+    goals = list(dict.fromkeys(curves.loc[curves["strategy"] != "random", "strategy"]))
     print("learning curves (random: median over seeds):")
     randoms = curves[curves["strategy"] == "random"].groupby("round")[["n_revealed", "error", "decided"]].median()
-    print(f"  {'round':>5} {'picks':>5} {'table MAE':>10} {'random MAE':>11} {'site decided':>13} {'random decided':>15}")
-    table_curve = curves[curves["strategy"] == "table"].set_index("round")
-    site_curve = curves[curves["strategy"] == "site"].set_index("round")
+    by_goal = {goal: curves[curves["strategy"] == goal].set_index("round") for goal in goals}
+    header = f"  {'round':>5} {'picks':>5} {'random MAE':>11} {'random decided':>15}"
+    for goal in goals:
+        header += f" {goal + ' MAE':>10} {goal + ' decided':>13}"
+    print(header)
     for number in randoms.index:
-        print(f"  {number:>5} {int(randoms.at[number, 'n_revealed']):>5} {table_curve.at[number, 'error']:>10.4f} "
-              f"{randoms.at[number, 'error']:>11.4f} {int(site_curve.at[number, 'decided']):>13} "
-              f"{randoms.at[number, 'decided']:>15.1f}")
+        line = (f"  {number:>5} {int(randoms.at[number, 'n_revealed']):>5} {randoms.at[number, 'error']:>11.4f} "
+                f"{randoms.at[number, 'decided']:>15.1f}")
+        for goal in goals:
+            line += f" {by_goal[goal].at[number, 'error']:>10.4f} {int(by_goal[goal].at[number, 'decided']):>13}"
+        print(line)
     summary = result.summary.set_index(["goal", "metric"])
-    table_ratio = summary.at[("table", "error"), "ratio"]
-    site_picker = summary.at[("site", "decided"), "picker_final"]
-    site_random = summary.at[("site", "decided"), "random_median_final"]
-    picks = int(summary.at[("table", "error"), "picks"])
-    floor = noise_floor(world, result.hidden, arguments.against)
-    random_final = summary.at[("table", "error"), "random_median_final"]
-    picker_final = summary.at[("table", "error"), "picker_final"]
     print()
-    levels_of_noise = 1 if arguments.against == "truth" else 2
-    print(f"(extra) floor of the error: {floor:.4f} eV = MAE of gga value + TRUE correction against the hyb")
-    print(f"        {arguments.against} of the hidden cells (independent noise of sd 0.05 eV on {levels_of_noise} level(s) "
-          f"cannot be learned;")
-    print(f"        sqrt(2/pi) * 0.05 * sqrt({levels_of_noise}) = "
-          f"{math.sqrt(2 / math.pi) * 0.05 * math.sqrt(levels_of_noise):.4f} eV); "
-          f"best reachable ratio ~ {floor / random_final:.2f}")
-    gap = (random_final - picker_final) / (random_final - floor) if random_final > floor else float("nan")
-    print(f"(extra) share of the random median's excess error over the floor removed by the table goal: {gap:.0%}")
-    print()
-    print(f"targets after {picks} hyb calculations:")
-    print(f"  table goal MAE / random median MAE = {table_ratio:.3f} (target <= {TARGET_TABLE_RATIO}): "
-          f"{'met' if table_ratio <= TARGET_TABLE_RATIO else 'NOT met'}")
-    print(f"  site goal decided {site_picker:.0f} vs random median {site_random:.1f} (target: more): "
-          f"{'met' if site_picker > site_random else 'NOT met'}")
+    if "table" in goals:
+        random_final = summary.at[("table", "error"), "random_median_final"]
+        picker_final = summary.at[("table", "error"), "picker_final"]
+        floor = noise_floor(world, result.hidden, arguments.against)
+        levels_of_noise = 1 if arguments.against == "truth" else 2
+        print(f"(extra) true oracle: {floor:.4f} eV = MAE of gga value + TRUE correction against the hyb")
+        print(f"        {arguments.against} of the hidden cells (independent noise of sd 0.05 eV on {levels_of_noise} "
+              f"level(s) cannot be learned;")
+        print(f"        sqrt(2/pi) * 0.05 * sqrt({levels_of_noise}) = "
+              f"{math.sqrt(2 / math.pi) * 0.05 * math.sqrt(levels_of_noise):.4f} eV)")
+        gap = (random_final - picker_final) / (random_final - floor) if random_final > floor else float("nan")
+        print(f"(extra) share of the random median's excess error over the true oracle removed by the table goal: "
+              f"{gap:.0%}")
+        ratios = []
+        for number in randoms.index[1:]:
+            ratios.append(by_goal["table"].at[number, "error"] / randoms.at[number, "error"])
+        share = summary.at[("table", "error"), "share_removed"]
+        print()
+        print("issue 16 targets (this replay seed; the targets read the median over replay seeds):")
+        print(f"  table goal / random median MAE per round: {', '.join(f'{r:.3f}' for r in ratios)} "
+              f"(target <= 1.0 every round): {'met' if max(ratios) <= 1.0 else 'NOT met'}")
+        print(f"  share of random's excess over the measured floor removed: {share:.0%} (target >= 75 %): "
+              f"{'met' if share >= 0.75 else 'NOT met'}")
+    if "site" in goals:
+        site_picker = summary.at[("site", "decided"), "picker_final"]
+        site_random = summary.at[("site", "decided"), "random_median_final"]
+        print(f"  site goal decided {site_picker:.0f} vs random median {site_random:.1f} after "
+              f"{int(summary.at[('site', 'decided'), 'picks'])} picks (the 1.5x target is read on "
+              f"--world close-sites after 20 picks, counting new decisions)")
 
 
 if __name__ == "__main__":

@@ -20,9 +20,13 @@ hidden (``element_symbols``), and its picks are filtered to revealable cells.
 
 Rounds
 ------
-The surrogate is fitted once on the visible table; after each round it is relearned
-with :meth:`Surrogate.refreshed` on the grown table (hyperparameters and calibration
-kept), for the picker's next round and for the figures.
+The surrogate is fitted once on the visible table; after each round it is relearned on
+the grown table, for the picker's next round and for the figures: by default with
+:meth:`Surrogate.refreshed` (hyperparameters and calibration kept until a stage outgrows
+them; seconds), or with ``relearn="fit"`` by a full fit, the loop a user runs between
+rounds (``next``, ``add``, ``fit``). The two can differ where a refresh re-tunes a stage
+that has outgrown its hyperparameters: ``benchmarks/bench_replay.py --relearn`` measures
+both.
 
 Figures per strategy, seed and round (``curves``)
 --------------------------------------------------
@@ -48,8 +52,10 @@ interpolation between rounds, first crossing; a picker that finds nothing worth
 computing spends nothing in a round, so it may end with fewer picks than random). A picker that never reached random's
 final figure saved nothing (0, with a ``note`` saying so): a saving is never negative.
 For the error, also the floor (``oracle_floor``: each hidden cell predicted with every
-other hidden cell known, the lowest error any picker could leave) and the share of
-random's excess error over that floor the picker removed.
+other hidden cell known, the lowest error any picker could leave), and the share of
+random's excess error the picker removed, each strategy's excess read over the floor of
+the very cells it still hides (curve column ``floor_left``), so that revealing the
+hardest cells first is not mistaken for learning.
 """
 
 import json
@@ -70,6 +76,7 @@ from dopantgap.surrogate import Surrogate, order_levels
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
 
 __all__ = [
+    "RELEARN",
     "CURVE_COLUMNS",
     "SUMMARY_COLUMNS",
     "ReplayResult",
@@ -83,7 +90,7 @@ __all__ = [
 
 CURVE_COLUMNS = (
     "strategy", "seed", "round", "n_revealed", "cost_spent", "error", "rmse", "mean_std",
-    "decided", "decided_wrong", "n_site_questions", "n_hidden_left",
+    "decided", "decided_wrong", "n_site_questions", "n_hidden_left", "floor_left",
 )
 SUMMARY_COLUMNS = (
     "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
@@ -91,6 +98,8 @@ SUMMARY_COLUMNS = (
     "share_removed", "note",
 )
 RANDOM = "random"
+#: How a replay's model learns each round's new cells (``replay(relearn=...)``).
+RELEARN = ("refresh", "fit")
 # Groups the oracle floor hides the hidden cells in, one refreshed model each (common
 # practice, no source: more groups move the floor little and cost a refit each).
 _FLOOR_GROUPS = 5
@@ -214,6 +223,11 @@ class _Scorer:
         keys = remaining[list(KEY_COLUMNS)].itertuples(index=False, name=None)
         return np.array([self.reference[key] for key in keys], dtype=float)
 
+    def absolute_errors(self, surrogate, cells):
+        """|predicted - scored value| of each of ``cells`` (eV)."""
+        predicted = surrogate.predict(cells[list(KEY_COLUMNS)])
+        return np.abs(predicted["value"].to_numpy() - self._scored_values(cells))
+
     def __call__(self, surrogate, remaining, sites=True):
         figures = {"error": np.nan, "rmse": np.nan, "mean_std": np.nan}
         if len(remaining):
@@ -289,7 +303,7 @@ def _picker_choice(surrogate, remaining, count, goal, method, cost, window, elem
 
 
 def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, method, cost_per_cell,
-                  cost, window, element_symbols, scorer, random_state, progress):
+                  cost, window, element_symbols, scorer, random_state, progress, relearn):
     curves, revealed = [], []
     grown = visible
     remaining = hidden.reset_index(drop=True)
@@ -324,7 +338,7 @@ def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, meth
         grown = pd.concat([grown, picked], ignore_index=True)
         remaining = remaining.drop(index=remaining.index[chosen]).reset_index(drop=True)
         n_revealed += len(chosen)
-        surrogate = base.refreshed(grown)
+        surrogate = relearn(grown)
         figures = scorer(surrogate, remaining)
         curves.append({"strategy": strategy, "seed": seed, "round": round_number, "n_revealed": n_revealed,
                        "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
@@ -347,15 +361,16 @@ def _crossing(n_picks, figures, target, higher_is_better):
     return x0 + (target - y0) * (x1 - x0) / (y1 - y0)
 
 
-def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROUPS):
-    """The lowest error a picker could leave in a replay, measured on the data.
+def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROUPS, relearn=None):
+    """The lowest error a picker could leave in a replay, measured on the data, per hidden cell.
 
-    The hidden cells are cut into ``groups`` random groups; for each group the base model
-    is refreshed (``Surrogate.refreshed``) on the visible cells and every other hidden
-    cell, and the group is predicted. What is left is the table's own noise and what the
-    model cannot learn even with all but a few cells computed. It is averaged over every
-    hidden cell, while a strategy's error is over the cells it has not revealed yet: a
-    picker that reveals the hardest cells first can end below it.
+    The hidden cells are cut into ``groups`` random groups; for each group the model is
+    relearned (as the replay relearns it between rounds: ``relearn``) on the visible
+    cells and every other hidden cell, and the group is predicted. What is left is the
+    table's own noise and what the model cannot learn even with all but a few cells
+    computed. A strategy's error is over the cells it has not revealed yet, so the replay
+    compares it with the mean of these errors over the same cells (``floor_left``): a
+    picker that reveals the hardest cells first is not credited for leaving easy ones.
 
     Parameters
     ----------
@@ -364,25 +379,39 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROU
     visible, hidden : DataFrame
         The replay's visible and hidden cells (long tables).
     scorer : callable
-        The replay's scorer (its figures: ``error`` is the MAE of the cells it is given).
+        The replay's scorer (``absolute_errors`` of cells against the scored values).
     random_state : int
     groups : int, default=5
+    relearn : callable or None, default=None
+        Table -> fitted model; None: ``base.refreshed``.
 
     Returns
     -------
-    float
-        Mean absolute error (eV) over all hidden cells, weighted by cell.
+    ndarray of shape (len(hidden),)
+        Absolute error (eV) of each hidden cell, in ``hidden``'s order.
     """
+    relearn = base.refreshed if relearn is None else relearn
     hidden = hidden.reset_index(drop=True)
     rng = np.random.default_rng((random_state, 7))
     group_of = rng.permutation(len(hidden)) % max(1, min(groups, len(hidden)))
-    total = 0.0
+    errors = np.full(len(hidden), np.nan)
     for group in np.unique(group_of):
         held = group_of == group
         known = pd.concat([visible, hidden[~held]], ignore_index=True)
-        figures = scorer(base.refreshed(known), hidden[held].reset_index(drop=True), sites=False)
-        total += figures["error"] * int(held.sum())
-    return total / len(hidden)
+        errors[held] = scorer.absolute_errors(relearn(known), hidden[held].reset_index(drop=True))
+    return errors
+
+
+def _floor_left(curves, picks, hidden, floor_errors):
+    """Mean floor error over the cells each curve row still hides (NaN when none)."""
+    position = {key: i for i, key in enumerate(hidden[list(KEY_COLUMNS)].itertuples(index=False, name=None))}
+    values = []
+    for strategy, seed, round_number in curves[["strategy", "seed", "round"]].itertuples(index=False, name=None):
+        shown = picks[(picks["strategy"] == strategy) & (picks["seed"] == seed) & (picks["round"] <= round_number)]
+        left = np.ones(len(hidden), dtype=bool)
+        left[[position[key] for key in shown[list(KEY_COLUMNS)].itertuples(index=False, name=None)]] = False
+        values.append(float(np.mean(floor_errors[left])) if left.any() else math.nan)
+    return values
 
 
 def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
@@ -397,8 +426,10 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
     metric : {"error", "decided"}
     cost_per_cell : float, default=1.0
     floor : float, default=nan
-        The error floor (``oracle_floor``); with it, the error row gets the share of
-        random's excess over the floor that the picker removed.
+        The error floor over all hidden cells (the mean of ``oracle_floor``), reported in
+        the error row. The share of random's excess removed reads each strategy's excess
+        over the floor of the cells it still hides (the curves' ``floor_left``): 1 -
+        picker's excess / median of random's excesses.
 
     Returns
     -------
@@ -427,8 +458,13 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
     else:
         saved = random_picks_spent - needed
     share = math.nan
-    if metric == "error" and not math.isnan(floor) and random_final > floor:
-        share = (random_final - picker_final) / (random_final - floor)
+    if metric == "error" and "floor_left" in curves and curves["floor_left"].notna().any():
+        last = final["round"]
+        random_excess = float(np.median(
+            (randoms.loc[randoms["round"] == last, metric] - randoms.loc[randoms["round"] == last, "floor_left"])
+        ))
+        if random_excess > 0:
+            share = 1.0 - (picker_final - float(final["floor_left"])) / random_excess
     return {
         "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
         "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
@@ -440,7 +476,7 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
 
 def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,
            random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None, reference=None,
-           floor=True):
+           floor=True, relearn="refresh"):
     """Replay a completed table: the picker's rounds against random picks.
 
     Parameters
@@ -478,6 +514,11 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         invented world, its noise-free truth. The picker only ever sees ``table``.
     floor : bool, default=True
         Measure the error floor (``oracle_floor``: a few refreshed models more).
+    relearn : {"refresh", "fit"}, default="refresh"
+        How the model learns each round's new cells: ``Surrogate.refreshed`` (seconds;
+        hyperparameters and calibration kept until a stage outgrows them), or a full
+        ``fit`` of the grown table, as a user does between rounds (``next``, ``add``,
+        ``fit``; about one fit per strategy and round).
 
     Returns
     -------
@@ -493,6 +534,8 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
             raise DopantgapError(f"--goal: {name!r} is not a goal; choose from {', '.join(GOALS)}.")
     if not goals or len(set(goals)) != len(goals):
         raise DopantgapError("--goal: give one or more different goals, e.g. --goal table,site.")
+    if relearn not in RELEARN:
+        raise DopantgapError(f"--relearn: {relearn!r} is not a way to relearn; choose one of {', '.join(RELEARN)}.")
     rounds = _whole(rounds, "--rounds", 1)
     per_round = _whole(per_round, "--per-round", 1)
     n_random_seeds = _whole(n_random_seeds, "--seeds", 1)
@@ -509,8 +552,14 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     visible, hidden, method = hide_cells(table, method, keep_fraction, random_state, levels=estimator.levels)
     cost_per_cell = float(cost.get(method, 1.0))
     element_symbols = [s for s in dict.fromkeys(table["element"]) if s not in set(visible["element"])]
-    base = estimator.fit(visible.reset_index(drop=True))
+    base = clone(estimator).fit(visible.reset_index(drop=True))
     _tick(progress)
+
+    def relearned(grown):
+        if relearn == "fit":
+            return clone(estimator).fit(grown)
+        return base.refreshed(grown)
+
     if reference is not None:
         missing = [column for column in REQUIRED_COLUMNS if column not in reference.columns]
         if missing:
@@ -524,16 +573,19 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     for strategy, seed in strategies:
         part_curves, part_revealed = _run_strategy(
             strategy, seed, base, visible.reset_index(drop=True), hidden, rounds, per_round, method,
-            cost_per_cell, cost, window, element_symbols, scorer, random_state, progress,
+            cost_per_cell, cost, window, element_symbols, scorer, random_state, progress, relearned,
         )
         curves += part_curves
         revealed += part_revealed
     curves = pd.DataFrame(curves, columns=list(CURVE_COLUMNS))
     error_floor = math.nan
-    if floor and len(hidden):
-        error_floor = oracle_floor(base, visible.reset_index(drop=True), hidden, scorer, random_state)
     picks_columns = ["strategy", "seed", "round"] + list(REQUIRED_COLUMNS)
     picks = pd.concat(revealed, ignore_index=True) if revealed else pd.DataFrame(columns=picks_columns)
+    if floor and len(hidden):
+        floor_errors = oracle_floor(base, visible.reset_index(drop=True), hidden, scorer, random_state,
+                                    relearn=relearned)
+        error_floor = float(np.mean(floor_errors))
+        curves["floor_left"] = _floor_left(curves, picks, hidden.reset_index(drop=True), floor_errors)
     rows = []
     for name in goals:
         for metric in ("error", "decided"):
@@ -547,7 +599,7 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         "random_state": int(random_state), "keep_fraction": float(keep_fraction),
         "window": None if window is None else list(window) if not isinstance(window, str) else window,
         "scored_against": "completed table" if reference is None else "reference values",
-        "n_visible": int(len(visible)), "n_hidden": int(len(hidden)),
+        "n_visible": int(len(visible)), "n_hidden": int(len(hidden)), "relearn": relearn,
         "elements_all_hidden": element_symbols, "learner": base.learner_,
         "hiding_rule": (f"{method} cells hidden for all but a seeded {keep_fraction:.0%} of the elements "
                         f"that have them; every other method visible"),
@@ -557,6 +609,12 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
                         settings=settings)
 
 
+_RELEARN_WORDS = {
+    "refresh": "the model refreshed after each round (hyperparameters kept until a stage outgrows them)",
+    "fit": "the model fitted in full after each round",
+}
+
+
 def replay_text(result):
     """Plain-text summary of a replay, lines ending ``\\n``."""
     settings = result.settings
@@ -564,7 +622,8 @@ def replay_text(result):
         f"Replay of {settings['method']}: {settings['n_hidden']} cells hidden, {settings['n_visible']} visible "
         f"({settings['hiding_rule']}).",
         f"{settings['rounds']} rounds of {settings['per_round']} picks; random picks over "
-        f"{settings['n_random_seeds']} seeds among the same hidden cells (median shown).",
+        f"{settings['n_random_seeds']} seeds among the same hidden cells (median shown); "
+        f"{_RELEARN_WORDS[settings.get('relearn', 'refresh')]}.",
         f"Figures scored against the {settings.get('scored_against', 'completed table')}.",
         "",
         f"  {'goal':<8} {'figure':<8} {'picks':>5} {'picker':>9} {'random':>9} {'ratio':>6} "
@@ -612,11 +671,16 @@ def _round_lines(result):
     error_rows = result.summary[result.summary["metric"] == "error"]
     floor = float(error_rows["floor"].iat[0]) if len(error_rows) and "floor" in error_rows else math.nan
     if not math.isnan(floor):
-        lines.append(f"floor: {floor:.4f} eV, each hidden cell predicted with every other hidden cell known "
-                     "(over all hidden cells)")
+        lines.append(f"floor: {floor:.4f} eV over all hidden cells, each predicted with every other hidden "
+                     "cell known")
+        last = curves["round"].max()
         for row in error_rows.itertuples(index=False):
             share = "n/a (random at the floor)" if math.isnan(row.share_removed) else f"{row.share_removed:.0%}"
-            lines.append(f"  {row.goal}: share of random's excess error over the floor removed: {share}")
+            final = curves[(curves["strategy"] == row.goal) & (curves["round"] == last)]
+            left = float(final["floor_left"].iat[0]) if len(final) and "floor_left" in final else math.nan
+            over = f" (floor {left:.4f} eV over the cells it left hidden)" if not math.isnan(left) else ""
+            lines.append(f"  {row.goal}: share of random's excess error removed, each over the floor of the "
+                         f"cells it still hides: {share}{over}")
     return lines
 
 

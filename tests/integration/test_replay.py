@@ -154,15 +154,24 @@ def test_savings_interpolate_the_pickers_curve_to_randoms_final_figure():
     assert "nothing saved" in decided["note"]
 
 
-def test_savings_give_the_share_of_randoms_excess_removed():
-    rows = [{"strategy": "random", "seed": 0, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0}
-            for r, e in enumerate([1.0, 0.8, 0.6])]
-    rows += [{"strategy": "table", "seed": 0, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0}
-             for r, e in enumerate([1.0, 0.7, 0.5])]
-    error = savings(pd.DataFrame(rows), "table", "error", floor=0.2)
-    # random ends 0.4 above the floor, the picker 0.3: (0.6 - 0.5) / (0.6 - 0.2) removed (by hand)
-    assert math.isclose(error["share_removed"], 0.25) and error["floor"] == 0.2
-    assert math.isnan(savings(pd.DataFrame(rows), "table", "decided", floor=0.2)["share_removed"])
+def test_savings_give_the_share_of_randoms_excess_removed_over_the_same_cells():
+    def rows(strategy, seed, errors, floors):
+        return [{"strategy": strategy, "seed": seed, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0,
+                 "floor_left": f} for r, (e, f) in enumerate(zip(errors, floors))]
+
+    curves = pd.DataFrame(
+        rows("random", 0, [1.0, 0.8, 0.6], [0.2, 0.2, 0.2]) + rows("random", 1, [1.0, 0.9, 0.7], [0.2, 0.2, 0.1])
+        + rows("table", 0, [1.0, 0.7, 0.5], [0.2, 0.2, 0.2])
+    )
+    error = savings(curves, "table", "error", floor=0.2)
+    # random's excesses over the floors of the cells they left: 0.6 - 0.2 and 0.7 - 0.1, median 0.5;
+    # the picker's 0.5 - 0.2 = 0.3: 1 - 0.3 / 0.5 removed (by hand)
+    assert math.isclose(error["share_removed"], 0.4) and error["floor"] == 0.2
+    assert math.isnan(savings(curves, "table", "decided", floor=0.2)["share_removed"])
+    # a picker that only left the easy cells behind is not credited for it
+    easy = curves.copy()
+    easy.loc[(easy["strategy"] == "table") & (easy["round"] == 2), "floor_left"] = 0.0
+    assert math.isclose(savings(easy, "table", "error", floor=0.2)["share_removed"], 0.0, abs_tol=1e-12)
 
 
 def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):
@@ -172,6 +181,10 @@ def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):
     # strategy that knows the visible cells and a handful of picks
     assert floor.iat[0] < result.curves["error"].min()
     assert "floor:" in replay_text(result) and "[" in replay_text(result)
+    # before any pick every strategy hides every hidden cell: its floor is the whole floor
+    start = result.curves[result.curves["round"] == 0]
+    np.testing.assert_allclose(start["floor_left"], floor.iat[0], rtol=1e-12)
+    assert (result.curves["floor_left"] < result.curves["error"]).all()
 
 
 def test_write_replay_files(result, tmp_path):
@@ -239,3 +252,25 @@ def test_reference_values_change_the_score_and_nothing_the_picker_sees(completed
     assert (again.curves["error"] > result.curves["error"]).all()
     with pytest.raises(DopantgapError, match="every cell"):
         replay(completed, rounds=1, per_round=1, n_random_seeds=1, cost=COST, reference=shifted.iloc[:5])
+
+
+def test_relearn_fit_scores_each_round_with_a_full_fit_as_a_user_runs_it(completed):
+    """With relearn="fit", the figures after a round are those of a model fitted in full on
+    the visible cells plus the round's picks (next, add, fit), not of a refreshed one."""
+    estimator = Surrogate(learner="gp", n_folds=2, random_state=4)
+    result = replay(completed, goal="table", rounds=1, per_round=3, cost=COST, n_random_seeds=1,
+                    random_state=4, keep_fraction=0.25, estimator=estimator, floor=False, relearn="fit")
+    assert result.settings["relearn"] == "fit"
+    assert "fitted in full after each round" in replay_text(result)
+    visible, hidden, _method = hide_cells(completed, method="hyb", keep_fraction=0.25, random_state=4)
+    for strategy, seed in (("table", 0), ("random", 0)):
+        picked = result.picks[(result.picks["strategy"] == strategy) & (result.picks["seed"] == seed)]
+        grown = pd.concat([visible, picked.drop(columns=["strategy", "seed", "round"])], ignore_index=True)
+        model = Surrogate(learner="gp", n_folds=2, random_state=4).fit(grown.reset_index(drop=True))
+        left = hidden[~hidden.set_index(list(KEY_COLUMNS)).index.isin(picked.set_index(list(KEY_COLUMNS)).index)]
+        expected = float(np.mean(np.abs(model.predict(left[list(KEY_COLUMNS)])["value"].to_numpy()
+                                        - left["value"].to_numpy())))
+        curve = result.curves[(result.curves["strategy"] == strategy) & (result.curves["seed"] == seed)]
+        assert curve.loc[curve["round"] == 1, "error"].iat[0] == pytest.approx(expected, rel=1e-9)
+    with pytest.raises(DopantgapError, match="--relearn"):
+        replay(completed, rounds=1, per_round=1, n_random_seeds=1, cost=COST, relearn="sometimes")

@@ -72,6 +72,11 @@ def _add_replay_parser(commands):
         "--learner", choices=("auto", "gp", "boost"), default="auto", help="learner of the surrogate (default: auto)"
     )
     replay.add_argument("--window", default=None, metavar="QUANTITY:LOW:HIGH", help="window of the window goal, eV")
+    replay.add_argument(
+        "--relearn", choices=("refresh", "fit"), default="refresh",
+        help="after each round, refresh the model (seconds) or fit it in full as you would "
+        "between rounds (a fit per strategy and round) (default: refresh)",
+    )
     replay.add_argument("--out", default="replay", metavar="DIR", help="folder for the files (default: replay)")
     replay.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -156,12 +161,13 @@ def _command_replay(arguments, say):
     if bar is None:
         result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
                         cost=cost, n_random_seeds=seeds, random_state=seed, keep_fraction=keep,
-                        window=arguments.window, estimator=estimator)
+                        window=arguments.window, estimator=estimator, relearn=arguments.relearn)
     else:
         with bar(total, "replay", quiet=arguments.quiet) as progress:
             result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
                             cost=cost, n_random_seeds=seeds, random_state=seed, progress=progress,
-                            keep_fraction=keep, window=arguments.window, estimator=estimator)
+                            keep_fraction=keep, window=arguments.window, estimator=estimator,
+                            relearn=arguments.relearn)
     paths = write_replay(result, arguments.out)
     say(replay_text(result).rstrip("\n"))
     say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths.values())}")

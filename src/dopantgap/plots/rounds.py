@@ -21,7 +21,8 @@ def learning_curve_figure(curves, cost_unit="cost units", floor=None):
         Columns strategy, seed, round, cost_spent, error (eV), decided (count).
     cost_unit : str, default="cost units"
     floor : float or None, default=None
-        The replay's measured floor (``replay.oracle_floor``), drawn as a dashed line.
+        The replay's measured floor over all hidden cells (the mean of
+        ``replay.oracle_floor``), drawn as a dashed line.
 
     Returns
     -------
