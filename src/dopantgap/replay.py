@@ -21,12 +21,12 @@ hidden (``element_symbols``), and its picks are filtered to revealable cells.
 Rounds
 ------
 The surrogate is fitted once on the visible table; after each round it is relearned on
-the grown table, for the picker's next round and for the figures: by default with
-:meth:`Surrogate.refreshed` (hyperparameters and calibration kept until a stage outgrows
-them; seconds), or with ``relearn="fit"`` by a full fit, the loop a user runs between
-rounds (``next``, ``add``, ``fit``). The two can differ where a refresh re-tunes a stage
-that has outgrown its hyperparameters: ``benchmarks/bench_replay.py --relearn`` measures
-both.
+the grown table, for the picker's next round and for the figures: by default by a full
+fit, the loop a user runs between rounds (``next``, ``add``, ``fit``), or with
+``relearn="refresh"`` by :meth:`Surrogate.refreshed` (seconds instead of a fit per
+round; learner, correction form, hyperparameters and calibration kept until a stage
+outgrows them). The two tell different stories where a refit would change the model's
+form (``benchmarks/bench_replay.py --relearn`` measures both; DEVELOPERS.md).
 
 Figures per strategy, seed and round (``curves``)
 --------------------------------------------------
@@ -76,6 +76,7 @@ from dopantgap.surrogate import Surrogate, order_levels
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
 
 __all__ = [
+    "FLOOR_GROUPS",
     "RELEARN",
     "CURVE_COLUMNS",
     "SUMMARY_COLUMNS",
@@ -100,9 +101,9 @@ SUMMARY_COLUMNS = (
 RANDOM = "random"
 #: How a replay's model learns each round's new cells (``replay(relearn=...)``).
 RELEARN = ("refresh", "fit")
-# Groups the oracle floor hides the hidden cells in, one refreshed model each (common
-# practice, no source: more groups move the floor little and cost a refit each).
-_FLOOR_GROUPS = 5
+#: Groups the oracle floor hides the hidden cells in, one relearned model each (common
+#: practice, no source: more groups move the floor little and cost a refit each).
+FLOOR_GROUPS = 5
 # fewest elements that keep their replayed-level cells visible (common practice, no source)
 _KEEP_MIN_ELEMENTS = 2
 
@@ -361,7 +362,7 @@ def _crossing(n_picks, figures, target, higher_is_better):
     return x0 + (target - y0) * (x1 - x0) / (y1 - y0)
 
 
-def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROUPS, relearn=None):
+def oracle_floor(base, visible, hidden, scorer, random_state, groups=FLOOR_GROUPS, relearn=None, progress=None):
     """The lowest error a picker could leave in a replay, measured on the data, per hidden cell.
 
     The hidden cells are cut into ``groups`` random groups; for each group the model is
@@ -384,6 +385,8 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROU
     groups : int, default=5
     relearn : callable or None, default=None
         Table -> fitted model; None: ``base.refreshed``.
+    progress : object or None, default=None
+        Told ``update(1)`` after each group.
 
     Returns
     -------
@@ -399,6 +402,7 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=_FLOOR_GROU
         held = group_of == group
         known = pd.concat([visible, hidden[~held]], ignore_index=True)
         errors[held] = scorer.absolute_errors(relearn(known), hidden[held].reset_index(drop=True))
+        _tick(progress)
     return errors
 
 
@@ -476,7 +480,7 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
 
 def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,
            random_state=0, progress=None, keep_fraction=0.2, window=None, estimator=None, reference=None,
-           floor=True, relearn="refresh"):
+           floor=True, relearn="fit"):
     """Replay a completed table: the picker's rounds against random picks.
 
     Parameters
@@ -501,7 +505,8 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         (``reproducible.seed_integer``, checked before any work). The table's rows are
         put in ``reproducible.canonical_order`` first, so their order changes nothing.
     progress : object or None, default=None
-        Told ``update(1)`` after the fit and after each strategy round (``progress.bar``).
+        Told ``update(1)`` after the fit, after each strategy round and after each of the
+        floor's ``FLOOR_GROUPS`` models (``progress.bar``).
     keep_fraction : float, default=0.2
         See ``hide_cells``.
     window : tuple or str or None, default=None
@@ -514,11 +519,12 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         invented world, its noise-free truth. The picker only ever sees ``table``.
     floor : bool, default=True
         Measure the error floor (``oracle_floor``: a few refreshed models more).
-    relearn : {"refresh", "fit"}, default="refresh"
-        How the model learns each round's new cells: ``Surrogate.refreshed`` (seconds;
-        hyperparameters and calibration kept until a stage outgrows them), or a full
-        ``fit`` of the grown table, as a user does between rounds (``next``, ``add``,
-        ``fit``; about one fit per strategy and round).
+    relearn : {"fit", "refresh"}, default="fit"
+        How the model learns each round's new cells: a full ``fit`` of the grown table,
+        as a user does between rounds (``next``, ``add``, ``fit``; one fit per strategy
+        and round, and five for the floor), or ``Surrogate.refreshed`` (seconds;
+        learner, correction form, hyperparameters and calibration kept until a stage
+        outgrows them), a quick approximation that can tell another story.
 
     Returns
     -------
@@ -583,7 +589,7 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     picks = pd.concat(revealed, ignore_index=True) if revealed else pd.DataFrame(columns=picks_columns)
     if floor and len(hidden):
         floor_errors = oracle_floor(base, visible.reset_index(drop=True), hidden, scorer, random_state,
-                                    relearn=relearned)
+                                    relearn=relearned, progress=progress)
         error_floor = float(np.mean(floor_errors))
         curves["floor_left"] = _floor_left(curves, picks, hidden.reset_index(drop=True), floor_errors)
     rows = []

@@ -48,7 +48,7 @@ def result(completed):
     # no method given: the most costly one is replayed
     return replay(completed, goal=("table", "site"), rounds=ROUNDS, per_round=PER_ROUND, cost=COST,
                   n_random_seeds=SEEDS, random_state=4, keep_fraction=0.25,
-                  estimator=Surrogate(learner="gp", n_folds=2))
+                  estimator=Surrogate(learner="gp", n_folds=2), relearn="refresh")
 
 
 def test_hiding_rule_keeps_the_cheap_level_and_a_few_expensive_elements(completed):
@@ -100,7 +100,8 @@ def test_curves_have_the_documented_columns_and_rounds(result):
 
 def test_random_strategy_with_a_fixed_seed_is_reproducible(completed, result):
     again = replay(completed, goal="table", rounds=ROUNDS, per_round=PER_ROUND, n_random_seeds=SEEDS, cost=COST,
-                   random_state=4, keep_fraction=0.25, estimator=Surrogate(learner="gp", n_folds=2))
+                   random_state=4, keep_fraction=0.25, estimator=Surrogate(learner="gp", n_folds=2),
+                   relearn="refresh")
     for frame_a, frame_b in ((result.picks, again.picks), (result.curves, again.curves)):
         kept_a = frame_a[frame_a["strategy"].isin(["random", "table"])].reset_index(drop=True)
         kept_b = frame_b.reset_index(drop=True)
@@ -222,7 +223,7 @@ def test_cli_replay_end_to_end(tmp_path, capsys):
     write_table(world, table_path)
     out = tmp_path / "replay"
     status = main(["replay", str(table_path), "--goal", "table", "--rounds", "1", "--per-round", "2",
-                   "--seeds", "1", "--method", "hyb", "--learner", "gp", "--out", str(out)])
+                   "--seeds", "1", "--method", "hyb", "--learner", "gp", "--relearn", "refresh", "--out", str(out)])
     assert status == 0
     printed = capsys.readouterr().out
     assert "saved" in printed and "MAE eV" in printed
@@ -246,7 +247,7 @@ def test_reference_values_change_the_score_and_nothing_the_picker_sees(completed
     shifted["value"] = shifted["value"] + 0.3
     again = replay(completed, goal=("table", "site"), rounds=ROUNDS, per_round=PER_ROUND, cost=COST,
                    n_random_seeds=SEEDS, random_state=4, keep_fraction=0.25,
-                   estimator=Surrogate(learner="gp", n_folds=2), reference=shifted)
+                   estimator=Surrogate(learner="gp", n_folds=2), reference=shifted, relearn="refresh")
     pd.testing.assert_frame_equal(again.picks, result.picks)
     assert again.settings["scored_against"] == "reference values"
     assert (again.curves["error"] > result.curves["error"]).all()
@@ -259,8 +260,8 @@ def test_relearn_fit_scores_each_round_with_a_full_fit_as_a_user_runs_it(complet
     the visible cells plus the round's picks (next, add, fit), not of a refreshed one."""
     estimator = Surrogate(learner="gp", n_folds=2, random_state=4)
     result = replay(completed, goal="table", rounds=1, per_round=3, cost=COST, n_random_seeds=1,
-                    random_state=4, keep_fraction=0.25, estimator=estimator, floor=False, relearn="fit")
-    assert result.settings["relearn"] == "fit"
+                    random_state=4, keep_fraction=0.25, estimator=estimator, floor=False)
+    assert result.settings["relearn"] == "fit"  # the default: the loop a user runs
     assert "fitted in full after each round" in replay_text(result)
     visible, hidden, _method = hide_cells(completed, method="hyb", keep_fraction=0.25, random_state=4)
     for strategy, seed in (("table", 0), ("random", 0)):

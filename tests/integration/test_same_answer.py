@@ -68,7 +68,8 @@ def test_shuffled_rows_give_the_same_replay(table):
     for rows in (table, _shuffled(table, 2)):
         with threadpool_limits(limits=1):
             results.append(replay(rows, goal="table", rounds=1, per_round=2, n_random_seeds=1,
-                                  random_state=3, estimator=Surrogate(learner="gp", random_state=3)))
+                                  random_state=3, estimator=Surrogate(learner="gp", random_state=3),
+                                  relearn="refresh"))
     first, second = results
     pd.testing.assert_frame_equal(first.curves, second.curves)
     pd.testing.assert_frame_equal(first.picks, second.picks)

@@ -73,9 +73,9 @@ def _add_replay_parser(commands):
     )
     replay.add_argument("--window", default=None, metavar="QUANTITY:LOW:HIGH", help="window of the window goal, eV")
     replay.add_argument(
-        "--relearn", choices=("refresh", "fit"), default="refresh",
-        help="after each round, refresh the model (seconds) or fit it in full as you would "
-        "between rounds (a fit per strategy and round) (default: refresh)",
+        "--relearn", choices=("fit", "refresh"), default="fit",
+        help="after each round, fit the model in full as you would between rounds (a fit per "
+        "strategy and round), or only refresh it (seconds; can tell another story) (default: fit)",
     )
     replay.add_argument("--out", default="replay", metavar="DIR", help="folder for the files (default: replay)")
     replay.add_argument("--quiet", action="store_true", help="print nothing but errors")
@@ -142,7 +142,7 @@ def _command_replay(arguments, say):
     seed = _number_option(arguments.seed, "--seed", 0)
     keep = _number_option(arguments.keep_fraction, "--keep-fraction", 0.0, kind=float)
     from dopantgap.picker import parse_cost
-    from dopantgap.replay import replay, replay_text, write_replay
+    from dopantgap.replay import FLOOR_GROUPS, replay, replay_text, write_replay
     from dopantgap.surrogate import Surrogate
     from dopantgap.table import read_table
 
@@ -152,7 +152,7 @@ def _command_replay(arguments, say):
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
     estimator = Surrogate(learner=arguments.learner, random_state=seed)
-    total = 1 + rounds * (len(goals) + seeds)
+    total = 1 + rounds * (len(goals) + seeds) + FLOOR_GROUPS
     try:
         from dopantgap.progress import bar
     except ImportError:
