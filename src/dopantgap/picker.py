@@ -511,7 +511,7 @@ def _candidates(rule, block_index):
     return mask(block_index)
 
 
-def greedy_batch(rule, count, cell_costs=None):
+def greedy_batch(rule, count, cell_costs=None, spread_columns=False):
     """The batch a goal ranks: one pick after the other, each scored given those above.
 
     Parameters
@@ -524,6 +524,10 @@ def greedy_batch(rule, count, cell_costs=None):
         Most picks; fewer come back when fewer candidates bring ``USEFUL_BENEFIT``.
     cell_costs : list of ndarray or None, default=None
         Cost of each block's cells (default 1 each); the ranking score is benefit / cost.
+    spread_columns : bool, default=False
+        Take each column (host, site, method, quantity) once before any column twice: a
+        candidate in a column the batch already holds is eligible only when no other
+        column has a useful one (then every column is free again).
 
     Returns
     -------
@@ -537,12 +541,24 @@ def greedy_batch(rule, count, cell_costs=None):
     stds = [np.sqrt(np.clip(np.diag(block.cov), 0.0, None)) for block in blocks]
     allowed = [_candidates(rule, b) for b in range(len(blocks))]
     scores = [rule.scores(b) for b in range(len(blocks))]
+    columns = [
+        list(block.cells[["host", "site", "method", "quantity"]].itertuples(index=False, name=None))
+        for block in blocks
+    ]
+    used = set()
     ranked = []
     for _ in range(count):
+        useful = [allowed[b] & (np.abs(scores[b]) >= USEFUL_BENEFIT[rule.unit]) for b in range(len(blocks))]
+        if spread_columns and used:
+            fresh = [mask & ~np.array([key in used for key in columns[b]], dtype=bool)
+                     for b, mask in enumerate(useful)]
+            if any(mask.any() for mask in fresh):
+                useful = fresh
+            else:
+                used = set()  # every column with a useful candidate has one pick: a new round
         best = None
         for b in range(len(blocks)):
-            useful = allowed[b] & (np.abs(scores[b]) >= USEFUL_BENEFIT[rule.unit])
-            value = np.where(useful, scores[b] / cell_costs[b], -np.inf)
+            value = np.where(useful[b], scores[b] / cell_costs[b], -np.inf)
             if not len(value):
                 continue
             cell = int(np.argmax(value))  # first of ties: grid order, deterministic
@@ -554,6 +570,7 @@ def greedy_batch(rule, count, cell_costs=None):
         benefit = abs(float(scores[b][cell]))
         std = float(stds[b][cell])
         ranked.append((b, cell, benefit, per_cost, std, rule.reason(b, cell, benefit, std)))
+        used.add(columns[b][cell])
         allowed[b][cell] = False
         rule.picked(b, cell)
         scores[b] = rule.scores(b)
@@ -699,7 +716,10 @@ def pick_next(
     cell_costs = [
         np.array([float(costs.get(name, 1.0)) for name in block.cells["method"]]) for block in blocks
     ]
-    ranked = greedy_batch(rule, count, cell_costs)
+    # a model unsure of how its columns share information spreads the batch over them
+    # (module docstring, "Robust picks"); the site goal's questions pair sites on purpose
+    spread = len(versions) > 1 and goal != "site"
+    ranked = greedy_batch(rule, count, cell_costs, spread_columns=spread)
     records = []
     for rank, (b, cell, benefit, per_cost, std, reason) in enumerate(ranked, start=1):
         block = blocks[b]
@@ -719,6 +739,8 @@ def pick_next(
     picks = pd.DataFrame(records, columns=list(PICK_COLUMNS))
     # how many missing cells were weighed, so that an empty or short list can say why
     picks.attrs["candidates"] = int(sum(int(_candidates(rule, b).sum()) for b in range(len(blocks))))
-    # how many plausible versions of the model the benefits were averaged over
+    # how many plausible versions of the model the benefits were averaged over, and
+    # whether the batch was spread over columns
     picks.attrs["kernels"] = len(versions)
+    picks.attrs["spread_columns"] = spread
     return picks

@@ -312,6 +312,9 @@ def test_batch_spreads_across_columns_when_the_kernels_disagree(monkeypatch):
     robust = pick_next(model(0.0), count=4, element_symbols=elements)
     assert set(robust["site"]) == {"s1", "s2", "s3"}
     assert list(robust["site"]).count("s1") == 2
+    # unsure of its covariance, the batch also takes each column once before any twice
+    assert robust.attrs["spread_columns"] and not trusting.attrs["spread_columns"]
+    assert list(robust["site"])[:3] == ["s1", "s2", "s3"]
     # the first pick is worth the mean of its two benefits: 1.0 and 1 + 3 * 0.99^2
     assert robust["benefit"].iat[0] == pytest.approx((1.0 + 1.0 + 3 * 0.99**2) / 2)
     assert robust["benefit"].iat[1] == pytest.approx(0.3 + 3 * 0.3 * 0.8**2)
