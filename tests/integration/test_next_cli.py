@@ -22,6 +22,8 @@ def test_next_writes_ranked_missing_cells(tmp_path, capsys, computed, demo_model
     printed = capsys.readouterr().out
     assert "do not replace calculation" in printed
     assert "6 picks for goal table" in printed
+    # the demo's hybrid level covers a few elements: the list says how it was made robust
+    assert "benefits averaged over 5 plausible versions of the model and each column picked once" in printed
     picks = pd.read_csv(out, keep_default_na=False)
     assert list(picks.columns[:11]) == [
         "element", "host", "site", "method", "quantity", "rank", "value", "std", "cost", "benefit", "reason",
@@ -30,6 +32,8 @@ def test_next_writes_ranked_missing_cells(tmp_path, capsys, computed, demo_model
     assert (picks["method"] == "hyb").all() and (picks["cost"] == 30).all()
     keys = set(picks[list(KEY_COLUMNS)].itertuples(index=False, name=None))
     assert len(keys) == 6 and not keys & computed
+    columns = list(picks[["host", "site", "method", "quantity"]].itertuples(index=False, name=None))
+    assert len(set(columns)) == 6
 
 
 def test_next_window_implies_its_goal_and_cautions_new_elements(tmp_path, capsys, computed, demo_model_dir):

@@ -309,9 +309,10 @@ def _command_next(arguments, say):
                 "the list is not padded with the others")
         kernels = int(picks.attrs.get("kernels", 1))
         if kernels > 1:
-            say(f"  benefits averaged over {kernels} plausible versions of the model: its parts learned from "
-                "few elements were re-tuned on subsets of them, so the list does not lean on one guess of how "
-                "cells share information")
+            spread = " and each column picked once before any twice" if picks.attrs.get("spread_columns") else ""
+            say(f"  benefits averaged over {kernels} plausible versions of the model{spread}: its parts learned "
+                "from few elements were re-tuned on subsets of them, so the list does not lean on one guess "
+                "of how cells share information")
         say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
             f"{'value eV':>9} {'std':>5} {'cost':>5} {'benefit':>8}  reason")
         for row in picks.itertuples(index=False):
