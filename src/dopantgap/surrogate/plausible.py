@@ -60,9 +60,9 @@ def uncertain_stages(surrogate):
 
     They are the stages with a fitted Gaussian process learned from more than
     ``_MIN_SUBSET_ELEMENTS`` elements, and, in a surrogate whose learner is the Gaussian
-    process, the corrections kept at the column shifts alone with enough rows and
-    elements for the Gaussian process on top (``stages._MIN_ROWS_FOR_LEARNER``,
-    ``stages._MIN_ELEMENTS_FOR_RESIDUAL``).
+    process, the corrections kept at the column shifts alone with enough elements for the
+    Gaussian process on top (``stages._MIN_ELEMENTS_FOR_RESIDUAL``; one with fewer rows
+    than ``stages._MIN_ROWS_FOR_LEARNER`` stays as it is in every version).
 
     Parameters
     ----------
