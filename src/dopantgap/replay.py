@@ -38,8 +38,9 @@ the noise of the numbers it is compared with); ``rmse`` likewise; ``mean_std``: 
 calibrated predicted std; ``decided``: number of site questions (element, host,
 quantity with two or more sites, at ``method``, all sites in the completed table)
 whose most probable lowest site has ``p_lowest > 0.9`` and is the completed table's
-(or the reference's) lowest; ``decided_wrong``: those above 0.9 that name another site. Round 0 is the
-start, the same for every strategy. The picker's rows have ``seed`` 0; the random
+(or the reference's) lowest; ``decided_wrong``: those above 0.9 that name another site;
+``floor_left``: the floor's mean error (``oracle_floor``) over the cells still hidden
+(NaN without the floor). Round 0 is the start, the same for every strategy. The picker's rows have ``seed`` 0; the random
 rows have the seed number ``s`` of their generator ``numpy.random.default_rng((random_state, s))``.
 
 Summary
