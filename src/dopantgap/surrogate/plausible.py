@@ -107,10 +107,10 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
     random two thirds of the stage's elements (all their rows; at least three elements),
     starting from the fitted kernel, then conditions the stage on all of its rows with
     that kernel held fixed. A correction kept at the column shifts alone is re-tuned the
-    same way with a Gaussian process on top of the shifts, from the default start. The spread of the versions' covariances is the spread a
-    handful of elements leaves on the hyperparameters; with many elements the versions
-    coincide with the fitted model. Other stages, the calibration and the table are
-    shared.
+    same way with a Gaussian process on top of the shifts, from the default start. The
+    spread of the versions' covariances is the spread a handful of elements leaves on the
+    hyperparameters; with many elements the versions coincide with the fitted model.
+    Other stages, the calibration and the table are shared.
 
     Parameters
     ----------
@@ -150,7 +150,8 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
             prefix = _process_prefix(form)
             settings = {prefix + "fixed_kernel": None, prefix + "selection_group_column": None}
             if warm is not None:
-                settings.update({prefix + "initial_kernel": warm, prefix + "max_optimiser_iterations": _RETUNE_ITERATIONS})
+                settings[prefix + "initial_kernel"] = warm
+                settings[prefix + "max_optimiser_iterations"] = _RETUNE_ITERATIONS
             tuner = clone(form).set_params(**settings)
             tuner.fit(X[subset], target[subset])
             learner = clone(form).set_params(**{prefix + "fixed_kernel": _gaussian_process(tuner).kernel_})
