@@ -30,8 +30,9 @@ its elements made nearly undecided (``world.close_site_gaps``: the two lowest si
 within about 0.05 eV, INVENTED too), so that the site goal has something to decide.
 
 After each round the model is fitted in full on the grown table, as a user does between
-rounds (``--relearn fit``, the default: about 25 minutes on two cores); ``--relearn
-refresh`` relearns it with ``Surrogate.refreshed`` instead (about 2 minutes), which keeps
+rounds (``--relearn fit``, the default: 27 minutes for ``--goals table`` with two runs
+side by side on two cores); ``--relearn refresh`` relearns it with
+``Surrogate.refreshed`` instead (about 2 minutes alone), which keeps
 the learner, the correction form and the hyperparameters and can tell another story.
 
 Run ``python benchmarks/bench_replay.py`` (defaults: 4 rounds of 10 picks, 5 random
