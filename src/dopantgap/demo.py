@@ -16,7 +16,7 @@ from dopantgap.atomic import write_text_atomic
 from dopantgap.elements import element_flags
 from dopantgap.explain import explain_model, write_explanation, write_figures
 from dopantgap.fill import fill_table, outside_levels
-from dopantgap.picker import pick_next
+from dopantgap.picker import pick_next, robust_picks_text
 from dopantgap.hosts import SiteProperties
 from dopantgap.report import build_report
 from dopantgap.screening import LowestSite, Window, screen
@@ -124,6 +124,8 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     report("The next five hybrid calculations worth their cost (goal: the whole table's variance):")
     for row in picks.itertuples(index=False):
         report(f"  {row.rank}. {row.element} {row.host} {row.site} {row.quantity}: {row.reason}")
+    if robust_picks_text(picks):
+        report(f"  ({robust_picks_text(picks)})")
     picked = list(dict.fromkeys(picks["element"]))
     flags = element_flags(picked)
     for symbol in picked:

@@ -129,6 +129,7 @@ __all__ = [
     "parse_cost",
     "parse_window",
     "pick_next",
+    "robust_picks_text",
     "site_entropy",
     "site_probabilities",
     "summed_variance_reduction",
@@ -490,6 +491,27 @@ class AveragedGoal:
 
 
 # ------------------------------------------------------------------------ picking
+def robust_picks_text(picks):
+    """One line saying how a pick list was made robust, or "" when it was not.
+
+    Parameters
+    ----------
+    picks : DataFrame
+        ``pick_next`` output (its ``attrs`` are read).
+
+    Returns
+    -------
+    str
+    """
+    kernels = int(picks.attrs.get("kernels", 1))
+    if kernels <= 1:
+        return ""
+    spread = " and each column picked once before any twice" if picks.attrs.get("spread_columns") else ""
+    return (f"benefits averaged over {kernels} plausible versions of the model{spread}: its parts learned "
+            "from few elements were re-tuned on subsets of them, so the list does not lean on one guess "
+            "of how cells share information")
+
+
 def _check_versions(kernels):
     """The number of plausible kernels as an int >= 1."""
     if isinstance(kernels, bool) or not isinstance(kernels, (int, np.integer)) or kernels < 1:

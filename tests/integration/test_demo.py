@@ -58,6 +58,9 @@ def test_demo_picks_carry_the_safety_notes_of_their_elements(demo_run):
         if note:
             assert f"caution: {symbol}: {note}" in text
     assert "do not replace calculation" in text
+    # the demo's hybrid level covers a few elements: the list says how it was made robust
+    assert "benefits averaged over 5 plausible versions of the model" in text
+    assert picks[["host", "site", "quantity"]].drop_duplicates().shape[0] == 5
 
 
 def test_demo_explained_folder_has_the_figures_explain_writes(demo_run):

@@ -38,6 +38,7 @@ from dopantgap.picker import (
     parse_cost,
     parse_window,
     pick_next,
+    robust_picks_text,
     site_entropy,
     site_probabilities,
     summed_variance_reduction,
@@ -282,6 +283,7 @@ def test_benefit_averaged_over_coinciding_kernels_is_the_single_kernel_benefit(m
         averaged[["element", "site", "benefit", "std", "value"]], single[["element", "site", "benefit", "std", "value"]]
     )
     assert averaged.attrs["kernels"] == 3 and single.attrs["kernels"] == 1
+    assert robust_picks_text(single) == "" and "averaged over 3 plausible versions" in robust_picks_text(averaged)
     assert list(averaged["reason"]) == list(single["reason"])
 
 

@@ -266,7 +266,7 @@ def _command_fill(arguments, say):
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.new_hosts import plan_new_hosts
-    from dopantgap.picker import benefit_text, parse_cost, parse_window, pick_next
+    from dopantgap.picker import benefit_text, parse_cost, parse_window, pick_next, robust_picks_text
     from dopantgap import elements
     from dopantgap.table import write_table
 
@@ -307,12 +307,8 @@ def _command_next(arguments, say):
         if len(picks) < int(arguments.count) and candidates > len(picks):
             say(f"  only {len(picks)} of the {arguments.count} asked would teach anything noticeable for this goal; "
                 "the list is not padded with the others")
-        kernels = int(picks.attrs.get("kernels", 1))
-        if kernels > 1:
-            spread = " and each column picked once before any twice" if picks.attrs.get("spread_columns") else ""
-            say(f"  benefits averaged over {kernels} plausible versions of the model{spread}: its parts learned "
-                "from few elements were re-tuned on subsets of them, so the list does not lean on one guess "
-                "of how cells share information")
+        if robust_picks_text(picks):
+            say(f"  {robust_picks_text(picks)}")
         say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
             f"{'value eV':>9} {'std':>5} {'cost':>5} {'benefit':>8}  reason")
         for row in picks.itertuples(index=False):
