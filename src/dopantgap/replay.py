@@ -61,6 +61,7 @@ hardest cells first is not mistaken for learning.
 
 import json
 import math
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -71,10 +72,10 @@ from sklearn.base import clone
 from dopantgap.atomic import write_text_atomic
 from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.rounds import DECIDED_PROBABILITY
-from dopantgap.errors import DopantgapError
+from dopantgap.errors import DopantgapError, SuspectValueWarning
 from dopantgap.sites import site_preference, site_quantities
 from dopantgap.surrogate import Surrogate, order_levels
-from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, write_table
+from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, check_frame, write_table
 
 __all__ = [
     "FLOOR_GROUPS",
@@ -556,16 +557,25 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         # expensive one, the costs can
         ordered = order_levels(table, estimator.levels)
         method = max(ordered, key=lambda name: (float(cost.get(name, 1.0)), ordered.index(name)))
+    # the values are judged once, on the completed table, as the estimator's policy says;
+    # a part of it can make a right value look wrong (a correction that jumps for a few
+    # elements, seen through the few kept), so the parts are fitted without judging again
+    check_frame(table, suspect_values=estimator.suspect_values)
+    estimator = estimator.set_params(suspect_values="warn")
     visible, hidden, method = hide_cells(table, method, keep_fraction, random_state, levels=estimator.levels)
     cost_per_cell = float(cost.get(method, 1.0))
     element_symbols = [s for s in dict.fromkeys(table["element"]) if s not in set(visible["element"])]
-    base = clone(estimator).fit(visible.reset_index(drop=True))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", SuspectValueWarning)
+        base = clone(estimator).fit(visible.reset_index(drop=True))
     _tick(progress)
 
     def relearned(grown):
-        if relearn == "fit":
-            return clone(estimator).fit(grown)
-        return base.refreshed(grown)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", SuspectValueWarning)
+            if relearn == "fit":
+                return clone(estimator).fit(grown)
+            return base.refreshed(grown)
 
     if reference is not None:
         missing = [column for column in REQUIRED_COLUMNS if column not in reference.columns]

@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 
 from dopantgap.cli import main
-from dopantgap.errors import DopantgapError
+from dopantgap.errors import DopantgapError, SuspectValueWarning
 from dopantgap.replay import (
     CURVE_COLUMNS,
     SUMMARY_COLUMNS,
@@ -275,3 +275,34 @@ def test_relearn_fit_scores_each_round_with_a_full_fit_as_a_user_runs_it(complet
         assert curve.loc[curve["round"] == 1, "error"].iat[0] == pytest.approx(expected, rel=1e-9)
     with pytest.raises(DopantgapError, match="--relearn"):
         replay(completed, rounds=1, per_round=1, n_random_seeds=1, cost=COST, relearn="sometimes")
+
+
+def test_suspect_values_are_judged_once_on_the_completed_table(completed):
+    """A flipped sign in the completed table is refused before any fit; kept with
+    suspect_values="warn", it is warned of once, not again by the fit of every part
+    (a part can make a right value look wrong, e.g. a correction that jumps for the few
+    elements kept)."""
+    flipped = completed.copy()
+    rows = (
+        (flipped["element"] == "Fe") & (flipped["host"] == "ZnS") & (flipped["method"] == "gga")
+        & (flipped["quantity"] == "E_bind")
+    )
+    flipped.loc[rows, "value"] *= -1.0
+
+    class Ticks:
+        count = 0
+
+        def update(self, n=1):
+            Ticks.count += n
+
+    with pytest.raises(DopantgapError, match="flipped sign.*--suspect-values warn"):
+        replay(flipped, rounds=1, per_round=1, n_random_seeds=1, cost=COST, progress=Ticks(),
+               estimator=Surrogate(learner="gp", n_folds=2), relearn="refresh", floor=False)
+    assert Ticks.count == 0
+    with pytest.warns(SuspectValueWarning) as caught:
+        done = replay(flipped, goal="table", rounds=1, per_round=2, n_random_seeds=1, cost=COST,
+                      estimator=Surrogate(learner="gp", n_folds=2, suspect_values="warn"),
+                      relearn="refresh", floor=False)
+    suspect = [w for w in caught if issubclass(w.category, SuspectValueWarning)]
+    assert len(suspect) == 1 and "Fe at ZnS/sub_Zn/gga/E_bind" in str(suspect[0].message)
+    assert len(done.picks) == 2 * 2

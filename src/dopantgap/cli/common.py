@@ -2,6 +2,7 @@
 
 import argparse
 import os
+import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import NamedTuple
@@ -40,6 +41,34 @@ def add_table_options(command):
         help="table layout (default: auto: wide when there is no 'value' column)",
     )
     command.add_argument("--sheet", default=None, help="worksheet name of an XLSX file")
+
+
+def add_suspect_option(command):
+    """--suspect-values, for commands that fit a table."""
+    command.add_argument(
+        "--suspect-values", choices=("refuse", "warn"), default="refuse",
+        help="values a meV or kJ/mol slip or a flipped sign would explain: refuse the table "
+             "(default) or keep them with a warning each ('check' lists them)",
+    )
+
+
+def say_suspects(policy, say, table):
+    """List suspect values before a fit refuses them, or warn of each one kept."""
+    import warnings
+
+    from dopantgap.errors import SuspectValueWarning
+    from dopantgap.table import shown, suspect_values
+
+    suspects = suspect_values(table)
+    if policy == "warn":
+        for message in suspects["message"]:
+            # on stderr, and even with --quiet: a value kept against the check must be seen
+            print(f"WARNING: suspect value kept (--suspect-values warn): {shown(message)}", file=sys.stderr)
+        # listed here once; the library's warning of each would repeat them
+        warnings.filterwarnings("ignore", category=SuspectValueWarning)
+    elif len(suspects) > 1:
+        for message in suspects["message"]:
+            say(f"suspect value: {shown(message)}")
 
 
 def add_version_option(command):

@@ -1,10 +1,9 @@
 """Commands that read a table and learn it: check, fit, validate."""
 
-import sys
 import time
 from pathlib import Path
 
-from dopantgap.cli.common import Command, _seed, add_table_options
+from dopantgap.cli.common import Command, _seed, add_suspect_option, add_table_options, say_suspects
 from dopantgap.errors import DopantgapError
 
 
@@ -26,11 +25,7 @@ def add_learning_options(command, learner_help):
              "site,site_kind (sites of different hosts that behave alike) and host properties "
              "such as 'lattice_constant [angstrom]'",
     )
-    command.add_argument(
-        "--suspect-values", choices=("refuse", "warn"), default="refuse",
-        help="values a meV or kJ/mol slip or a flipped sign would explain: refuse the table "
-             "(default) or keep them with a warning each ('check' lists them)",
-    )
+    add_suspect_option(command)
     command.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
@@ -91,7 +86,7 @@ def _table_and_estimator(arguments, say):
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
-    _say_suspects(arguments, say, table)
+    say_suspects(arguments.suspect_values, say, table)
     hosts = properties = site_kinds = None
     if arguments.hosts:
         from dopantgap.hosts import read_host_properties, read_site_properties
@@ -107,25 +102,6 @@ def _table_and_estimator(arguments, say):
         host_properties=properties, site_kinds=site_kinds,
     )
     return table, estimator
-
-
-def _say_suspects(arguments, say, table):
-    """List suspect values before a fit refuses them, or warn of each one kept."""
-    import warnings
-
-    from dopantgap.errors import SuspectValueWarning
-    from dopantgap.table import shown, suspect_values
-
-    suspects = suspect_values(table)
-    if arguments.suspect_values == "warn":
-        for message in suspects["message"]:
-            # on stderr, and even with --quiet: a value kept against the check must be seen
-            print(f"WARNING: suspect value kept (--suspect-values warn): {shown(message)}", file=sys.stderr)
-        # listed here once; the library's warning of each would repeat them
-        warnings.filterwarnings("ignore", category=SuspectValueWarning)
-    elif len(suspects) > 1:
-        for message in suspects["message"]:
-            say(f"suspect value: {shown(message)}")
 
 
 def _learner_bar(arguments):

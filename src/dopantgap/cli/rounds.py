@@ -3,7 +3,9 @@
 import argparse
 from pathlib import Path
 
-from dopantgap.cli.common import Command, _load_model, _number_option, add_table_options, add_version_option
+from dopantgap.cli.common import (
+    Command, _load_model, _number_option, add_suspect_option, add_table_options, add_version_option, say_suspects,
+)
 from dopantgap.errors import DopantgapError
 
 
@@ -72,6 +74,7 @@ def _add_replay_parser(commands):
         "--learner", choices=("auto", "gp", "boost"), default="auto", help="learner of the surrogate (default: auto)"
     )
     replay.add_argument("--window", default=None, metavar="QUANTITY:LOW:HIGH", help="window of the window goal, eV")
+    add_suspect_option(replay)
     replay.add_argument(
         "--relearn", choices=("fit", "refresh"), default="fit",
         help="after each round, fit the model in full as you would between rounds (a fit per "
@@ -151,7 +154,8 @@ def _command_replay(arguments, say):
     table = read_table(arguments.table, layout=arguments.layout, sheet=arguments.sheet)
     for notice in table.attrs.get("notices", []):
         say(f"note: {notice}")
-    estimator = Surrogate(learner=arguments.learner, random_state=seed)
+    say_suspects(arguments.suspect_values, say, table)
+    estimator = Surrogate(learner=arguments.learner, random_state=seed, suspect_values=arguments.suspect_values)
     total = 1 + rounds * (len(goals) + seeds) + FLOOR_GROUPS
     try:
         from dopantgap.progress import bar
