@@ -121,7 +121,7 @@ def run_demo(out_dir="dopantgap_demo", report=print):
     report("")
     picks = pick_next(surrogate, count=5, goal="table", method="hyb", cost={"gga": 1.0, "hyb": 30.0})
     write_table(picks, picks_path)
-    report("The next five hybrid calculations worth their cost (goal: the whole table's variance):")
+    report("The next five hybrid calculations worth their cost (goal: the whole table's uncertainty, summed std):")
     for row in picks.itertuples(index=False):
         report(f"  {row.rank}. {row.element} {row.host} {row.site} {row.quantity}: {row.reason}")
     if robust_picks_text(picks):

@@ -22,6 +22,7 @@ __all__ = [
     "smooth_root",
     "site_entropy",
     "site_probabilities",
+    "summed_std_reduction",
     "summed_variance_reduction",
     "window_probability",
 ]
@@ -90,6 +91,38 @@ def summed_variance_reduction(cov, targets=None):
     pivots = np.diag(cov)
     summed = np.sum(rows**2, axis=0)
     return np.where(pivots > _SETTLED, summed / np.where(pivots > _SETTLED, pivots, 1.0), 0.0)
+
+
+def summed_std_reduction(cov, targets=None):
+    """Summed predictive std reduction of the target cells after observing each cell.
+
+    For Gaussian errors the expected absolute error of a cell is sqrt(2 / pi) times its
+    std (the mean absolute deviation of a normal distribution), so this is, up to that
+    factor, the expected drop of the targets' summed absolute error. Unlike the summed
+    variance, it does not square a lone, very uncertain cell's own share.
+
+    Parameters
+    ----------
+    cov : ndarray of shape (n, n)
+        Joint covariance; its diagonal is what a new calculation would return.
+    targets : array-like of bool or int, optional
+        Cells whose std counts (mask or indices); None: all.
+
+    Returns
+    -------
+    ndarray of shape (n,)
+        Entry i is sum over targets j of sqrt(C[j, j]) - sqrt(C[j, j] - C[j, i]^2 / C[i, i])
+        (the std of j after observing i; Rasmussen & Williams 2006, eq. 2.24); zero for
+        settled cells.
+    """
+    cov = np.asarray(cov, dtype=float)
+    rows = cov if targets is None else cov[np.asarray(targets), :]
+    variances = np.diag(cov)
+    target_variances = variances if targets is None else variances[np.asarray(targets)]
+    pivots = np.where(variances > _SETTLED, variances, 1.0)
+    after = np.clip(target_variances[:, None] - rows**2 / pivots[None, :], 0.0, None)
+    summed = np.sum(np.sqrt(np.clip(target_variances, 0.0, None))[:, None] - np.sqrt(after), axis=0)
+    return np.where(variances > _SETTLED, np.clip(summed, 0.0, None), 0.0)
 
 
 def site_entropy(probabilities):

@@ -8,15 +8,20 @@ one of three goals, divided by the *cost* of its method (default 1 per method).
 Goals
 -----
 ``table`` (default)
-    Expected reduction of the predictive variance summed over all missing cells of
-    the target method(s), in eV^2. For a Gaussian joint with fixed hyperparameters,
+    Expected reduction of the predictive std summed over all missing cells of the
+    target method(s), in eV. For a Gaussian joint with fixed hyperparameters,
     observing cell i changes the covariance to C - C[:, i] C[i, :] / C[i, i]
     (Rasmussen & Williams 2006, "Gaussian Processes for Machine Learning", eq. 2.24
     and Algorithm 2.1, the posterior covariance after conditioning on one more
-    point), so the summed variance drops by sum_j C[j, i]^2 / C[i, i]. The diagonal
-    holds the fitted white noise: C describes what a new calculation would return.
-    A calculation that informs many cells therefore ranks above one that only
-    settles itself.
+    point), so cell j's std drops from sqrt(C[j, j]) to sqrt(C[j, j] - C[j, i]^2 /
+    C[i, i]). The diagonal holds the fitted white noise: C describes what a new
+    calculation would return. A calculation that informs many cells therefore ranks
+    above one that only settles itself. For Gaussian errors a cell's expected absolute
+    error is sqrt(2 / pi) times its std, so the benefit is, up to that factor, the
+    expected drop of the summed absolute error: what the table's MAE reads. Summing
+    variances instead squares a lone, very uncertain cell's own share, and on replays
+    with few elements at the expensive level it sent the picks to outlying elements
+    (DEVELOPERS.md, *Table goal: summed std*).
 ``site``
     Expected reduction of the Shannon entropy, in bits, of which site is lowest in
     energy, for each element, host and method of a quantity with two or more sites in
@@ -108,6 +113,7 @@ from dopantgap.gaussian import (
     expected_window_entropy,
     site_entropy,
     site_probabilities,
+    summed_std_reduction,
     summed_variance_reduction,
     window_probability,
 )
@@ -157,12 +163,12 @@ _SITE_SAMPLES = 1024
 _SITE_RESCORE_SHARE = 1e-3
 _SETTLED = SETTLED_VARIANCE
 #: Smallest benefit a pick must bring to be listed, per benefit unit (common practice, no
-#: source): for the table goal a variance the model already treats as settled
-#: (``gaussian.SETTLED_VARIANCE``: a cell teaches at least its own variance, so only
-#: settled cells fall below it); for the entropy goals half the last digit their reason
-#: prints, so that no listed pick reads as worth nothing. ``pick_next`` stops short of
-#: ``count`` rather than pad its list.
-USEFUL_BENEFIT = {"eV^2": SETTLED_VARIANCE, "bits": 5e-3}
+#: source): for the table goal the std of a variance the model already treats as settled
+#: (``gaussian.SETTLED_VARIANCE``: a cell teaches at least its own std, so only settled
+#: cells fall below it); for the entropy goals half the last digit their reason prints,
+#: so that no listed pick reads as worth nothing. ``pick_next`` stops short of ``count``
+#: rather than pad its list.
+USEFUL_BENEFIT = {"eV": math.sqrt(SETTLED_VARIANCE), "bits": 5e-3}
 # Probability of the likeliest site from which the site goal's reason calls a preference
 # leaning, nearly decided or decided (common practice, no source: words for the reader,
 # the ranking uses the entropies themselves).
@@ -263,13 +269,13 @@ def parse_window(text):
 
 # ------------------------------------------------------------------------ goals
 class _TableGoal:
-    unit = "eV^2"
+    unit = "eV"
 
     def __init__(self, blocks):
         self.blocks = blocks
 
     def scores(self, block_index):
-        return summed_variance_reduction(self.blocks[block_index].cov)
+        return summed_std_reduction(self.blocks[block_index].cov)
 
     def picked(self, block_index, cell):
         block = self.blocks[block_index]
@@ -298,7 +304,7 @@ class _TableGoal:
         if abs(left - std) > 0.005:
             # the batch's earlier picks already taught part of what this cell holds
             own += f", {left:.2f} eV given the picks above"
-        return f"{reach} (summed variance -{benefit_text(benefit)} eV^2; {own})"
+        return f"{reach} (summed std -{benefit_text(benefit)} eV; {own})"
 
 
 class _WindowGoal:
@@ -658,7 +664,7 @@ def pick_next(
     DataFrame
         ``PICK_COLUMNS``, one row per pick, ranked 1..K: the cell, its current
         calibrated ``value`` and ``std`` (eV), the method's ``cost``, ``benefit``
-        (in ``benefit_unit``: eV^2 for table, bits for site and window; given the
+        (in ``benefit_unit``: eV for table, bits for site and window; given the
         picks ranked above), ``benefit_per_cost`` (the ranking score), the cell's
         ``scenario`` and a short ``reason`` (quoting the row's ``std``). Only picks
         worth at least ``USEFUL_BENEFIT`` of their unit are listed: fewer than ``count``

@@ -41,6 +41,7 @@ from dopantgap.picker import (
     robust_picks_text,
     site_entropy,
     site_probabilities,
+    summed_std_reduction,
     summed_variance_reduction,
     window_probability,
 )
@@ -179,6 +180,12 @@ def test_rank_one_update_matches_sklearn_gp_refit():
         reduction = summed_variance_reduction(cov)[added]
         drop = np.trace(cov) - np.trace(new_cov[np.ix_(others, others)])
         assert reduction == pytest.approx(drop, rel=1e-6)  # sklearn adds alpha=1e-10 to the diagonal
+        # the table goal's benefit: the summed std, the point's own std falling to zero
+        std_drop = np.sum(np.sqrt(np.diag(cov))) - np.sum(np.sqrt(np.diag(new_cov)[others]))
+        assert summed_std_reduction(cov)[added] == pytest.approx(std_drop, rel=1e-6)
+        assert summed_std_reduction(cov, targets=others)[added] == pytest.approx(
+            std_drop - np.sqrt(cov[added, added]), rel=1e-6
+        )
 
 
 def test_site_entropy_matches_scipy():
@@ -250,13 +257,14 @@ def test_batch_spreads_over_elements_unlike_top_k():
         block[first : first + 4, first : first + 4] = 0.3 + 0.2 * np.eye(4)
     model = hand_surrogate(sites, elements, [("gga", "direct", padded(np.zeros(16), 4), padded(block, 4))])
     batch = pick_next(model, count=4, element_symbols=elements)
-    single = summed_variance_reduction(block)
+    single = summed_std_reduction(block)
     top_k = [elements[index // 4] for index in np.argsort(-single, kind="stable")[:4]]
     assert top_k == ["Ti"] * 4
     assert list(batch["element"]).count("Ti") == 1
     assert len(set(batch["element"])) == 4
     assert list(batch["rank"]) == [1, 2, 3, 4]
-    assert batch["benefit"].iat[0] == pytest.approx(1 + 3 * 0.95**2)
+    # its own std (1 eV) and three stds of 1 falling to sqrt(1 - 0.95^2) (R&W 2006, eq. 2.24)
+    assert batch["benefit"].iat[0] == pytest.approx(1 + 3 * (1 - np.sqrt(1 - 0.95**2)))
 
 
 def _versions(monkeypatch, models):
@@ -265,8 +273,9 @@ def _versions(monkeypatch, models):
 
 
 def test_benefit_averaged_over_coinciding_kernels_is_the_single_kernel_benefit(monkeypatch):
-    """Rasmussen & Williams 2006, eq. 2.24: observing cell i lowers the summed variance by
-    sum_j C[j, i]^2 / C[i, i]; averaged over kernels that coincide it is the same number,
+    """Rasmussen & Williams 2006, eq. 2.24: observing cell i lowers cell j's variance by
+    C[j, i]^2 / C[i, i], so the summed std by sum_j sqrt(C[j, j]) - sqrt(C[j, j] -
+    C[j, i]^2 / C[i, i]); averaged over kernels that coincide it is the same number,
     pick after pick."""
     sites = ["s1", "s2"]
     elements = ["Ti", "V", "Cr"]
@@ -277,7 +286,8 @@ def test_benefit_averaged_over_coinciding_kernels_is_the_single_kernel_benefit(m
     single = pick_next(hand_surrogate(sites, elements, stages), count=4, element_symbols=elements, kernels=1)
     _versions(monkeypatch, [hand_surrogate(sites, elements, stages) for _ in range(3)])
     averaged = pick_next(hand_surrogate(sites, elements, stages), count=4, element_symbols=elements)
-    by_hand = np.sum(cov**2, axis=0) / np.diag(cov)
+    variances = np.diag(cov)
+    by_hand = np.sum(np.sqrt(variances)[:, None] - np.sqrt(variances[:, None] - cov**2 / variances[None, :]), axis=0)
     assert averaged["benefit"].iat[0] == pytest.approx(by_hand.max(), rel=1e-12)
     pd.testing.assert_frame_equal(
         averaged[["element", "site", "benefit", "std", "value"]], single[["element", "site", "benefit", "std", "value"]]
@@ -288,17 +298,19 @@ def test_benefit_averaged_over_coinciding_kernels_is_the_single_kernel_benefit(m
 
 
 def test_batch_spreads_across_columns_when_the_kernels_disagree(monkeypatch):
-    """Column s1 dominates the variance (1.0 per cell against 0.3) and is uncorrelated with
-    s2 and s3. One plausible kernel holds its four cells independent, the other nearly
-    identical. Trusting the first alone, the batch spends all four picks on s1; averaged
-    over both, its second pick is worth (1.0 + ~0) / 2 and the batch moves to the other
-    columns (first pick of s2: 0.3 + 3 * 0.3 * 0.8^2 = 0.876 eV^2 under both kernels)."""
+    """Column s1 dominates the uncertainty (std 2 eV per cell against 0.55) and is
+    uncorrelated with s2 and s3. One plausible kernel holds its four cells independent,
+    the other nearly identical. Trusting the first alone, the batch spends all four picks
+    on s1 (2 eV each, against 1.21 eV for a first pick of s2); averaged over both, its
+    second pick is worth about (2 + 0.36) / 2 and the batch moves to the other columns
+    (first pick of s2: sqrt(0.3) + 3 (sqrt(0.3) - sqrt(0.3 - 0.24^2 / 0.3)) under both
+    kernels; Rasmussen & Williams 2006, eq. 2.24)."""
     sites = ["s1", "s2", "s3"]
     elements = ["Ti", "V", "Cr", "Mn"]
 
     def covariance(s1_correlation):
         cov = np.zeros((12, 12))
-        for site, (variance, correlation) in enumerate([(1.0, s1_correlation), (0.3, 0.8), (0.3, 0.8)]):
+        for site, (variance, correlation) in enumerate([(4.0, s1_correlation), (0.3, 0.8), (0.3, 0.8)]):
             cells = [site + 3 * element for element in range(4)]  # element-major, 3 sites each
             block = variance * (correlation + (1 - correlation) * np.eye(4))
             cov[np.ix_(cells, cells)] = block
@@ -317,11 +329,11 @@ def test_batch_spreads_across_columns_when_the_kernels_disagree(monkeypatch):
     # unsure of its covariance, the batch also takes each column once before any twice
     assert robust.attrs["spread_columns"] and not trusting.attrs["spread_columns"]
     assert list(robust["site"])[:3] == ["s1", "s2", "s3"]
-    # the first pick is worth the mean of its two benefits: 1.0 and 1 + 3 * 0.99^2
-    assert robust["benefit"].iat[0] == pytest.approx((1.0 + 1.0 + 3 * 0.99**2) / 2)
-    assert robust["benefit"].iat[1] == pytest.approx(0.3 + 3 * 0.3 * 0.8**2)
+    # the first pick is worth the mean of its two benefits: 2 and 2 + 3 * 2 (1 - sqrt(1 - 0.99^2))
+    assert robust["benefit"].iat[0] == pytest.approx((2.0 + 2.0 + 6.0 * (1 - np.sqrt(1 - 0.99**2))) / 2)
+    assert robust["benefit"].iat[1] == pytest.approx(np.sqrt(0.3) + 3 * (np.sqrt(0.3) - np.sqrt(0.3 - 0.24**2 / 0.3)))
     # rows are the fitted (first) kernel's: its std, not an average
-    np.testing.assert_allclose(robust.loc[robust["site"] == "s1", "std"], 1.0)
+    np.testing.assert_allclose(robust.loc[robust["site"] == "s1", "std"], 2.0)
 
 
 def test_site_goal_picks_the_undecided_element():
@@ -500,7 +512,7 @@ def test_demo_cost_prefers_cheap_cells(demo):
 
 
 def test_demo_predicted_reduction_matches_a_refit_with_the_pick(demo):
-    """A pick's summed variance reduction against the demo model relearned with that cell
+    """A pick's summed std reduction against the demo model relearned with that cell
     added at its predicted mean, every stage's kernel fixed (Rasmussen & Williams 2006,
     eq. 2.24 holds for fixed hyperparameters).
 
@@ -555,7 +567,7 @@ def test_demo_predicted_reduction_matches_a_refit_with_the_pick(demo):
         stage.learner = clone(stage.learner).fit(old.encoder.transform(cells), target)
         process(stage.learner).regressor_._y_train_std = process(old.learner).regressor_._y_train_std
     after = fresh.predict(grid)
-    drop = float(np.sum(before["std"] ** 2) - np.sum(after["std"] ** 2))
+    drop = float(np.sum(before["std"]) - np.sum(after["std"]))
     assert drop == pytest.approx(chosen["benefit"], rel=1e-6)
 
 
