@@ -108,7 +108,8 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     if len(records) > _MAX_BLOCK_CELLS:
         raise DopantgapError(
             f"{len(records)} missing {quantity} cells are too many to rank jointly (at most "
-            f"{_MAX_BLOCK_CELLS}); narrow the candidates with --method."
+            f"{_MAX_BLOCK_CELLS}); narrow the candidates with --method, or take one host at a "
+            "time with --host."
         )
     cells = pd.DataFrame(records, columns=list(KEY_COLUMNS))
     cell_unit, cell_level = np.array(cell_unit), np.array(cell_level)

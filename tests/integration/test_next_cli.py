@@ -91,3 +91,20 @@ def test_next_help_documents_the_goals(capsys):
     text = capsys.readouterr().out
     for word in ("table", "site", "window", "Rasmussen", "--cost", "bits"):
         assert word in text
+
+
+def test_next_with_too_many_candidates_says_how_to_narrow_them(tmp_path, capsys, monkeypatch, demo_model_dir):
+    """Past the joint covariance's cap the command stops before any large array with one
+    line naming both ways to narrow the list; with --host the same model answers."""
+    import dopantgap.joint
+
+    monkeypatch.setattr(dopantgap.joint, "_MAX_BLOCK_CELLS", 300)
+    out = tmp_path / "next.csv"
+    assert main(["next", str(demo_model_dir), "--out", str(out)]) == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1 and "too many to rank jointly" in lines[0]
+    assert "--method" in lines[0] and "--host" in lines[0]
+    assert not out.exists()
+    assert main(["next", str(demo_model_dir), "--out", str(out), "--host", "C", "--method", "hyb",
+                 "--count", "3", "--quiet"]) == 0
+    assert len(pd.read_csv(out)) == 3
