@@ -515,6 +515,9 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         For the window goal (``picker.parse_window``).
     estimator : Surrogate or None, default=None
         Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+        Its ``suspect_values`` policy judges the completed table once, before any work;
+        the parts fitted later are not judged again (a part can make a right value look
+        wrong, e.g. a correction that jumps for a few elements, seen through those kept).
     reference : DataFrame or None, default=None
         Values the figures are scored against instead of the completed table's (cell
         columns and ``value``, covering every cell of ``table``): for benchmarks on an
