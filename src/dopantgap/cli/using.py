@@ -61,7 +61,7 @@ def _add_next_parser(commands):
             "  table   expected drop of the predictive std (eV) summed over every missing\n"
             "          cell of the method(s): sum_j sqrt(C[j,j]) - sqrt(C[j,j] - C[j,i]^2 / C[i,i])\n"
             "          for the joint calibrated covariance C (Rasmussen & Williams 2006,\n"
-            "          eq. 2.24); the summed absolute error falls in proportion\n"
+            "          eq. 2.24); the expected summed absolute error falls by sqrt(2/pi) times it\n"
             "  site    expected drop of the entropy (bits) of which site is lowest, for\n"
             "          the candidate's element and host\n"
             "  window  expected drop of the binary entropy (bits) of 'value inside\n"
