@@ -139,3 +139,29 @@ def test_workers_end_with_their_parent(tmp_path):
     process.communicate(timeout=WAIT_SECONDS)
     # each worker looks every half second (workers.PARENT_CHECK_SECONDS): its five-minute task is cut short
     assert _wait(lambda: not _running(workers)), f"still running: {_running(workers)}"
+
+
+@pytest.mark.parametrize("stop, status, word", [("term", 143, "terminated"), ("int", 130, "interrupted")])
+def test_a_stop_during_the_workers_start_ends_as_a_stop(monkeypatch, capsys, stop, status, word):
+    """A stop landing while joblib starts its workers made joblib's clean-up raise its own
+    error (loky: "cannot join thread before it is started", seen once in about 40 SIGTERMs
+    sent right after the workers appeared), which reached the user as a traceback with
+    status 1. The command line reads the stop behind it."""
+    import dopantgap.cli as cli
+
+    def stopped_while_starting(arguments, say):
+        try:
+            raise cli._Terminated() if stop == "term" else KeyboardInterrupt()
+        except BaseException:
+            raise RuntimeError("cannot join thread before it is started")
+
+    monkeypatch.setitem(cli._COMMANDS, "check", stopped_while_starting)
+    assert cli.main(["check", str(DEMO_TABLE)]) == status
+    assert capsys.readouterr().err.strip() == f"dopantgap: {word}; no file was left half-written."
+
+    def plain_error(arguments, say):
+        raise RuntimeError("a bug, not a stop")
+
+    monkeypatch.setitem(cli._COMMANDS, "check", plain_error)
+    with pytest.raises(RuntimeError, match="a bug"):
+        cli.main(["check", str(DEMO_TABLE)])

@@ -50,6 +50,23 @@ def _raise_terminated(signum, frame):
     raise _Terminated()
 
 
+def _stop_behind(error):
+    """The Ctrl-C or SIGTERM in ``error``'s chain of causes, or None.
+
+    A stop that lands while joblib is still starting its workers makes joblib's own
+    clean-up fail (loky: "cannot join thread before it is started"); that error, not
+    the stop, reaches the command line, with the stop as its context.
+    """
+    seen = set()
+    link = error
+    while link is not None and id(link) not in seen:
+        if isinstance(link, (KeyboardInterrupt, _Terminated)):
+            return link
+        seen.add(id(link))
+        link = link.__cause__ or link.__context__
+    return None
+
+
 def main(argv=None):
     """Run the command line; returns the exit status (0 success, 2 user error)."""
     parser = _build_parser()
@@ -89,10 +106,13 @@ def main(argv=None):
         target = error.filename or ""
         print(f"dopantgap {arguments.command}: {target}: {error.strerror or error}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("dopantgap: interrupted; no file was left half-written.", file=sys.stderr)
-        return 130
-    except _Terminated:
+    except (KeyboardInterrupt, _Terminated, Exception) as error:
+        stop = _stop_behind(error)
+        if stop is None:
+            raise
+        if isinstance(stop, KeyboardInterrupt):
+            print("dopantgap: interrupted; no file was left half-written.", file=sys.stderr)
+            return 130
         print("dopantgap: terminated; no file was left half-written.", file=sys.stderr)
         return 143
     finally:
