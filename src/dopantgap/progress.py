@@ -42,6 +42,12 @@ class Progress:
             mininterval=_MIN_REDRAW, leave=True, unit="step",
         )
 
+    def expect(self, total):
+        """Set the number of steps expected, once it is known (at least 1)."""
+        self.total = max(int(total), 1, self.done)
+        self._bar.total = self.total
+        self._bar.refresh()
+
     def update(self, n=1):
         """Mark ``n`` more steps finished (never past the total)."""
         step = min(self.done + int(n), self.total) - self.done

@@ -90,9 +90,10 @@ def staged():
 
     with pytest.MonkeyPatch.context() as patch, threadpool_limits(limits=1):
         patch.setattr(Surrogate, "_new_learner", fixed_learner)
+        # n_jobs=1: every fold in this process, where the fixed learner is patched in
         model = Surrogate(learner="gp", levels=["gga", "hyb"], n_folds=3,
                           descriptors=["covalent_radius", "electronegativity_pauling", "period"],
-                          random_state=0).fit(table)
+                          random_state=0, n_jobs=1).fit(table)
     return model, table
 
 

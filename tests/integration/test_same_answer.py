@@ -144,3 +144,42 @@ def test_command_line_refuses_a_negative_seed(tmp_path, capsys):
         main(["fit", str(tmp_path / "t.csv"), "--out", str(tmp_path / "m"), "--seed", "-1"])
     assert stopped.value.code == 2
     assert "--seed" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------------ any number of workers
+def test_the_model_is_the_same_whatever_the_number_of_workers(small, fitted):
+    # n_jobs=1 fits every fold here, one after the other; 2 (the default) spreads them
+    # over worker processes: the same folds, seeds and model
+    with threadpool_limits(limits=1):
+        here = Surrogate(learner="gp", n_folds=3, random_state=0, n_jobs=1).fit(small)
+    assert fitted.n_jobs == 2
+    pd.testing.assert_frame_equal(here.cv_residuals_, fitted.cv_residuals_)
+    cells = small[["element", "host", "site", "method", "quantity"]].assign(element="Zr").drop_duplicates()
+    pd.testing.assert_frame_equal(here.predict(cells), fitted.predict(cells))
+
+
+@pytest.mark.parametrize("bad", [0, -2, 1.5, True, "2"])
+def test_a_bad_number_of_workers_is_refused_before_any_work(small, bad):
+    with pytest.raises(DopantgapError, match="n_jobs must be a whole number"):
+        Surrogate(learner="gp", n_jobs=bad).fit(small)
+
+
+class _Counter:
+    """A progress object that keeps what it is told."""
+
+    def __init__(self):
+        self.total, self.done = None, 0
+
+    def expect(self, total):
+        self.total = total
+
+    def update(self, n=1):
+        self.done += n
+
+
+def test_the_fit_counts_its_fits_before_it_starts_and_ticks_each_one(small):
+    counter = _Counter()
+    Surrogate(learner="auto", n_folds=3, random_state=0).fit(small, progress=counter)
+    # two learners, each: full fit, 3 main folds and the upgrade loop's template and folds
+    assert counter.total >= 2 * (1 + 3 + 1)
+    assert counter.done == counter.total

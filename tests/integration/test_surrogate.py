@@ -175,7 +175,10 @@ def test_upgrade_residuals_come_from_elements_computed_at_both_levels(rough):
     assert not upgrade.duplicated(["element", "host", "site", "quantity"]).any()
 
 
-def test_fit_reports_progress_once_per_candidate_learner():
+def test_fit_reports_progress_once_per_fit_folds_included():
+    from dopantgap.surrogate.crossval import planned_fits
+    from dopantgap.table import REQUIRED_COLUMNS
+
     world = invent_world(ELEMENTS[:14], hosts=ONE_HOST, seed=3)
     table = observe(world, expensive_fraction=0.3, absent=(), seed=3)
 
@@ -186,8 +189,11 @@ def test_fit_reports_progress_once_per_candidate_learner():
             self.steps += n
 
     counter = Counter()
-    Surrogate(learner="auto", n_folds=2, random_state=0).fit(table, progress=counter)
-    assert counter.steps == 2
+    model = Surrogate(learner="auto", n_folds=2, random_state=0).fit(table, progress=counter)
+    core = model.table_[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+    planned = sum(planned_fits(model, core, name) for name in ("gp", "boost"))
+    # per learner: the full fit, 2 main folds and the upgrade loop's folds (and template)
+    assert counter.steps == planned > 2 * (1 + 2)
 
 
 def test_refreshed_model_reoptimises_only_stages_that_outgrew_their_hyperparameters(rough):
@@ -248,3 +254,25 @@ def test_upgrade_follows_the_level_shift_rule_with_one_expensive_element_and_the
         assert np.all(np.abs(upgrade["value"] - rule) <= upgrade["std"])
     else:
         assert np.mean(np.abs(upgrade["value"] - truth)) < 0.8 * np.mean(np.abs(rule - truth))
+
+
+def test_upgrade_folds_start_from_the_correction_fitted_on_all_its_rows(rough):
+    """Each upgrade fold tunes its own kernel, starting from the correction stage fitted
+    on every element computed at both levels (as the main folds start from the full fit)."""
+    from dopantgap.surrogate.crossval import _upgrade_template
+    from dopantgap.surrogate.stages import _gaussian_process
+
+    _world, table, model, _scores = rough
+    core = model.table_[list(KEY_COLUMNS) + ["value"]]
+    quantity, methods = next((q, m) for q, m in model.quantity_levels_.items() if len(m) > 1)
+    cells, target, kind = model._stage_rows(core, quantity, 1)
+    assert kind == "correction"
+    template = _upgrade_template(model, "gp", cells, target, quantity, methods[1])
+    tuned = _gaussian_process(template.learner)
+    assert tuned is not None and hasattr(tuned, "regressor_")
+    fold = model._new_learner("gp", template.encoder, len(cells) - 5, template, mode="fold",
+                              kind="correction", n_elements=cells["element"].nunique())
+    started = _gaussian_process(fold)
+    np.testing.assert_array_equal(started.initial_kernel.theta, tuned.ard_kernel_.theta)
+    # a boosted learner has no search to shorten: no template is fitted for it
+    assert _upgrade_template(model, "boost", cells, target, quantity, methods[1]) is None

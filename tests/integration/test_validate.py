@@ -7,6 +7,7 @@ from sklearn.model_selection import GroupKFold, KFold
 
 from dopantgap import features as features_module
 from dopantgap import surrogate as surrogate_module
+from dopantgap.surrogate import crossval as crossval_module
 from dopantgap.baselines import BASELINES, baseline_applies
 from dopantgap.breakdown import ELEMENT_COLUMNS, FOLD_COLUMNS, GROUP_COLUMNS
 from dopantgap.calibration import SCENARIOS
@@ -190,7 +191,7 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
     trainings = []
     phase = {"now": None}
     original_fit_stages = surrogate_module.Surrogate._fit_stages
-    original_upgrade = surrogate_module.Surrogate._cross_validate_upgrade
+    original_upgrade_fold = crossval_module._upgrade_fold
     original_encoder_fit = features_module.CellEncoder.fit
 
     def recording_fit_stages(self, core, name, template, mode="fresh", shift_only=frozenset()):
@@ -198,9 +199,22 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
         phase["now"] = len(trainings) - 1
         return original_fit_stages(self, core, name, template, mode, shift_only)
 
-    def recording_upgrade(self, core, name):
+    upgrade_groups = []  # elements each upgrade fold hides, in the order the folds ran
+
+    def recording_upgrade_fold(*args, **kwargs):
         phase["now"] = "upgrade"
-        found = original_upgrade(self, core, name)
+        upgrade_groups.append({atomic_number(symbol) for symbol in args[9]})  # _upgrade_fold's group
+        found = original_upgrade_fold(*args, **kwargs)
+        phase["now"] = None
+        return found
+
+    original_template = crossval_module._upgrade_template
+
+    def recording_template(*args, **kwargs):
+        # the correction fitted on all its rows only warm-starts the folds' own searches
+        # (as the full fit does for the main folds)
+        phase["now"] = "upgrade template"
+        found = original_template(*args, **kwargs)
         phase["now"] = None
         return found
 
@@ -214,15 +228,18 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
     def recording_gp_fit(self, X, y):
         labels = np.asarray(X)[:, self.label_columns[0]]
         # optimised afresh, and choosing its own descriptors on these rows
-        gp_fits.append((phase["now"], {int(z) for z in labels},
+        when = ("upgrade", len(upgrade_groups) - 1) if phase["now"] == "upgrade" else phase["now"]
+        gp_fits.append((when, {int(z) for z in labels},
                         self.fixed_kernel is None and self.selection_group_column is not None))
         return original_gp_fit(self, X, y)
 
     monkeypatch.setattr(surrogate_module.Surrogate, "_fit_stages", recording_fit_stages)
-    monkeypatch.setattr(surrogate_module.Surrogate, "_cross_validate_upgrade", recording_upgrade)
+    monkeypatch.setattr(crossval_module, "_upgrade_fold", recording_upgrade_fold)
     monkeypatch.setattr(features_module.CellEncoder, "fit", recording_encoder_fit)
     monkeypatch.setattr(GPLearner, "fit", recording_gp_fit)
-    model = Surrogate(learner="gp", n_folds=4, random_state=2).fit(table)
+    monkeypatch.setattr(crossval_module, "_upgrade_template", recording_template)
+    # n_jobs=1: every fold in this process, where the recorders are patched in
+    model = Surrogate(learner="gp", n_folds=4, random_state=2, n_jobs=1).fit(table)
     residuals = model.cv_residuals_
     main_folds = sorted(residuals.loc[residuals["scenario"] != "upgrade", "fold"].unique())
     # fit order: the full fit, then one _fit_stages per main fold
@@ -250,6 +267,14 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
     assert len(loop_encoders) == len(upgrade_folds) > 0
     for seen, hidden in zip(loop_encoders, upgrade_folds):
         assert not seen & hidden
+    # ... and each fold's Gaussian process (where the correction has one) tunes its own
+    # hyperparameters on its own rows
+    assert len(upgrade_groups) == len(upgrade_folds)
+    loop_gps = [(when[1], seen, optimised) for when, seen, optimised in gp_fits
+                if isinstance(when, tuple) and when[0] == "upgrade"]
+    assert loop_gps
+    for fold, seen, optimised in loop_gps:
+        assert optimised and not seen & upgrade_groups[fold]
 
 
 def _rough_case(seed=0):

@@ -88,7 +88,7 @@ def no_work(monkeypatch):
     def began(*args, **kwargs):
         raise _Spy("work began before the arguments were checked")
 
-    monkeypatch.setattr(Surrogate, "_fit_candidate", began)
+    monkeypatch.setattr(Surrogate, "_fit_candidates", began)
     monkeypatch.setattr("dopantgap.surrogate.model._host_compositions", began)
 
 

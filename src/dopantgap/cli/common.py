@@ -52,6 +52,16 @@ def add_suspect_option(command):
     )
 
 
+def add_scheduler_option(command):
+    """--scheduler, for commands whose fits can run on a Dask cluster."""
+    command.add_argument(
+        "--scheduler", default=None, metavar="ADDRESS",
+        help="send the independent fits (learners, folds) to the Dask scheduler at ADDRESS, "
+             "e.g. tcp://HOST:8786 (default: $DOPANTGAP_SCHEDULER, else this machine's cores; "
+             "needs pip install \"dopantgap[cluster]\")",
+    )
+
+
 def say_suspects(policy, say, table):
     """List suspect values before a fit refuses them, or warn of each one kept."""
     import warnings

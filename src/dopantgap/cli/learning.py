@@ -3,7 +3,10 @@
 import time
 from pathlib import Path
 
-from dopantgap.cli.common import Command, _seed, add_suspect_option, add_table_options, say_suspects
+from dopantgap.cli.common import (
+    Command, _seed, add_scheduler_option, add_suspect_option, add_table_options, say_suspects,
+)
+from dopantgap.cluster import on_cluster
 from dopantgap.errors import DopantgapError
 
 
@@ -26,6 +29,7 @@ def add_learning_options(command, learner_help):
              "such as 'lattice_constant [angstrom]'",
     )
     add_suspect_option(command)
+    add_scheduler_option(command)
     command.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
@@ -107,8 +111,8 @@ def _table_and_estimator(arguments, say):
 def _learner_bar(arguments):
     from dopantgap.progress import bar
 
-    n_candidates = 2 if arguments.learner == "auto" else 1
-    return bar(n_candidates, "learners fitted and cross-validated", quiet=arguments.quiet)
+    # the fit counts its fits (cross-validation folds included) once it has read the table
+    return bar(1, "fits, cross-validation folds included", quiet=arguments.quiet)
 
 
 def _command_fit(arguments, say):
@@ -120,9 +124,11 @@ def _command_fit(arguments, say):
     table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
     say(f"Learning {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    with _learner_bar(arguments) as progress:
+    with on_cluster(arguments.scheduler) as address, _learner_bar(arguments) as progress:
+        if address:
+            say(f"Fits sent to the Dask scheduler at {address}")
         surrogate = estimator.fit(table, progress=progress)
-    metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
+        metrics, _predictions = validation_metrics(surrogate, random_state=arguments.seed)
     save_model(surrogate, arguments.out, source=arguments.table, validation=metrics)
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
@@ -150,7 +156,9 @@ def _command_validate(arguments, say):
     table, estimator = _table_and_estimator(arguments, say)
     started = time.perf_counter()
     say(f"Validating on {len(table)} computed cells of {table['element'].nunique()} elements ...")
-    with _learner_bar(arguments) as progress:
+    with on_cluster(arguments.scheduler) as address, _learner_bar(arguments) as progress:
+        if address:
+            say(f"Fits sent to the Dask scheduler at {address}")
         result = validate(table, estimator=estimator, random_state=arguments.seed, progress=progress)
     paths = write_validation(result, arguments.out)
     say(validation_text(result.metrics).rstrip("\n"))

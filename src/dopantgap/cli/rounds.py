@@ -4,8 +4,10 @@ import argparse
 from pathlib import Path
 
 from dopantgap.cli.common import (
-    Command, _load_model, _number_option, add_suspect_option, add_table_options, add_version_option, say_suspects,
+    Command, _load_model, _number_option, add_scheduler_option, add_suspect_option, add_table_options,
+    add_version_option, say_suspects,
 )
+from dopantgap.cluster import on_cluster
 from dopantgap.errors import DopantgapError
 
 
@@ -75,6 +77,7 @@ def _add_replay_parser(commands):
     )
     replay.add_argument("--window", default=None, metavar="QUANTITY:LOW:HIGH", help="window of the window goal, eV")
     add_suspect_option(replay)
+    add_scheduler_option(replay)
     replay.add_argument(
         "--relearn", choices=("fit", "refresh"), default="fit",
         help="after each round, fit the model in full as you would between rounds (a fit per "
@@ -162,16 +165,19 @@ def _command_replay(arguments, say):
     except ImportError:
         bar = None
     say(f"Replaying {rounds} rounds of {per_round} picks on {len(table)} cells ...")
-    if bar is None:
-        result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
-                        cost=cost, n_random_seeds=seeds, random_state=seed, keep_fraction=keep,
-                        window=arguments.window, estimator=estimator, relearn=arguments.relearn)
-    else:
-        with bar(total, "replay", quiet=arguments.quiet) as progress:
+    with on_cluster(arguments.scheduler) as address:
+        if address:
+            say(f"Fits sent to the Dask scheduler at {address}")
+        if bar is None:
             result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
-                            cost=cost, n_random_seeds=seeds, random_state=seed, progress=progress,
-                            keep_fraction=keep, window=arguments.window, estimator=estimator,
-                            relearn=arguments.relearn)
+                            cost=cost, n_random_seeds=seeds, random_state=seed, keep_fraction=keep,
+                            window=arguments.window, estimator=estimator, relearn=arguments.relearn)
+        else:
+            with bar(total, "replay", quiet=arguments.quiet) as progress:
+                result = replay(table, goal=goals, rounds=rounds, per_round=per_round, method=arguments.method,
+                                cost=cost, n_random_seeds=seeds, random_state=seed, progress=progress,
+                                keep_fraction=keep, window=arguments.window, estimator=estimator,
+                                relearn=arguments.relearn)
     paths = write_replay(result, arguments.out)
     say(replay_text(result).rstrip("\n"))
     say(f"Files in {arguments.out}: {', '.join(Path(path).name for path in paths.values())}")

@@ -1,6 +1,7 @@
 """A Gaussian process over (impurity, host atoms) pairs: the learner that places a host
 with no rows from what the other hosts teach."""
 
+import numbers
 import warnings
 
 import numpy as np
@@ -8,6 +9,7 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 __all__ = ["HostTransferGP"]
@@ -27,8 +29,15 @@ class HostTransferGP(RegressorMixin, BaseEstimator):
         Smoothness of the Matern kernel (1.5: once-differentiable functions).
     fixed_kernel : sklearn kernel or None, default=None
         A fitted kernel to reuse as it is (a refreshed model's: no optimisation).
+    max_optimise_samples : int or None, default=600
+        The three hyperparameters are optimised on at most this many randomly chosen
+        rows, then the process is conditioned on all rows with them held fixed. Each
+        step of the optimiser costs the cube of its rows: on every row, the pair models
+        of a 3,000-cell table took most of its fit (``benchmarks/bench_scale.py``); three
+        hyperparameters are well determined by a few hundred rows (common practice, no
+        source).
     random_state : int or None, default=None
-        Seed of the optimiser's restarts.
+        Seed of the subsample and the optimiser's restarts.
 
     Attributes
     ----------
@@ -38,10 +47,16 @@ class HostTransferGP(RegressorMixin, BaseEstimator):
         Its fitted kernel.
     """
 
-    def __init__(self, nu=1.5, fixed_kernel=None, random_state=None):
+    def __init__(self, nu=1.5, fixed_kernel=None, random_state=None, max_optimise_samples=600):
         self.nu = nu
         self.fixed_kernel = fixed_kernel
         self.random_state = random_state
+        self.max_optimise_samples = max_optimise_samples
+
+    def __setstate__(self, state):
+        # a model folder written before the optimiser took a subsample
+        state.setdefault("max_optimise_samples", None)
+        super().__setstate__(state)
 
     def fit(self, X, y):
         """Fit on an input matrix ``X`` (n_cells, n_inputs) and targets ``y``."""
@@ -55,10 +70,20 @@ class HostTransferGP(RegressorMixin, BaseEstimator):
             optimizer = "fmin_l_bfgs_b"
         # a stage whose target the pairs barely explain drives the signal variance to its
         # bound; that is an answer (the form loses in the host loop), not a failure
+        limit = self.max_optimise_samples
+        if limit is not None and (not isinstance(limit, numbers.Integral) or limit < 2):
+            raise ValueError(f"max_optimise_samples must be an integer >= 2 or None, got {limit!r}.")
+        rows = slice(None)
+        if optimizer is not None and limit is not None and X.shape[0] > limit:
+            rows = np.sort(check_random_state(self.random_state).choice(X.shape[0], size=limit, replace=False))
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", category=ConvergenceWarning)
             self.regressor_ = GaussianProcessRegressor(
                 kernel=kernel, optimizer=optimizer, normalize_y=True, random_state=self.random_state
+            ).fit(X[rows], y[rows])
+        if not isinstance(rows, slice):
+            self.regressor_ = GaussianProcessRegressor(
+                kernel=self.regressor_.kernel_, optimizer=None, normalize_y=True
             ).fit(X, y)
         self.kernel_ = self.regressor_.kernel_
         return self

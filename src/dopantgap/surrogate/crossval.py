@@ -7,16 +7,20 @@ without some of the elements computed at both levels. The residuals choose the l
 functions take the ``Surrogate``; its methods of the same names delegate here.
 """
 
+import os
+
 import numpy as np
 import pandas as pd
+from joblib import delayed
 
 from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibration
 from dopantgap.domain import LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.hosts import host_property_columns
 from dopantgap.surrogate.chain import difficulty_features
-from dopantgap.surrogate.stages import _CELL, NEW_HOST_FORMS, new_encoder
+from dopantgap.surrogate.stages import _CELL, NEW_HOST_FORMS, _Stage, _template_layout, new_encoder
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
+from dopantgap.workers import worker_pool
 
 # Folds of the upgrade loop: at most this many, over the elements computed at both
 # levels (leave-one-element-out when there are fewer; common practice, no source).
@@ -25,6 +29,8 @@ _UPGRADE_FOLDS = 12
 # groups of hosts held out together (common practice, no source: each fold refits every
 # stage from scratch, so the count bounds the fit time).
 _HOST_FOLDS = 8
+# Learners whose upgrade folds warm-start from a template (``_upgrade_template``)
+_TEMPLATE_LEARNERS = ("gp",)
 #: Fewest hosts for the host loop, and so for the ``new-host`` scenario (with two, a
 #: host held out leaves one to learn host effects from).
 MIN_HOSTS_FOR_NEW_HOST = 3
@@ -37,19 +43,115 @@ _SPARSE_FOLD_OFFSET = 50_000
 SPARSE_HOST_CELLS = 5
 
 
-def fit_candidate(surrogate, core, name):
-    """Fitted stages of one learner, their cross-validated residuals, and the
-    corrections that keep the column shifts alone (the upgrade loop decides)."""
-    upgrade, shift_only = surrogate._cross_validate_upgrade(core, name)
-    stages = surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
-    residuals = surrogate._cross_validate(core, name, stages, shift_only)
-    new_host, form = cross_validate_hosts(surrogate, core, name, shift_only)
-    for stage in stages.values():
-        stage.new_host_form = form
-    parts = [residuals] + [part for part in (upgrade, new_host) if len(part)]
-    if len(parts) > 1:
-        residuals = pd.concat(parts, ignore_index=True)
-    return stages, residuals, shift_only
+def fit_candidates(surrogate, core, candidates, progress=None):
+    """Per learner: its fitted stages, their cross-validated residuals, and the
+    corrections that keep the column shifts alone (the upgrade loop decides).
+
+    Every fit that does not wait on another goes to the workers at once, whatever its
+    learner, in four waves: (1) the upgrade loop's templates and the folds that need
+    none; (2) the upgrade folds that start from a template; (3) the full fits and the
+    host folds (they need the upgrade loop's choice); (4) the main folds (they start
+    from the full fit). Fitted learner by learner, the boosted trees' short folds left
+    the Gaussian process's long ones alone on one core (``benchmarks/bench_scale.py``).
+    ``progress`` (anything with ``update(n=1)``) is told after each of the
+    ``planned_fits`` fits.
+    """
+    plans = _upgrade_plans(surrogate, core)
+    # (1) and (2): the upgrade loop
+    templates, first, then = {}, [], []
+    for name in candidates:
+        for index, plan in enumerate(plans):
+            if name in _TEMPLATE_LEARNERS:
+                first.append((("template", name, index), delayed(_upgrade_template)(
+                    surrogate, name, plan["cells"], plan["target"], plan["quantity"], plan["method"])))
+                then.append((name, index))
+            else:
+                first.extend(_upgrade_tasks(surrogate, core, name, plan, index, template=None))
+    upgrade_parts = {(name, index): [] for name in candidates for index in range(len(plans))}
+    for (kind, name, index), result in zip([key for key, _ in first], _each(surrogate, [task for _, task in first], progress)):
+        if kind == "template":
+            templates[(name, index)] = result
+        else:
+            upgrade_parts[(name, index)].append(result)
+    waiting = [task for name, index in then
+               for task in _upgrade_tasks(surrogate, core, name, plans[index], index, templates[(name, index)])]
+    for (_kind, name, index), result in zip([key for key, _ in waiting], _each(surrogate, [task for _, task in waiting], progress)):
+        upgrade_parts[(name, index)].append(result)
+    upgrade, shift_only = {}, {}
+    for name in candidates:
+        upgrade[name], shift_only[name] = _upgrade_outcome(
+            plans, [upgrade_parts[(name, index)] for index in range(len(plans))]
+        )
+    # (3) the full fits and the host loop
+    host_forms = _host_forms(surrogate)
+    levels = surrogate.quantity_levels_
+    lowest = np.array([levels[q].index(m) == 0 for q, m in zip(core["quantity"], core["method"])], dtype=bool)
+    groups = host_groups(core, surrogate._seed())
+    keys, tasks = [], []
+    for name in candidates:
+        keys.append(("full", name))
+        tasks.append(delayed(_full_fit)(surrogate, core, name, shift_only[name]))
+        for position, group in enumerate(groups):
+            keys.append(("host", name))
+            tasks.append(delayed(_host_fold)(
+                surrogate, core, name, shift_only[name], host_forms, lowest, position, group
+            ))
+    stages, host_parts = {}, {name: [] for name in candidates}
+    for (kind, name), result in zip(keys, _each(surrogate, tasks, progress)):
+        if kind == "full":
+            stages[name] = result
+        else:
+            host_parts[name].append(result)
+    # (4) the main folds
+    folds = [(fold, test) for fold, test in enumerate(surrogate._fold_masks(core)) if test.any()]
+    keys, tasks = [], []
+    for name in candidates:
+        for fold, test in folds:
+            keys.append(name)
+            tasks.append(delayed(_fold_predictions)(surrogate, core, name, stages[name], shift_only[name], fold, test))
+    main_parts = {name: [] for name in candidates}
+    for name, result in zip(keys, _each(surrogate, tasks, progress)):
+        main_parts[name].append(result)
+    outcomes = {}
+    for name in candidates:
+        new_host, form = _host_outcome(host_forms, host_parts[name])
+        for stage in stages[name].values():
+            stage.new_host_form = form
+        parts = [_main_outcome(main_parts[name])] + [part for part in (upgrade[name], new_host) if len(part)]
+        residuals = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
+        outcomes[name] = (stages[name], residuals, shift_only[name])
+    return outcomes
+
+
+def _full_fit(surrogate, core, name, shift_only):
+    """The stages of learner ``name`` fitted on the whole table."""
+    return surrogate._fit_stages(core, name, template=None, shift_only=shift_only)
+
+
+def planned_fits(surrogate, core, name):
+    """How many fits ``fit_candidate`` makes for learner ``name``: the upgrade loop's
+    (its template and folds), the full fit, the main folds and the host folds."""
+    count = 1 + sum(bool(test.any()) for test in surrogate._fold_masks(core))
+    count += len(host_groups(core, surrogate._seed()))
+    for plan in _upgrade_plans(surrogate, core):
+        count += len(plan["groups"]) + (name in _TEMPLATE_LEARNERS)
+    return count
+
+
+def _tick(progress, n=1):
+    if progress is not None:
+        progress.update(n)
+
+
+def _each(surrogate, tasks, progress=None):
+    """The results of the delayed ``tasks``, in order, fitted side by side
+    (``workers.worker_pool``); ``progress`` is told as each one ends."""
+    tasks = list(tasks)
+    results = []
+    for result in worker_pool(n_jobs=n_workers(surrogate, len(tasks)), return_as="generator")(tasks):
+        results.append(result)
+        _tick(progress)
+    return results
 
 
 def host_groups(core, seed):
@@ -62,7 +164,15 @@ def host_groups(core, seed):
     return [list(group) for group in np.array_split(hosts, min(_HOST_FOLDS, len(hosts)))]
 
 
-def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
+def _host_forms(surrogate):
+    """The forms the host loop compares (``stages.NEW_HOST_FORMS``; the properties' form
+    only when the host file gives some)."""
+    values = getattr(surrogate, "host_values_", None)
+    with_properties = values is not None and bool(host_property_columns(values))
+    return tuple(form for form in NEW_HOST_FORMS if with_properties or form != "pairs_properties")
+
+
+def _host_outcome(form_names, fold_results):
     """Out-of-fold predictions of hosts held out whole (``new-host``) and of hosts just
     started (``sparse-host``).
 
@@ -80,6 +190,8 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     with the lowest out-of-fold mean absolute error is kept (the earlier on a tie), so a
     new host is never predicted worse than the rule on the table's own evidence.
 
+    ``fold_results`` holds each fold's ``_host_fold`` result.
+
     Returns
     -------
     residuals : DataFrame
@@ -87,49 +199,10 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
     form : str
         The form kept ("learner" below three hosts).
     """
-    # the properties' form competes only when the host file gives some
-    values = getattr(surrogate, "host_values_", None)
-    with_properties = values is not None and bool(host_property_columns(values))
-    forms = {form: [] for form in NEW_HOST_FORMS if with_properties or form != "pairs_properties"}
-    levels = surrogate.quantity_levels_
-    lowest = np.array([levels[q].index(m) == 0 for q, m in zip(core["quantity"], core["method"])], dtype=bool)
-    for position, group in enumerate(host_groups(core, surrogate._seed())):
-        test = core["host"].isin(group).to_numpy()
-        rng = np.random.default_rng(surrogate._seed() + 3 + position)
-        given = np.zeros(len(core), dtype=bool)
-        for host in group:
-            candidates = np.flatnonzero((core["host"] == host).to_numpy() & lowest)
-            if len(candidates) > 2 * SPARSE_HOST_CELLS:
-                given[rng.choice(candidates, size=SPARSE_HOST_CELLS, replace=False)] = True
-        fits = [(test, _HOST_FOLD_START + position, "new-host")]
-        if given.any():
-            fits.append((test & ~given, _HOST_FOLD_START + _SPARSE_FOLD_OFFSET + position, "sparse-host"))
-        stages = None
-        for hidden, fold, kept in fits:
-            training, held_out = core[~hidden], core[hidden].reset_index(drop=True)
-            # the host's first cells condition the stages fitted without it (their
-            # kernels kept, as a refreshed model keeps them when a user adds rows)
-            stages = surrogate._fit_stages(
-                training, name, template=stages, mode="fresh" if stages is None else "grown", shift_only=shift_only
-            )
-            servable = np.array([(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])])
-            # each cell once per scenario: a quantity none of the given cells has stays
-            # new-host, already predicted by the first fit
-            servable &= surrogate._scenarios(training, held_out) == kept
-            held_out = held_out[servable].reset_index(drop=True)
-            if len(held_out) == 0:
-                continue
-            level_domain = LevelDomain(
-                descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
-            ).fit(training)
-            difficulty = difficulty_features(level_domain, training, held_out)
-            scenario = surrogate._scenarios(training, held_out)
-            for form, parts in forms.items():
-                for stage in stages.values():
-                    stage.new_host_form = form
-                mean, std = surrogate._predict_raw(stages, training, held_out)
-                part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=fold)
-                parts.append(pd.concat([part, difficulty], axis=1))
+    forms = {form: [] for form in form_names}
+    for found in fold_results:
+        for form, parts in found.items():
+            forms[form].extend(parts)
     if not forms["learner"]:
         return pd.DataFrame(), "learner"
     found = {}
@@ -140,6 +213,49 @@ def cross_validate_hosts(surrogate, core, name, shift_only=frozenset()):
         found[form] = residuals
     form = min(found, key=lambda name: float(np.mean(np.abs(found[name]["error"]))))
     return found[form], form
+
+
+def _host_fold(surrogate, core, name, shift_only, form_names, lowest, position, group):
+    """One fold of the host loop: the hosts of ``group`` held out whole, then with a
+    few of their cells given back; form -> list of predicted parts."""
+    forms = {form: [] for form in form_names}
+    test = core["host"].isin(group).to_numpy()
+    rng = np.random.default_rng(surrogate._seed() + 3 + position)
+    given = np.zeros(len(core), dtype=bool)
+    for host in group:
+        candidates = np.flatnonzero((core["host"] == host).to_numpy() & lowest)
+        if len(candidates) > 2 * SPARSE_HOST_CELLS:
+            given[rng.choice(candidates, size=SPARSE_HOST_CELLS, replace=False)] = True
+    fits = [(test, _HOST_FOLD_START + position, "new-host")]
+    if given.any():
+        fits.append((test & ~given, _HOST_FOLD_START + _SPARSE_FOLD_OFFSET + position, "sparse-host"))
+    stages = None
+    for hidden, fold, kept in fits:
+        training, held_out = core[~hidden], core[hidden].reset_index(drop=True)
+        # the host's first cells condition the stages fitted without it (their
+        # kernels kept, as a refreshed model keeps them when a user adds rows)
+        stages = surrogate._fit_stages(
+            training, name, template=stages, mode="fresh" if stages is None else "grown", shift_only=shift_only
+        )
+        servable = np.array([(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])])
+        # each cell once per scenario: a quantity none of the given cells has stays
+        # new-host, already predicted by the first fit
+        servable &= surrogate._scenarios(training, held_out) == kept
+        held_out = held_out[servable].reset_index(drop=True)
+        if len(held_out) == 0:
+            continue
+        level_domain = LevelDomain(
+            descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+        ).fit(training)
+        difficulty = difficulty_features(level_domain, training, held_out)
+        scenario = surrogate._scenarios(training, held_out)
+        for form, parts in forms.items():
+            for stage in stages.values():
+                stage.new_host_form = form
+            mean, std = surrogate._predict_raw(stages, training, held_out)
+            part = held_out.assign(mean=mean, raw_std=std, scenario=scenario, fold=fold)
+            parts.append(pd.concat([part, difficulty], axis=1))
+    return forms
 
 
 def fold_masks(surrogate, core):
@@ -190,31 +306,39 @@ def fold_masks(surrogate, core):
     return masks
 
 
-def cross_validate(surrogate, core, name, template, shift_only=frozenset()):
-    """Out-of-fold predictions of every hidden cell, with its scenario."""
-    records = []
-    for fold, test in enumerate(surrogate._fold_masks(core)):
-        if not test.any():
-            continue
-        training, held_out = core[~test], core[test].reset_index(drop=True)
-        stages = surrogate._fit_stages(training, name, template=template, mode="fold", shift_only=shift_only)
-        servable = np.array(
-            [(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])]
-        )
-        held_out = held_out[servable].reset_index(drop=True)
-        if len(held_out) == 0:
-            continue
-        mean, std = surrogate._predict_raw(stages, training, held_out)
-        part = held_out.copy()
-        part["mean"] = mean
-        part["raw_std"] = std
-        part["scenario"] = surrogate._scenarios(training, held_out)
-        part["fold"] = fold
-        level_domain = LevelDomain(
-            descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
-        ).fit(training)
-        part = pd.concat([part, difficulty_features(level_domain, training, held_out)], axis=1)
-        records.append(part)
+def n_workers(surrogate, n_tasks):
+    """Workers for ``n_tasks`` independent fits: the surrogate's ``n_jobs`` (2 for model
+    folders written before it existed), never more than the tasks."""
+    n_jobs = getattr(surrogate, "n_jobs", 2)
+    return max(1, min(n_tasks, n_jobs if n_jobs > 0 else os.cpu_count() or 1))
+
+
+def _fold_predictions(surrogate, core, name, template, shift_only, fold, test):
+    """One main fold: its stages fitted without the hidden cells, and the hidden cells'
+    predictions (None when the fold's stages serve none of them)."""
+    training, held_out = core[~test], core[test].reset_index(drop=True)
+    stages = surrogate._fit_stages(training, name, template=template, mode="fold", shift_only=shift_only)
+    servable = np.array(
+        [(q, m) in stages for q, m in zip(held_out["quantity"], held_out["method"])]
+    )
+    held_out = held_out[servable].reset_index(drop=True)
+    if len(held_out) == 0:
+        return None
+    mean, std = surrogate._predict_raw(stages, training, held_out)
+    part = held_out.copy()
+    part["mean"] = mean
+    part["raw_std"] = std
+    part["scenario"] = surrogate._scenarios(training, held_out)
+    part["fold"] = fold
+    level_domain = LevelDomain(
+        descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+    ).fit(training)
+    return pd.concat([part, difficulty_features(level_domain, training, held_out)], axis=1)
+
+
+def _main_outcome(fold_results):
+    """The main folds' out-of-fold predictions of every hidden cell, with its scenario."""
+    records = [part for part in fold_results if part is not None]
     if not records:
         raise DopantgapError(
             "Cross-validation found nothing to hold out: the table needs at least two elements."
@@ -225,25 +349,11 @@ def cross_validate(surrogate, core, name, template, shift_only=frozenset()):
     return residuals
 
 
-def cross_validate_upgrade(surrogate, core, name):
-    """Out-of-fold upgrade predictions, and the corrections best left to the shifts.
-
-    Each correction stage is relearned without some of the elements computed at
-    both levels, which are then predicted from their computed cheap level (the only
-    part of the chain an upgrade needs), twice: as the column shifts' prior plus the
-    learner, and as the prior alone. A stage whose learner does not lower the
-    out-of-fold mean absolute error keeps the prior alone (its name is returned),
-    so an upgrade is never worse than the shift rule on the table's own evidence.
-
-    Returns
-    -------
-    residuals : DataFrame
-        The kept form's out-of-fold predictions (empty when no stage has three
-        elements at both levels).
-    shift_only : frozenset
-        (quantity, method) of the corrections that keep the prior alone.
-    """
-    records, shift_only = [], set()
+def _upgrade_plans(surrogate, core):
+    """The correction stages the upgrade loop relearns, each as a dict: quantity,
+    method, cells, target, below (the cheap level's rows), groups (of elements hidden
+    together) and first_fold (the id of its first fold)."""
+    plans = []
     rng = np.random.default_rng(surrogate._seed() + 1)
     # fold numbers continue after the main loop's, so that every fold id is unique
     fold = int(min(max(surrogate.n_folds, 2), core["element"].nunique()))
@@ -256,52 +366,59 @@ def cross_validate_upgrade(surrogate, core, name):
             if len(both) < 3:
                 continue
             rng.shuffle(both)
-            below = core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])]
-            forms = {"learner": [], "shift": []}
-            for group in np.array_split(both, min(_UPGRADE_FOLDS, len(both))):
-                test = cells["element"].isin(group).to_numpy()
-                encoder = new_encoder(surrogate)
-                encoder.fit(cells[~test])
-                training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
-                part = cells[test].reset_index(drop=True)
-                cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"].to_numpy()
-                part["method"] = methods[position]
-                part["quantity"] = quantity
-                part["value"] = target[test] + cheap
-                part["scenario"] = "upgrade"
-                part["fold"] = fold
-                fold += 1
-                # what the fold knew: the table less the hidden elements' cells at this level
-                hidden = (
-                    (core["quantity"] == quantity)
-                    & (core["method"] == methods[position])
-                    & core["element"].isin(group)
-                )
-                known = core[~hidden]
-                level_domain = LevelDomain(
-                    descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
-                ).fit(known)
-                part = pd.concat([part, difficulty_features(level_domain, known, part)], axis=1)
-                n_elements = cells.loc[~test, "element"].nunique()
-                for form in forms:
-                    learner = surrogate._new_learner(
-                        name, encoder, int((~test).sum()), template=None, kind="correction",
-                        n_elements=n_elements, shift_only=form == "shift",
-                    )
-                    learner.fit(training_x, target[~test])
-                    correction, std = learner.predict(hidden_x, return_std=True)
-                    forms[form].append(
-                        part.assign(
-                            mean=np.asarray(correction, dtype=float) + cheap,
-                            raw_std=np.asarray(std, dtype=float),
-                        )
-                    )
-            found = {form: pd.concat(parts, ignore_index=True) for form, parts in forms.items()}
-            error = {form: float(np.mean(np.abs(rows["value"] - rows["mean"]))) for form, rows in found.items()}
-            kept = "learner" if error["learner"] < error["shift"] else "shift"
-            if kept == "shift":
-                shift_only.add((quantity, methods[position]))
-            records.append(found[kept])
+            groups = np.array_split(both, min(_UPGRADE_FOLDS, len(both)))
+            plans.append({
+                "quantity": quantity, "method": methods[position], "cells": cells, "target": target,
+                "below": core[(core["quantity"] == quantity) & (core["method"] == methods[position - 1])],
+                "groups": groups, "first_fold": fold,
+            })
+            fold += len(groups)
+    return plans
+
+
+def _upgrade_tasks(surrogate, core, name, plan, index, template):
+    """The upgrade folds of ``plan`` (the ``index``-th) for learner ``name``, as
+    ((kind, name, index), delayed fit) pairs."""
+    return [
+        (("fold", name, index), delayed(_upgrade_fold)(
+            surrogate, core, name, plan["cells"], plan["target"], plan["below"], plan["quantity"],
+            plan["method"], template, group, plan["first_fold"] + offset,
+        ))
+        for offset, group in enumerate(plan["groups"])
+    ]
+
+
+def _upgrade_outcome(plans, fold_results):
+    """Out-of-fold upgrade predictions, and the corrections best left to the shifts.
+
+    Each correction stage is relearned without some of the elements computed at
+    both levels, which are then predicted from their computed cheap level (the only
+    part of the chain an upgrade needs), twice: as the column shifts' prior plus the
+    learner, and as the prior alone. A stage whose learner does not lower the
+    out-of-fold mean absolute error keeps the prior alone (its name is returned),
+    so an upgrade is never worse than the shift rule on the table's own evidence.
+
+    ``fold_results`` holds, per plan of ``_upgrade_plans``, its folds' ``_upgrade_fold``
+    results.
+
+    Returns
+    -------
+    residuals : DataFrame
+        The kept form's out-of-fold predictions (empty when no stage has three
+        elements at both levels).
+    shift_only : frozenset
+        (quantity, method) of the corrections that keep the prior alone.
+    """
+    records, shift_only = [], set()
+    for plan, results in zip(plans, fold_results):
+        found = {
+            form: pd.concat([result[form] for result in results], ignore_index=True) for form in ("learner", "shift")
+        }
+        error = {form: float(np.mean(np.abs(rows["value"] - rows["mean"]))) for form, rows in found.items()}
+        kept = "learner" if error["learner"] < error["shift"] else "shift"
+        if kept == "shift":
+            shift_only.add((plan["quantity"], plan["method"]))
+        records.append(found[kept])
     if not records:
         return pd.DataFrame(), frozenset(shift_only)
     residuals = pd.concat(records, ignore_index=True)[
@@ -311,6 +428,66 @@ def cross_validate_upgrade(surrogate, core, name):
     residuals["error"] = residuals["value"] - residuals["mean"]
     residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
     return residuals, frozenset(shift_only)
+
+
+def _upgrade_fold(surrogate, core, name, cells, target, below, quantity, method, template, group, fold):
+    """One upgrade fold: the correction stage relearned without the elements of ``group``
+    at level ``method``, and their cells predicted from their computed cheap level, as
+    the learner on the shifts' prior ("learner") and as the prior alone ("shift")."""
+    columns, indicator_keys, host_names = _template_layout(template, cells)
+    test = cells["element"].isin(group).to_numpy()
+    encoder = new_encoder(surrogate)
+    encoder.fit(cells[~test], columns=columns, indicator_keys=indicator_keys, host_names=host_names)
+    training_x, hidden_x = encoder.transform(cells[~test]), encoder.transform(cells[test])
+    part = cells[test].reset_index(drop=True)
+    cheap = part.merge(below[_CELL + ["value"]], on=_CELL, how="left")["value"].to_numpy()
+    part["method"] = method
+    part["quantity"] = quantity
+    part["value"] = target[test] + cheap
+    part["scenario"] = "upgrade"
+    part["fold"] = fold
+    # what the fold knew: the table less the hidden elements' cells at this level
+    hidden = (core["quantity"] == quantity) & (core["method"] == method) & core["element"].isin(group)
+    known = core[~hidden]
+    level_domain = LevelDomain(
+        descriptors=surrogate.descriptors_, descriptor_values=surrogate.descriptor_values_
+    ).fit(known)
+    part = pd.concat([part, difficulty_features(level_domain, known, part)], axis=1)
+    n_elements = cells.loc[~test, "element"].nunique()
+    found = {}
+    for form in ("learner", "shift"):
+        learner = surrogate._new_learner(
+            name, encoder, int((~test).sum()), template=template, mode="fold",
+            kind="correction", n_elements=n_elements, shift_only=form == "shift",
+        )
+        learner.fit(training_x, target[~test])
+        correction, std = learner.predict(hidden_x, return_std=True)
+        found[form] = part.assign(
+            mean=np.asarray(correction, dtype=float) + cheap, raw_std=np.asarray(std, dtype=float)
+        )
+    return found
+
+
+def _upgrade_template(surrogate, name, cells, target, quantity, method):
+    """The correction stage fitted on all of ``cells``, whose hyperparameters warm-start
+    the upgrade folds (as the main loop's folds start from the full fit); None when the
+    learner has no hyperparameter search to shorten.
+
+    Each fold still tunes its own kernel and chooses its own descriptors on its own
+    rows, so a hidden element never shapes the covariance that predicts it. Starting
+    from scratch in each of up to ``_UPGRADE_FOLDS`` folds was most of a fit's time on
+    large tables (benchmarks/bench_scale.py).
+    """
+    if name not in _TEMPLATE_LEARNERS:
+        return None
+    encoder = new_encoder(surrogate)
+    encoder.fit(cells)
+    learner = surrogate._new_learner(
+        name, encoder, len(cells), template=None, kind="correction",
+        n_elements=cells["element"].nunique(),
+    )
+    learner.fit(encoder.transform(cells), target)
+    return _Stage(quantity, method, "correction", encoder, learner)
 
 
 def _calibration(residuals):

@@ -11,7 +11,6 @@ import numbers
 
 import numpy as np
 import pandas as pd
-from joblib import delayed
 from sklearn.base import BaseEstimator, clone
 from sklearn.utils.validation import check_is_fitted
 
@@ -25,7 +24,6 @@ from dopantgap.surrogate import chain, crossval
 from dopantgap.surrogate.crossval import _calibration, _selection_residuals
 from dopantgap.surrogate.stages import fit_stages, new_learner, stage_rows
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, check_frame
-from dopantgap.workers import worker_pool
 
 __all__ = ["LEARNERS", "Surrogate", "order_levels"]
 
@@ -105,6 +103,12 @@ def _check_folds(n_folds):
         raise DopantgapError(f"n_folds must be a whole number of at least 2, got {n_folds!r}.")
 
 
+def _check_jobs(n_jobs):
+    """Refuse a worker count that is not a whole number, or is 0 or below -1."""
+    if isinstance(n_jobs, bool) or not isinstance(n_jobs, numbers.Integral) or n_jobs == 0 or n_jobs < -1:
+        raise DopantgapError(f"n_jobs must be a whole number of at least 1, or -1 for every core; got {n_jobs!r}.")
+
+
 def _host_compositions(table, host_map):
     """Host compositions, with an unreadable host label located in the user's file."""
     compositions = {}
@@ -155,6 +159,12 @@ class Surrogate(BaseEstimator):
         (``table.suspect_values``): ``fit`` refuses the table, or keeps them with a
         ``SuspectValueWarning`` each. The table passes ``table.check_frame`` first,
         the reader's checks, whether it was read from a file or built in memory.
+    n_jobs : int, default=2
+        Worker processes for the independent fits: each candidate learner's
+        cross-validation folds (``workers.worker_pool``); 1 fits everything in this
+        process, -1 uses every core. Inside
+        ``cluster.on_cluster`` the work goes to the Dask cluster instead. The model
+        is the same whatever the value.
 
     Attributes
     ----------
@@ -211,7 +221,9 @@ class Surrogate(BaseEstimator):
         suspect_values="refuse",
         host_properties=None,
         site_kinds=None,
+        n_jobs=2,
     ):
+        self.n_jobs = n_jobs
         self.learner = learner
         self.levels = levels
         self.correction = correction
@@ -227,6 +239,7 @@ class Surrogate(BaseEstimator):
         # a model folder written before hosts had properties and site kinds lacks them
         state.setdefault("host_properties", None)
         state.setdefault("site_kinds", None)
+        state.setdefault("n_jobs", 2)
         super().__setstate__(state)
 
     # ------------------------------------------------------------------ fitting
@@ -239,8 +252,9 @@ class Surrogate(BaseEstimator):
             Long table with columns element, host, site, method, quantity, value
             (as returned by ``table.read_table``); other columns are kept, unused.
         progress : object or None, default=None
-            Anything with ``update(n=1)`` (``dopantgap.progress.bar``), told when each
-            candidate learner has been fitted and cross-validated.
+            Anything with ``update(n=1)`` (``dopantgap.progress.bar``), told after each
+            fit (the full fits and every cross-validation fold); if it has
+            ``expect(total)``, it is first told how many there will be.
 
         Returns
         -------
@@ -250,6 +264,7 @@ class Surrogate(BaseEstimator):
         seed = seed_integer(self.random_state)
         descriptors = _checked_descriptors(self.descriptors)
         _check_folds(self.n_folds)
+        _check_jobs(self.n_jobs)
         # the reader's checks, for a table built in memory as for one read from a file
         table = check_frame(table, suspect_values=self.suspect_values)
         missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]
@@ -282,18 +297,14 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         candidates = LEARNERS if self.learner == "auto" else (self.learner,)
-        # the candidates are independent: on two cores they fit side by side, each
-        # worker held to one BLAS/OpenMP thread so that they do not fight for cores
-        outcomes = []
-        for outcome in worker_pool(n_jobs=min(len(candidates), 2), return_as="generator")(
-            delayed(self._fit_candidate)(core, name) for name in candidates
-        ):
-            outcomes.append(outcome)
-            if progress is not None:
-                progress.update(1)
-        fitted = {name: stages for name, (stages, _, _) in zip(candidates, outcomes)}
-        residuals = {name: found for name, (_, found, _) in zip(candidates, outcomes)}
-        shift_only = {name: chosen for name, (_, _, chosen) in zip(candidates, outcomes)}
+        # every candidate's fits handed to the workers together (crossval.fit_candidates)
+        expect = getattr(progress, "expect", None)
+        if callable(expect):
+            expect(sum(crossval.planned_fits(self, core, name) for name in candidates))
+        outcomes = self._fit_candidates(core, candidates, progress)
+        fitted = {name: outcomes[name][0] for name in candidates}
+        residuals = {name: outcomes[name][1] for name in candidates}
+        shift_only = {name: outcomes[name][2] for name in candidates}
         mae = {name: float(np.mean(np.abs(residuals[name]["error"]))) for name in candidates}
         # a tie keeps the earlier candidate: the Gaussian process, whose spread is principled
         self.learner_ = min(candidates, key=lambda name: (mae[name], candidates.index(name)))
@@ -452,10 +463,10 @@ class Surrogate(BaseEstimator):
         return seed_integer(self.random_state) if seed is None else seed
 
 
-    def _fit_candidate(self, core, name):
-        """Fitted stages of one learner, their cross-validated residuals, and the
-        corrections that keep the column shifts alone (``crossval.fit_candidate``)."""
-        return crossval.fit_candidate(self, core, name)
+    def _fit_candidates(self, core, candidates, progress=None):
+        """Per learner: fitted stages, cross-validated residuals and the corrections that
+        keep the column shifts alone (``crossval.fit_candidates``)."""
+        return crossval.fit_candidates(self, core, candidates, progress)
 
     def _stage_rows(self, core, quantity, position):
         """Training cells and target of a stage, and whether it is a correction
@@ -640,16 +651,6 @@ class Surrogate(BaseEstimator):
     def _fold_masks(self, core):
         """Boolean test masks over ``core`` rows, one per fold (``crossval.fold_masks``)."""
         return crossval.fold_masks(self, core)
-
-    def _cross_validate(self, core, name, template, shift_only=frozenset()):
-        """Out-of-fold predictions of every hidden cell, with its scenario
-        (``crossval.cross_validate``)."""
-        return crossval.cross_validate(self, core, name, template, shift_only)
-
-    def _cross_validate_upgrade(self, core, name):
-        """Out-of-fold upgrade predictions, and the corrections best left to the shifts
-        (``crossval.cross_validate_upgrade``)."""
-        return crossval.cross_validate_upgrade(self, core, name)
 
     def _metrics(self, name, residuals):
         """Per scenario and quantity metrics of one learner (``crossval.metrics``)."""

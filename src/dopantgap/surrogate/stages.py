@@ -44,7 +44,7 @@ _FOLD_OPTIMISER_ITERATIONS = 30
 # re-optimised learned the expensive level half as fast).
 _REOPTIMISE_GROWTH = 1.25
 #: The forms a stage can predict a host it never saw with; the host loop keeps the one
-#: with the lowest out-of-fold error (``crossval.cross_validate_hosts``): the stage's
+#: with the lowest out-of-fold error (``crossval._host_outcome``): the stage's
 #: learner, the other-hosts rule, the pair model (``learners.HostTransferGP`` on
 #: ``features.PairEncoder`` rows), or the pair model that also reads the host file's
 #: properties (only when the host file gives some for every host).
@@ -73,7 +73,7 @@ class _Stage:
     per element and site kind, and per site kind); ``pairs`` is the fitted pair model
     (encoder, learner) or None; ``new_host_form`` (one of ``NEW_HOST_FORMS``) says which
     mean cells of a host the stage never saw take (the host loop decides:
-    ``crossval.cross_validate_hosts``).
+    ``crossval._host_outcome``).
     """
 
     def __init__(self, quantity, method, kind, encoder, learner, tuned_rows=None, other_hosts_means=None,
