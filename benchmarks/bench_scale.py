@@ -20,6 +20,11 @@ Each step runs as the command a user types (``dopantgap fit``, ``fill``, ``next
   (new-cell: cheap-level cells left out; upgrade: hyb cells of elements computed at gga
   only) and the coverage of the 90 % intervals (share of true values inside lo..hi).
 
+With ``--dask-workers 1,2,4`` the fit is run again on a Dask ``LocalCluster`` of that
+many worker processes (one thread each; ``fit --scheduler``, needs ``pip install
+"dopantgap[cluster]"``): wall time and speed-up over the local fit. The cluster's
+workers are not children of the fit, so only the wall time is printed.
+
 A step that outlives ``--timeout`` is stopped (its whole process tree) and printed as
 "> T s"; the sizes after it are skipped for that step and what depends on it.
 
@@ -181,6 +186,19 @@ def accuracy(world, table, filled_path):
     }
 
 
+def dask_fit(n_workers, command, timeout, local_wall):
+    """Wall time of ``command`` (a fit) sent to a LocalCluster of ``n_workers``, printed
+    with its speed-up over ``local_wall``."""
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        wall, _cpu, _peak, finished, error = run_step(command + ["--scheduler", cluster.scheduler_address], timeout)
+    shown = _seconds(wall, finished, timeout)
+    speed_up = f"{local_wall / wall:.2f}x the local fit" if finished else "stopped"
+    print(f"  fit on {n_workers} Dask worker(s): wall {shown:>8}  ({speed_up})")
+    return shown
+
+
 def _seconds(value, finished, timeout):
     return f"{value:.0f} s" if finished else f"> {timeout:.0f} s"
 
@@ -192,7 +210,10 @@ def main(argv=None):
     parser.add_argument("--timeout", type=float, default=900.0, help="seconds before a step is stopped")
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--keep", metavar="DIR", default=None, help="keep tables, models and outputs in DIR")
+    parser.add_argument("--dask-workers", default="", metavar="N,...",
+                        help="also fit on a Dask LocalCluster of each of these many workers (e.g. 1,2,4)")
     arguments = parser.parse_args(argv)
+    dask_workers = [int(n) for n in arguments.dask_workers.split(",") if n.strip()]
     sizes = [int(size) for size in arguments.sizes.split(",")]
     print("Scale benchmark on INVENTED tables (world.invent_second_world over growing hosts; not DFT data)")
     print(f"load average at start: {' '.join(f'{x:.2f}' for x in os.getloadavg())} on {os.cpu_count()} cores; "
@@ -237,6 +258,13 @@ def main(argv=None):
                 row.update(scores)
                 print(f"        new-cell MAE {scores['new-cell MAE']:.3f} eV, upgrade MAE {scores['upgrade MAE']:.3f} eV, "
                       f"coverage of 90 % intervals {scores['coverage']:.3f} ({scores['cells scored']} cells)")
+        if "fit" not in stopped:
+            local_wall = float(row["fit"].split()[0])
+            for n_workers in dask_workers:
+                row[f"fit, {n_workers} Dask workers"] = dask_fit(
+                    n_workers, steps[0][1] + ["--out", str(here / f"model_dask{n_workers}")], arguments.timeout,
+                    local_wall,
+                )
         rows.append(row)
     print("\nsummary:")
     print(pd.DataFrame(rows).to_string(index=False))
