@@ -255,24 +255,3 @@ def test_upgrade_follows_the_level_shift_rule_with_one_expensive_element_and_the
     else:
         assert np.mean(np.abs(upgrade["value"] - truth)) < 0.8 * np.mean(np.abs(rule - truth))
 
-
-def test_upgrade_folds_start_from_the_correction_fitted_on_all_its_rows(rough):
-    """Each upgrade fold tunes its own kernel, starting from the correction stage fitted
-    on every element computed at both levels (as the main folds start from the full fit)."""
-    from dopantgap.surrogate.crossval import _upgrade_template
-    from dopantgap.surrogate.stages import _gaussian_process
-
-    _world, table, model, _scores = rough
-    core = model.table_[list(KEY_COLUMNS) + ["value"]]
-    quantity, methods = next((q, m) for q, m in model.quantity_levels_.items() if len(m) > 1)
-    cells, target, kind = model._stage_rows(core, quantity, 1)
-    assert kind == "correction"
-    template = _upgrade_template(model, "gp", cells, target, quantity, methods[1])
-    tuned = _gaussian_process(template.learner)
-    assert tuned is not None and hasattr(tuned, "regressor_")
-    fold = model._new_learner("gp", template.encoder, len(cells) - 5, template, mode="fold",
-                              kind="correction", n_elements=cells["element"].nunique())
-    started = _gaussian_process(fold)
-    np.testing.assert_array_equal(started.initial_kernel.theta, tuned.ard_kernel_.theta)
-    # a boosted learner has no search to shorten: no template is fitted for it
-    assert _upgrade_template(model, "boost", cells, target, quantity, methods[1]) is None

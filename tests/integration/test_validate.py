@@ -203,18 +203,8 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
 
     def recording_upgrade_fold(*args, **kwargs):
         phase["now"] = "upgrade"
-        upgrade_groups.append({atomic_number(symbol) for symbol in args[9]})  # _upgrade_fold's group
+        upgrade_groups.append({atomic_number(symbol) for symbol in args[8]})  # _upgrade_fold's group
         found = original_upgrade_fold(*args, **kwargs)
-        phase["now"] = None
-        return found
-
-    original_template = crossval_module._upgrade_template
-
-    def recording_template(*args, **kwargs):
-        # the correction fitted on all its rows only warm-starts the folds' own searches
-        # (as the full fit does for the main folds)
-        phase["now"] = "upgrade template"
-        found = original_template(*args, **kwargs)
         phase["now"] = None
         return found
 
@@ -237,7 +227,6 @@ def test_no_leakage_encoders_and_stages_fitted_inside_each_fold(monkeypatch):
     monkeypatch.setattr(crossval_module, "_upgrade_fold", recording_upgrade_fold)
     monkeypatch.setattr(features_module.CellEncoder, "fit", recording_encoder_fit)
     monkeypatch.setattr(GPLearner, "fit", recording_gp_fit)
-    monkeypatch.setattr(crossval_module, "_upgrade_template", recording_template)
     # n_jobs=1: every fold in this process, where the recorders are patched in
     model = Surrogate(learner="gp", n_folds=4, random_state=2, n_jobs=1).fit(table)
     residuals = model.cv_residuals_
