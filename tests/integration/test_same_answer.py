@@ -180,6 +180,6 @@ class _Counter:
 def test_the_fit_counts_its_fits_before_it_starts_and_ticks_each_one(small):
     counter = _Counter()
     Surrogate(learner="auto", n_folds=3, random_state=0).fit(small, progress=counter)
-    # two learners, each: full fit, 3 main folds and the upgrade loop's template and folds
+    # two learners, each: the full fit, 3 main folds and the upgrade loop's folds
     assert counter.total >= 2 * (1 + 3 + 1)
     assert counter.done == counter.total

@@ -192,7 +192,7 @@ def test_fit_reports_progress_once_per_fit_folds_included():
     model = Surrogate(learner="auto", n_folds=2, random_state=0).fit(table, progress=counter)
     core = model.table_[list(REQUIRED_COLUMNS)].reset_index(drop=True)
     planned = sum(planned_fits(model, core, name) for name in ("gp", "boost"))
-    # per learner: the full fit, 2 main folds and the upgrade loop's folds (and template)
+    # per learner: the full fit, 2 main folds and the upgrade loop's folds
     assert counter.steps == planned > 2 * (1 + 2)
 
 
