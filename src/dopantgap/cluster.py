@@ -58,6 +58,8 @@ def on_cluster(address=None):
         return
     try:
         from distributed import Client
+        from distributed.comm import parse_address
+        from distributed.comm.registry import get_backend
         from joblib import parallel_config
     except ImportError as error:
         raise DopantgapError(
@@ -66,6 +68,9 @@ def on_cluster(address=None):
             f"(and unset {SCHEDULER_VARIABLE}) to run on this machine."
         ) from error
     try:
+        # a scheme Dask does not know is refused here: refused inside Client(), it
+        # left a half-made client whose clean-up printed a traceback and hung 40 s
+        get_backend(parse_address(address)[0])
         client = Client(address, timeout=_CONNECT_SECONDS, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as error:
         raise DopantgapError(

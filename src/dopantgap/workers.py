@@ -11,8 +11,8 @@ has gone (the parent's id changes when the parent dies). An interrupted parent t
 is still alive (Ctrl-C, or SIGTERM turned into an exception by the command line) has
 joblib stop its workers itself.
 
-Work handed out from inside such a worker (a candidate learner's folds) runs in that
-worker, one task after the other: the candidates already hold the cores. Under a Dask
+Work handed out from inside such a worker runs in that worker, one task after the
+other: the outer pool already holds the cores. Under a Dask
 cluster (``cluster.on_cluster``) every level is sent to the cluster instead.
 """
 

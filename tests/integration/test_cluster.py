@@ -88,3 +88,9 @@ def test_an_unreachable_scheduler_is_one_clear_message(table, tmp_path, capsys, 
     assert "Could not reach the Dask scheduler at tcp://127.0.0.1:9" in error
     assert "Traceback" not in error
     assert not (tmp_path / "model").exists()
+    # a scheme Dask does not know: the same one line, and nothing of Dask's after it
+    status = main(["fit", str(path), "--out", str(tmp_path / "model"), "--scheduler", "foo://127.0.0.1:9"])
+    error = capsys.readouterr().err
+    assert status != 0
+    assert "Could not reach the Dask scheduler at foo://127.0.0.1:9 (unknown address scheme 'foo'" in error
+    assert "Traceback" not in error
