@@ -26,7 +26,9 @@ fit, the loop a user runs between rounds (``next``, ``add``, ``fit``), or with
 ``relearn="refresh"`` by :meth:`Surrogate.refreshed` (seconds instead of a fit per
 round; learner, correction form, hyperparameters and calibration kept until a stage
 outgrows them). The two tell different stories where a refit would change the model's
-form (``benchmarks/bench_replay.py --relearn`` measures both; DEVELOPERS.md).
+form (``benchmarks/bench_replay.py --relearn`` measures both; DEVELOPERS.md). The
+strategies, and the floor's groups, are independent: they run side by side in worker
+processes (or on a Dask cluster), each strategy's rounds in order.
 
 Figures per strategy, seed and round (``curves``)
 --------------------------------------------------
@@ -59,6 +61,7 @@ the very cells it still hides (curve column ``floor_left``), so that revealing t
 hardest cells first is not mistaken for learning.
 """
 
+import contextlib
 import json
 import math
 import warnings
@@ -67,7 +70,9 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from joblib import delayed
 from sklearn.base import clone
+from threadpoolctl import threadpool_limits
 
 from dopantgap.atomic import write_text_atomic
 from dopantgap.reproducible import canonical_order, seed_integer
@@ -75,7 +80,9 @@ from dopantgap.rounds import DECIDED_PROBABILITY
 from dopantgap.errors import DopantgapError, SuspectValueWarning
 from dopantgap.sites import site_preference, site_quantities
 from dopantgap.surrogate import Surrogate, order_levels
+from dopantgap.surrogate.crossval import n_workers
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS, check_frame, write_table
+from dopantgap.workers import worker_pool
 
 __all__ = [
     "FLOOR_GROUPS",
@@ -259,11 +266,50 @@ class _Scorer:
         return figures
 
 
-def _tick(progress):
+def _tick(progress, steps=1):
     if progress is None:
         return
     update = getattr(progress, "update", None)
-    (update if callable(update) else progress)(1)
+    (update if callable(update) else progress)(steps)
+
+
+class _Relearn:
+    """Grown table -> relearned model, as ``replay(relearn=...)`` says: a full fit of a
+    clone of ``estimator``, or ``base.refreshed``. A class, not a closure, so that it
+    travels to worker processes and Dask workers as plain data."""
+
+    def __init__(self, estimator, base, mode):
+        self.estimator = estimator
+        self.base = base
+        self.mode = mode
+
+    def __call__(self, grown):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", SuspectValueWarning)
+            if self.mode == "fit":
+                return clone(self.estimator).fit(grown)
+            return self.base.refreshed(grown)
+
+
+def _side_by_side(estimator, tasks, steps, progress):
+    """The results of the delayed ``tasks``, in order, run in the estimator's ``n_jobs``
+    workers (``workers.worker_pool``; the fits inside a task then run in its worker);
+    ``progress`` is told ``steps[i]`` when task ``i`` ends."""
+    tagged = [delayed(_tagged)(index, task) for index, task in enumerate(tasks)]
+    results = [None] * len(tasks)
+    pool = worker_pool(n_jobs=n_workers(estimator, len(tasks)), return_as="generator_unordered")
+    # a pool of one runs here, held to one BLAS/OpenMP thread as a worker is, so that
+    # the replay gives the same figures whatever n_jobs (``crossval._each`` does the same)
+    with threadpool_limits(limits=1) if pool.n_jobs == 1 else contextlib.nullcontext():
+        for index, result in pool(tagged):
+            results[index] = result
+            _tick(progress, steps[index])
+    return results
+
+
+def _tagged(index, task):
+    function, args, kwargs = task
+    return index, function(*args, **kwargs)
 
 
 def random_picks(n_candidates, count, rng):
@@ -397,15 +443,24 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=FLOOR_GROUP
     """
     relearn = base.refreshed if relearn is None else relearn
     hidden = hidden.reset_index(drop=True)
-    rng = np.random.default_rng((random_state, 7))
-    group_of = rng.permutation(len(hidden)) % max(1, min(groups, len(hidden)))
     errors = np.full(len(hidden), np.nan)
-    for group in np.unique(group_of):
-        held = group_of == group
-        known = pd.concat([visible, hidden[~held]], ignore_index=True)
-        errors[held] = scorer.absolute_errors(relearn(known), hidden[held].reset_index(drop=True))
+    for held in _floor_groups(hidden, random_state, groups):
+        errors[held] = _floor_group_errors(relearn, scorer, visible, hidden, held)
         _tick(progress)
     return errors
+
+
+def _floor_groups(hidden, random_state, groups=FLOOR_GROUPS):
+    """Boolean masks over ``hidden`` (reset index), one per floor group."""
+    rng = np.random.default_rng((random_state, 7))
+    group_of = rng.permutation(len(hidden)) % max(1, min(groups, len(hidden)))
+    return [group_of == group for group in np.unique(group_of)]
+
+
+def _floor_group_errors(relearn, scorer, visible, hidden, held):
+    """Absolute errors of the ``held`` hidden cells, predicted with every other cell known."""
+    known = pd.concat([visible, hidden[~held]], ignore_index=True)
+    return scorer.absolute_errors(relearn(known), hidden[held].reset_index(drop=True))
 
 
 def _floor_left(curves, picks, hidden, floor_errors):
@@ -507,14 +562,18 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         (``reproducible.seed_integer``, checked before any work). The table's rows are
         put in ``reproducible.canonical_order`` first, so their order changes nothing.
     progress : object or None, default=None
-        Told ``update(1)`` after the fit, after each strategy round and after each of the
-        floor's ``FLOOR_GROUPS`` models (``progress.bar``).
+        Told ``update(1)`` after the first fit, ``update(rounds)`` as each strategy ends
+        and ``update(1)`` as each of the floor's ``FLOOR_GROUPS`` models ends
+        (``progress.bar``).
     keep_fraction : float, default=0.2
         See ``hide_cells``.
     window : tuple or str or None, default=None
         For the window goal (``picker.parse_window``).
     estimator : Surrogate or None, default=None
         Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+        Its ``n_jobs`` workers run the strategies and the floor's groups side by side
+        (each strategy's rounds in order; on a Dask cluster inside ``cluster.on_cluster``,
+        as many at once as the cluster takes); the figures do not depend on it.
         Its ``suspect_values`` policy judges the completed table once, before any work;
         the parts fitted later are not judged again (a part can make a right value look
         wrong, e.g. a correction that jumps for a few elements, seen through those kept).
@@ -572,13 +631,7 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         warnings.simplefilter("ignore", SuspectValueWarning)
         base = clone(estimator).fit(visible.reset_index(drop=True))
     _tick(progress)
-
-    def relearned(grown):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", SuspectValueWarning)
-            if relearn == "fit":
-                return clone(estimator).fit(grown)
-            return base.refreshed(grown)
+    relearned = _Relearn(estimator, base, relearn)
 
     if reference is not None:
         missing = [column for column in REQUIRED_COLUMNS if column not in reference.columns]
@@ -589,23 +642,37 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
             raise DopantgapError("reference must give a value for every cell of the completed table.")
     scorer = _Scorer(table, method, random_state, reference)
     strategies = [(name, 0) for name in goals] + [(RANDOM, seed) for seed in range(n_random_seeds)]
-    curves, revealed = [], []
-    for strategy, seed in strategies:
-        part_curves, part_revealed = _run_strategy(
-            strategy, seed, base, visible.reset_index(drop=True), hidden, rounds, per_round, method,
-            cost_per_cell, cost, window, element_symbols, scorer, random_state, progress, relearned,
+    visible = visible.reset_index(drop=True)
+    hidden_cells = hidden.reset_index(drop=True)
+    # every strategy and every floor group is independent of the others: they go to the
+    # workers together (each strategy's rounds stay in order inside its task)
+    tasks = [
+        delayed(_run_strategy)(
+            strategy, seed, base, visible, hidden_cells, rounds, per_round, method,
+            cost_per_cell, cost, window, element_symbols, scorer, random_state, None, relearned,
         )
+        for strategy, seed in strategies
+    ]
+    floor_masks = _floor_groups(hidden_cells, random_state) if floor and len(hidden) else []
+    tasks += [
+        delayed(_floor_group_errors)(relearned, scorer, visible, hidden_cells, held) for held in floor_masks
+    ]
+    steps = [rounds] * len(strategies) + [1] * len(floor_masks)
+    results = _side_by_side(estimator, tasks, steps, progress)
+    curves, revealed = [], []
+    for part_curves, part_revealed in results[: len(strategies)]:
         curves += part_curves
         revealed += part_revealed
     curves = pd.DataFrame(curves, columns=list(CURVE_COLUMNS))
     error_floor = math.nan
     picks_columns = ["strategy", "seed", "round"] + list(REQUIRED_COLUMNS)
     picks = pd.concat(revealed, ignore_index=True) if revealed else pd.DataFrame(columns=picks_columns)
-    if floor and len(hidden):
-        floor_errors = oracle_floor(base, visible.reset_index(drop=True), hidden, scorer, random_state,
-                                    relearn=relearned, progress=progress)
+    if floor_masks:
+        floor_errors = np.full(len(hidden_cells), np.nan)
+        for held, errors in zip(floor_masks, results[len(strategies):]):
+            floor_errors[held] = errors
         error_floor = float(np.mean(floor_errors))
-        curves["floor_left"] = _floor_left(curves, picks, hidden.reset_index(drop=True), floor_errors)
+        curves["floor_left"] = _floor_left(curves, picks, hidden_cells, floor_errors)
     rows = []
     for name in goals:
         for metric in ("error", "decided"):
@@ -624,8 +691,8 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
         "hiding_rule": (f"{method} cells hidden for all but a seeded {keep_fraction:.0%} of the elements "
                         f"that have them; every other method visible"),
     }
-    hidden_cells = hidden[list(REQUIRED_COLUMNS)].reset_index(drop=True)
-    return ReplayResult(curves=curves, summary=summary, picks=picks[picks_columns], hidden=hidden_cells,
+    hidden_table = hidden[list(REQUIRED_COLUMNS)].reset_index(drop=True)
+    return ReplayResult(curves=curves, summary=summary, picks=picks[picks_columns], hidden=hidden_table,
                         settings=settings)
 
 

@@ -11,6 +11,7 @@ import pytest
 from dopantgap import cluster as cluster_module
 from dopantgap.cli import main
 from dopantgap.cluster import SCHEDULER_VARIABLE, on_cluster
+from dopantgap.replay import replay
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import invent_world, observe
 
@@ -61,6 +62,20 @@ def test_a_fit_on_a_dask_cluster_gives_the_local_model(table, local_cluster):
         remote.cv_residuals_.reset_index(drop=True), local.cv_residuals_.reset_index(drop=True),
         check_exact=False, rtol=1e-7, atol=1e-9,
     )
+
+
+def test_a_replay_on_a_dask_cluster_gives_the_local_figures(table, local_cluster):
+    small = table[table["host"] == table["host"].iat[0]].reset_index(drop=True)
+    settings = dict(goal="table", rounds=1, per_round=2, n_random_seeds=2, random_state=2, relearn="refresh")
+    local = replay(small, estimator=Surrogate(learner="gp", n_folds=3, random_state=2), **settings)
+    with distributed.Client(local_cluster.scheduler_address) as watcher:
+        with distributed.get_task_stream(client=watcher) as stream:
+            with on_cluster(local_cluster.scheduler_address):
+                remote = replay(small, estimator=Surrogate(learner="gp", n_folds=3, random_state=2), **settings)
+    # the strategies and the floor's groups ran on the cluster's workers
+    assert len(stream.data) >= 3 + 5
+    pd.testing.assert_frame_equal(remote.picks, local.picks)
+    pd.testing.assert_frame_equal(remote.curves, local.curves, check_exact=False, rtol=1e-7, atol=1e-9)
 
 
 def test_the_command_line_sends_fits_to_the_scheduler_named_by_option_or_environment(

@@ -183,3 +183,22 @@ def test_the_fit_counts_its_fits_before_it_starts_and_ticks_each_one(small):
     # two learners, each: the full fit, 3 main folds and the upgrade loop's folds
     assert counter.total >= 2 * (1 + 3 + 1)
     assert counter.done == counter.total
+
+
+def test_the_replay_is_the_same_whatever_the_number_of_workers(small):
+    # n_jobs=2 runs the strategies and the floor's groups in two worker processes, each
+    # fit inside them one after the other; n_jobs=1 runs everything here
+    results = []
+    for n_jobs in (1, 2):
+        counter = _Counter()
+        with threadpool_limits(limits=1):
+            results.append(replay(small, goal="table", rounds=1, per_round=2, n_random_seeds=2,
+                                  random_state=1, progress=counter,
+                                  estimator=Surrogate(learner="gp", n_folds=3, random_state=1, n_jobs=n_jobs)))
+        # the first fit, one round for each of three strategies, and the floor's groups
+        assert counter.done == 1 + 3 + 5
+    here, spread = results
+    assert here.settings["relearn"] == "fit"
+    pd.testing.assert_frame_equal(here.curves, spread.curves)
+    pd.testing.assert_frame_equal(here.picks, spread.picks)
+    assert np.isfinite(here.curves["floor_left"]).all()
