@@ -12,22 +12,26 @@ from dopantgap.symbols import normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 from dopantgap.surrogate.stages import stage_joint
 
-__all__ = ["MissingJoint", "cell_grid", "missing_joint", "missing_joints"]
+__all__ = ["MAX_JOINT_CELLS", "MissingJoint", "cell_grid", "joint_groups", "missing_joint", "missing_joints"]
 
 _CELL = ["element", "host", "site"]
-# Most missing cells of one quantity held in one joint covariance (8 bytes each squared:
-# 6000 cells take 290 MB; common practice, no source).
-_MAX_BLOCK_CELLS = 6000
+#: Most missing cells of one quantity held in one joint covariance (8 bytes each squared:
+#: 6000 cells take 290 MB; common practice, no source). A quantity with more is weighed
+#: in groups of whole hosts (``joint_groups``), so that memory grows with the number of
+#: missing cells, not with its square.
+MAX_JOINT_CELLS = 6000
 
 
 class MissingJoint:
     """The missing target cells of one quantity, their calibrated mean and covariance."""
 
-    def __init__(self, quantity, cells, mean, cov):
+    def __init__(self, quantity, cells, mean, cov, n_groups=1):
         self.quantity = quantity
         self.cells = cells  # KEY_COLUMNS + scenario, one row per missing target cell
         self.mean = mean
         self.cov = cov
+        # joints the quantity's missing cells were cut into (``joint_groups``)
+        self.n_groups = n_groups
 
 
 def cell_grid(surrogate, element_symbols=(), extra_columns=None):
@@ -72,7 +76,10 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     if not wanted:
         return None
     top = max(levels.index(method) for method in wanted)
-    units = rows[_CELL].drop_duplicates().reset_index(drop=True)
+    # only the (element, host, site) with a missing target cell: a stage's covariance
+    # over some cells is the same numbers as the part of it over more cells
+    open_rows = rows[_missing_rows(rows, wanted, known)]
+    units = open_rows[_CELL].drop_duplicates().reset_index(drop=True)
     n_units = len(units)
     unit_keys = list(units.itertuples(index=False, name=None))
     stage_covs, level_means, level_weights, level_computed = [], [], [], []
@@ -105,12 +112,6 @@ def missing_joint(surrogate, grid, quantity, methods, known):
                 cell_level.append(position)
     if not records:
         return None
-    if len(records) > _MAX_BLOCK_CELLS:
-        raise DopantgapError(
-            f"{len(records)} missing {quantity} cells are too many to rank jointly (at most "
-            f"{_MAX_BLOCK_CELLS}); narrow the candidates with --method, or take one host at a "
-            "time with --host."
-        )
     cells = pd.DataFrame(records, columns=list(KEY_COLUMNS))
     cell_unit, cell_level = np.array(cell_unit), np.array(cell_level)
     cov = np.zeros((len(cells), len(cells)))
@@ -133,13 +134,113 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     return MissingJoint(quantity, cells, mean, (cov + cov.T) / 2.0)
 
 
-def missing_joints(surrogate, grid, methods, quantities):
+def _wanted_methods(surrogate, rows, quantity, methods):
+    levels = surrogate.quantity_levels_[quantity]
+    present = set(rows["method"])
+    return [method for method in levels if method in methods and method in present]
+
+
+def _missing_rows(rows, wanted, known):
+    """Boolean mask of the grid ``rows`` that are missing cells of a ``wanted`` method."""
+    keys = rows[list(KEY_COLUMNS)].itertuples(index=False, name=None)
+    return np.array(
+        [key[3] in wanted and key not in known for key in keys], dtype=bool
+    ).reshape(len(rows))
+
+
+def joint_groups(surrogate, grid, quantity, methods, known, max_cells=MAX_JOINT_CELLS):
+    """The grid rows of ``quantity`` cut into groups of at most ``max_cells`` missing cells.
+
+    One group when the quantity has at most ``max_cells`` missing cells (the exact
+    joint). Otherwise whole hosts are packed into groups in the grid's order; a host with
+    more missing cells than ``max_cells`` is cut by site, and a site by runs of elements.
+    The cells of different groups are treated as independent: a pick's benefit counts
+    the cells of its own group only.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        Fitted (its levels per quantity).
+    grid : DataFrame
+        ``cell_grid`` output.
+    quantity : str
+    methods : sequence of str
+        The levels whose missing cells are weighed.
+    known : dict
+        Computed cell key -> value (``Surrogate._known``).
+    max_cells : int, default=MAX_JOINT_CELLS
+
+    Returns
+    -------
+    list of DataFrame
+        Subsets of ``grid`` (their rows of ``quantity``), none empty of missing cells.
+    """
+    rows = grid[grid["quantity"] == quantity]
+    wanted = _wanted_methods(surrogate, rows, quantity, methods)
+    missing = _missing_rows(rows, wanted, known)
+    if not missing.any():
+        return []
+    if missing.sum() <= max_cells:
+        return [rows]
+    pieces = []  # (missing cells, row mask), in grid order
+
+    def cut(mask, by):
+        for value in dict.fromkeys(rows[by][mask]):
+            yield mask & (rows[by] == value).to_numpy()
+
+    for host_mask in cut(np.ones(len(rows), dtype=bool), "host"):
+        for site_mask in [host_mask] if missing[host_mask].sum() <= max_cells else cut(host_mask, "site"):
+            if missing[site_mask].sum() <= max_cells:
+                pieces.append((int(missing[site_mask].sum()), site_mask))
+                continue
+            run, count = np.zeros(len(rows), dtype=bool), 0
+            for element_mask in cut(site_mask, "element"):
+                n = int(missing[element_mask].sum())
+                if count and count + n > max_cells:
+                    pieces.append((count, run))
+                    run, count = np.zeros(len(rows), dtype=bool), 0
+                run, count = run | element_mask, count + n
+            pieces.append((count, run))
+    groups, current, count = [], np.zeros(len(rows), dtype=bool), 0
+    for n, mask in pieces:
+        if n == 0:
+            continue
+        if count and count + n > max_cells:
+            groups.append(rows[current])
+            current, count = np.zeros(len(rows), dtype=bool), 0
+        current, count = current | mask, count + n
+    groups.append(rows[current])
+    return groups
+
+
+def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CELLS):
+    """Calibrated joints of the missing cells of each of ``quantities`` at ``methods``.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        Fitted.
+    grid : DataFrame
+        ``cell_grid`` output.
+    methods, quantities : sequence of str
+    max_cells : int, default=MAX_JOINT_CELLS
+        Most missing cells in one joint (``joint_groups``).
+
+    Returns
+    -------
+    list of MissingJoint
+        One per quantity, or one per group of hosts where a quantity has more than
+        ``max_cells`` missing cells; ``MissingJoint.n_groups`` says how many its quantity has.
+    """
     core = surrogate.table_[list(REQUIRED_COLUMNS)]
     known = surrogate._known(core)
     blocks = []
     for quantity in quantities:
-        block = missing_joint(surrogate, grid, quantity, methods, known)
-        if block is not None:
-            blocks.append(block)
+        groups = joint_groups(surrogate, grid, quantity, methods, known, max_cells)
+        found = [missing_joint(surrogate, rows, quantity, methods, known) for rows in groups]
+        found = [block for block in found if block is not None]
+        for block in found:
+            block.n_groups = len(found)
+        blocks += found
     return blocks
 

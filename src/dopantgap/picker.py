@@ -117,7 +117,7 @@ from dopantgap.gaussian import (
     summed_variance_reduction,
     window_probability,
 )
-from dopantgap.joint import cell_grid, missing_joints
+from dopantgap.joint import MAX_JOINT_CELLS, cell_grid, missing_joints
 from dopantgap.sites import site_quantities
 from dopantgap.surrogate.plausible import N_PLAUSIBLE, plausible_surrogates
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
@@ -132,6 +132,7 @@ __all__ = [
     "expected_site_entropy",
     "expected_window_entropy",
     "greedy_batch",
+    "joint_groups_text",
     "parse_cost",
     "parse_window",
     "pick_next",
@@ -350,7 +351,7 @@ class _SiteGoal:
             if block.quantity not in site_qs:
                 continue
             index = {key: i for i, key in enumerate(block.cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))}
-            rows = grid[grid["quantity"] == block.quantity]
+            rows = grid[(grid["quantity"] == block.quantity) & grid["host"].isin(set(block.cells["host"]))]
             methods = set(block.cells["method"])
             for (element, host, method), part in rows.groupby(["element", "host", "method"], sort=False):
                 if method not in methods:
@@ -363,6 +364,8 @@ class _SiteGoal:
                 if (members < 0).all():
                     continue  # every site computed: nothing to learn here
                 fixed = np.array([known.get(key, np.nan) for key in keys])
+                if ((members < 0) & np.isnan(fixed)).any():
+                    continue  # a site in another joint (a host cut by site): not weighed here
                 self.questions.append(
                     {"block": block_index, "element": element, "host": host, "method": method,
                      "sites": sites, "members": members, "fixed": fixed}
@@ -518,6 +521,27 @@ def robust_picks_text(picks):
             "of how cells share information")
 
 
+def joint_groups_text(picks):
+    """One line saying that a quantity's missing cells were weighed in groups of hosts,
+    or "" when every quantity was weighed in one joint.
+
+    Parameters
+    ----------
+    picks : DataFrame
+        ``pick_next`` output (its ``attrs`` are read).
+
+    Returns
+    -------
+    str
+    """
+    groups = picks.attrs.get("joint_groups") or {}
+    if not groups:
+        return ""
+    parts = ", ".join(f"{quantity} in {n} groups" for quantity, n in groups.items())
+    return (f"too many missing cells to weigh in one joint (at most {MAX_JOINT_CELLS} per quantity): "
+            f"{parts} (whole hosts where they fit); a pick's benefit counts the cells of its own group only")
+
+
 def _check_versions(kernels):
     """The number of plausible kernels as an int >= 1."""
     if isinstance(kernels, bool) or not isinstance(kernels, (int, np.integer)) or kernels < 1:
@@ -670,7 +694,9 @@ def pick_next(
         worth at least ``USEFUL_BENEFIT`` of their unit are listed: fewer than ``count``
         rows come back when fewer cells would teach anything noticeable.
         ``attrs["candidates"]`` holds the number of missing cells weighed,
-        ``attrs["kernels"]`` the number of versions the benefit was averaged over.
+        ``attrs["kernels"]`` the number of versions the benefit was averaged over,
+        ``attrs["joint_groups"]`` the quantities whose missing cells were weighed in
+        groups of hosts (more than ``joint.MAX_JOINT_CELLS``) and their number of groups.
 
     Raises
     ------
@@ -779,4 +805,8 @@ def pick_next(
     # whether the batch was spread over columns
     picks.attrs["kernels"] = len(versions)
     picks.attrs["spread_columns"] = spread
+    # quantities whose missing cells were weighed in groups of hosts (joint.joint_groups)
+    picks.attrs["joint_groups"] = {
+        block.quantity: block.n_groups for block in blocks if block.n_groups > 1
+    }
     return picks

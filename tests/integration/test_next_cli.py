@@ -93,18 +93,24 @@ def test_next_help_documents_the_goals(capsys):
         assert word in text
 
 
-def test_next_with_too_many_candidates_says_how_to_narrow_them(tmp_path, capsys, monkeypatch, demo_model_dir):
-    """Past the joint covariance's cap the command stops before any large array with one
-    line naming both ways to narrow the list; with --host the same model answers."""
+def test_next_past_the_joint_cap_weighs_groups_of_hosts_and_says_so(tmp_path, capsys, monkeypatch, demo_model_dir):
+    """Past the joint covariance's cap the command still answers (memory bounded by
+    groups of hosts, not by a refusal) and says that benefits count a group's cells only;
+    below the cap it says nothing of groups."""
     import dopantgap.joint
+    import dopantgap.picker
 
-    monkeypatch.setattr(dopantgap.joint, "_MAX_BLOCK_CELLS", 300)
+    def small_joints(surrogate, grid, methods, quantities):
+        return dopantgap.joint.missing_joints(surrogate, grid, methods, quantities, max_cells=300)
+
+    monkeypatch.setattr(dopantgap.picker, "missing_joints", small_joints)
     out = tmp_path / "next.csv"
-    assert main(["next", str(demo_model_dir), "--out", str(out)]) == 2
-    lines = capsys.readouterr().err.strip().splitlines()
-    assert len(lines) == 1 and "too many to rank jointly" in lines[0]
-    assert "--method" in lines[0] and "--host" in lines[0]
-    assert not out.exists()
+    assert main(["next", str(demo_model_dir), "--out", str(out), "--count", "4"]) == 0
+    text = capsys.readouterr().out
+    assert "too many missing cells to weigh in one joint" in text and "its own group only" in text
+    assert len(pd.read_csv(out)) == 4
+    monkeypatch.undo()
     assert main(["next", str(demo_model_dir), "--out", str(out), "--host", "C", "--method", "hyb",
-                 "--count", "3", "--quiet"]) == 0
+                 "--count", "3"]) == 0
+    assert "one joint" not in capsys.readouterr().out
     assert len(pd.read_csv(out)) == 3

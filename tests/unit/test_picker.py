@@ -35,6 +35,7 @@ from dopantgap.picker import (
     condition_on,
     expected_site_entropy,
     expected_window_entropy,
+    joint_groups_text,
     parse_cost,
     parse_window,
     pick_next,
@@ -45,7 +46,7 @@ from dopantgap.picker import (
     summed_variance_reduction,
     window_probability,
 )
-from dopantgap.joint import missing_joint
+from dopantgap.joint import cell_grid, joint_groups, missing_joint, missing_joints
 from dopantgap.store import load_model
 from dopantgap.surrogate import Surrogate, _Stage
 from dopantgap.surrogate.plausible import plausible_surrogates, uncertain_stages
@@ -653,3 +654,78 @@ def test_boosted_learner_is_served():
         keys = set(picks[list(KEY_COLUMNS)].itertuples(index=False, name=None))
         assert len(keys) == 4 and all(key[0] != ANCHOR for key in keys)
         assert (picks["benefit"] >= 0).all() and picks["benefit"].iat[0] > 0
+
+
+# ------------------------------------------------------------ tables too large for one joint
+def _demo_known(demo):
+    return demo._known(demo.table_[["element", "host", "site", "method", "quantity", "value"]])
+
+
+def test_groups_of_hosts_hold_every_missing_cell_once_and_at_most_the_cap(demo):
+    grid = cell_grid(demo, ["Hg"])
+    known = _demo_known(demo)
+    whole = missing_joints(demo, grid, list(demo.levels_), ["E_sol"])
+    n_missing = sum(len(block.cells) for block in whole)
+    assert len(whole) == 1 and whole[0].n_groups == 1 and n_missing > 100
+    cap = n_missing // 5
+    groups = joint_groups(demo, grid, "E_sol", list(demo.levels_), known, max_cells=cap)
+    assert len(groups) >= 5
+    split = missing_joints(demo, grid, list(demo.levels_), ["E_sol"], max_cells=cap)
+    sizes = [len(block.cells) for block in split]
+    assert max(sizes) <= cap and all(block.n_groups == len(split) for block in split)
+    # memory grows linearly with the missing cells: the covariances held sum to at most
+    # cap x cells entries, against cells squared for one joint
+    assert sum(size**2 for size in sizes) <= cap * n_missing < n_missing**2
+    keys = [key for block in split for key in block.cells[list(KEY_COLUMNS)].itertuples(index=False, name=None)]
+    assert len(keys) == len(set(keys)) == n_missing
+    assert set(keys) == set(whole[0].cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+    # a host too large for one group is cut by site, and a site is kept whole when it fits
+    columns = [set(zip(block.cells["host"], block.cells["site"])) for block in split]
+    for column, count in whole[0].cells.groupby(["host", "site"]).size().items():
+        if count <= cap:
+            assert len([held for held in columns if column in held]) == 1
+    # hosts are kept whole when each fits in a group
+    per_host = whole[0].cells.groupby("host").size()
+    by_host = missing_joints(demo, grid, list(demo.levels_), ["E_sol"], max_cells=int(per_host.max()))
+    assert sorted(tuple(set(block.cells["host"])) for block in by_host) == [(host,) for host in sorted(per_host.index)]
+
+
+def test_a_group_is_the_exact_joint_restricted_to_its_cells(demo):
+    """Cutting the missing cells into groups drops only the covariance between groups:
+    each group's mean and covariance are the one-joint numbers over its cells (a Gaussian
+    process's predictive covariance over a subset of points is the subset of the
+    predictive covariance; Rasmussen & Williams 2006, eq. 2.24)."""
+    grid = cell_grid(demo, ["Hg"])
+    (whole,) = missing_joints(demo, grid, list(demo.levels_), ["E_bind"])
+    split = missing_joints(demo, grid, list(demo.levels_), ["E_bind"], max_cells=len(whole.cells) // 3)
+    assert len(split) >= 3
+    position = {key: i for i, key in enumerate(whole.cells[list(KEY_COLUMNS)].itertuples(index=False, name=None))}
+    for block in split:
+        index = [position[key] for key in block.cells[list(KEY_COLUMNS)].itertuples(index=False, name=None)]
+        np.testing.assert_allclose(block.mean, whole.mean[index], rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(block.cov, whole.cov[np.ix_(index, index)], rtol=1e-7, atol=1e-10)
+
+
+@pytest.mark.parametrize("goal", ["table", "site"])
+def test_picks_from_groups_of_hosts_say_so_and_stay_honest(demo, monkeypatch, goal):
+    grid = cell_grid(demo)
+    n_missing = sum(len(block.cells) for block in missing_joints(demo, grid, list(demo.levels_), ["E_sol"]))
+    cap = n_missing // 4
+
+    def small_joints(surrogate, grid, methods, quantities):
+        return missing_joints(surrogate, grid, methods, quantities, max_cells=cap)
+
+    monkeypatch.setattr(picker_module, "missing_joints", small_joints)
+    picks = pick_next(demo, count=6, goal=goal, kernels=1)
+    assert 1 <= len(picks) <= 6
+    assert set(picks.attrs["joint_groups"]) >= {"E_sol"}
+    assert picks.attrs["joint_groups"]["E_sol"] >= 4
+    text = joint_groups_text(picks)
+    assert "E_sol in" in text and "its own group only" in text
+    keys = list(picks[list(KEY_COLUMNS)].itertuples(index=False, name=None))
+    assert len(set(keys)) == len(keys) and not set(keys) & computed_keys(demo)
+    predicted = demo.predict(picks[list(KEY_COLUMNS)])
+    np.testing.assert_allclose(picks["std"], predicted["std"], rtol=1e-7)
+    # below the cap nothing is said
+    monkeypatch.undo()
+    assert joint_groups_text(pick_next(demo, count=2, goal=goal, kernels=1)) == ""

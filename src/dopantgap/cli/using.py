@@ -268,7 +268,9 @@ def _command_fill(arguments, say):
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.new_hosts import plan_new_hosts
-    from dopantgap.picker import benefit_text, parse_cost, parse_window, pick_next, robust_picks_text
+    from dopantgap.picker import (
+        benefit_text, joint_groups_text, parse_cost, parse_window, pick_next, robust_picks_text,
+    )
     from dopantgap import elements
     from dopantgap.table import write_table
 
@@ -311,6 +313,8 @@ def _command_next(arguments, say):
                 "the list is not padded with the others")
         if robust_picks_text(picks):
             say(f"  {robust_picks_text(picks)}")
+        if joint_groups_text(picks):
+            say(f"  {joint_groups_text(picks)}")
         say(f"  {'#':>2} {'element':<7} {'host':<6} {'site':<12} {'method':<6} {'quantity':<8} "
             f"{'value eV':>9} {'std':>5} {'cost':>5} {'benefit':>8}  reason")
         for row in picks.itertuples(index=False):
