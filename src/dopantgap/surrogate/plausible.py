@@ -13,6 +13,7 @@ import copy
 
 import numpy as np
 from sklearn.base import clone
+from threadpoolctl import threadpool_limits
 
 from dopantgap.learners import ShiftPriorLearner
 from dopantgap.reproducible import seed_integer
@@ -153,9 +154,15 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
                 settings[prefix + "initial_kernel"] = warm
                 settings[prefix + "max_optimiser_iterations"] = _RETUNE_ITERATIONS
             tuner = clone(form).set_params(**settings)
-            tuner.fit(X[subset], target[subset])
-            learner = clone(form).set_params(**{prefix + "fixed_kernel": _gaussian_process(tuner).kernel_})
-            learner.fit(X, target)
+            learner = clone(form)
+            # one BLAS thread: these are matrices of a few hundred rows, where a second
+            # thread only waits, and fights any other busy process for the cores (the
+            # picker on a 3,000-cell model took 129 s with two threads beside another
+            # busy process, 33 s with one; benchmarks/README.md)
+            with threadpool_limits(limits=1):
+                tuner.fit(X[subset], target[subset])
+                learner.set_params(**{prefix + "fixed_kernel": _gaussian_process(tuner).kernel_})
+                learner.fit(X, target)
             version_stage = copy.copy(stage)
             version_stage.learner = learner
             stages[key] = version_stage
