@@ -10,8 +10,10 @@ estimates do not replace calculation, experiment or local safety rules); then si
 preferences, explanations (site choices first, then binding, then single columns;
 a breakdown of every element asked for), the cross-validation figures (coverage out
 of fold), periodic-table maps of the main columns, the table's coverage, next picks
-and the rounds' history when given, and the filled table. Long parts are folded
-(``<details>``); the maps of a section sit in one row scrolled sideways.
+and the rounds' history when given, and the filled table (past
+``reporting.filled.MAX_EMBEDDED_ROWS`` rows: the cells that most need a look, and the
+whole table in a CSV beside the page, linked). Long parts are folded (``<details>``);
+the maps of a section sit in one row scrolled sideways.
 """
 
 from pathlib import Path
@@ -25,13 +27,14 @@ from dopantgap.errors import DopantgapError
 from dopantgap.fill import fill_table, outside_levels, unfamiliar_elements
 from dopantgap.reporting.explanations import EXPLANATION_FILES, read_explanations
 from dopantgap.reporting.explanations import explanations_html as _explanations
+from dopantgap.reporting.filled import MAX_EMBEDDED_ROWS, filled_csv_path, filled_html
 from dopantgap.reporting.findings import findings_html as _findings
+from dopantgap.reporting.rounds import picks_html as _picks, read_picks, read_rounds_folder, rounds_html as _rounds
 from dopantgap.reporting.page import (
     escaped as _text,
     figure_html as _figure_html,
     folded as _folded,
     map_html as _map_html,
-    read_csv as _read_csv,
     section_html as _section,
     strip as _strip,
     table_html as _table,
@@ -43,9 +46,11 @@ from dopantgap.table import coverage
 __all__ = [
     "CAUTION",
     "EXPLANATION_FILES",
+    "MAX_EMBEDDED_ROWS",
     "REPORT_STEPS",
     "build_report",
     "column_label",
+    "filled_csv_path",
     "map_columns",
     "read_rounds_folder",
     "read_explanations",
@@ -58,14 +63,11 @@ CAUTION = (
     "These numbers are estimates that help choose which calculations to run. They do not "
     "replace calculation, experiment or local safety rules."
 )
-_HISTORY_COLUMNS = ("round", "mean_std", "decided", "cost_spent")
-_REPLAY_COLUMNS = ("strategy", "seed", "round", "cost_spent", "error", "decided")
 #: Stages of ``build_report`` reported to its ``progress`` callback.
 REPORT_STEPS = 8
 # the page stays readable and small: at most this many main columns get maps; pick
 # rows and figure resolution likewise (all common practice, no source)
 _MAX_MAP_COLUMNS = 6
-_MAX_PICK_ROWS = 200
 _TAGS = {"radioactive": "R", "toxic": "T", "extrapolated": "X"}
 
 _STYLE = """
@@ -141,77 +143,6 @@ _SCRIPT = """
 """
 
 
-# ----------------------------------------------------------------------------- inputs
-def read_picks(path):
-    """A next-picks CSV (as written by ``dopantgap next``) as a DataFrame.
-
-    Raises
-    ------
-    DopantgapError
-        When the file lacks the cell columns element, host, site, method, quantity.
-    """
-    picks = _read_csv(path, "next-picks CSV", "--picks")
-    missing = [c for c in ("element", "host", "site", "method", "quantity") if c not in picks.columns]
-    if missing:
-        raise DopantgapError(
-            f"--picks {path}:1: no column(s) {', '.join(missing)}; give the CSV that "
-            f"'dopantgap next MODEL_DIR --out NEXT.csv' wrote."
-        )
-    return picks
-
-
-def read_rounds_folder(folder, surrogate=None):
-    """History of the rounds and replay curves found in a folder.
-
-    A rounds folder (round_0, round_1 ... written by ``dopantgap add --rounds-dir``)
-    gives the history through ``rounds.rounds_history``; a replay folder (its
-    ``curves.csv``) or any CSV with the columns strategy, seed, round, cost_spent,
-    error, decided gives replay curves; a CSV with round, mean_std, decided,
-    cost_spent is taken as a history too.
-
-    Parameters
-    ----------
-    folder : str or Path
-    surrogate : Surrogate or None, default=None
-        Computes the figures of rounds recorded without a model.
-
-    Returns
-    -------
-    history : DataFrame or None
-    replay_curves : DataFrame or None
-
-    Raises
-    ------
-    DopantgapError
-        No such folder, or nothing of either kind in it.
-    """
-    from dopantgap.rounds import round_folders, rounds_history
-
-    folder = Path(folder)
-    if not folder.is_dir():
-        raise DopantgapError(f"--rounds-dir {folder}: no such folder.")
-    history = rounds_history(folder, surrogate=surrogate) if round_folders(folder) else None
-    histories, curves = [], []
-    for path in sorted(folder.glob("*.csv")):
-        frame = _read_csv(path, "rounds file", "--rounds-dir")
-        if all(column in frame.columns for column in _REPLAY_COLUMNS):
-            curves.append(frame)
-        elif all(column in frame.columns for column in _HISTORY_COLUMNS):
-            histories.append(frame)
-    if history is None and histories:
-        history = histories[0]
-    if history is None and not curves:
-        raise DopantgapError(
-            f"--rounds-dir {folder}: neither a rounds folder (round_0, round_1 ...) nor a folder "
-            f"with a CSV of columns {', '.join(_HISTORY_COLUMNS)} (history) or "
-            f"{', '.join(_REPLAY_COLUMNS)} (replay curves, e.g. 'dopantgap replay' output)."
-        )
-    replay = pd.concat(curves, ignore_index=True) if curves else None
-    return history, replay
-
-
-# ----------------------------------------------------------------------------- html helpers
-# ----------------------------------------------------------------------------- content
 def _is_invented(table):
     if "note" not in table.columns:
         return False
@@ -563,59 +494,6 @@ def _validation(surrogate, manifest=None):
     return "\n".join(parts)
 
 
-def _picks(picks):
-    shown = picks.head(_MAX_PICK_ROWS)
-    more = f"<p class=\"note\">First {_MAX_PICK_ROWS} of {len(picks)} rows.</p>" if len(picks) > _MAX_PICK_ROWS else ""
-    body = _table(shown, sortable=True) + more
-    return "<p>The calculations proposed next, as given in the picks file.</p>" + _folded(
-        f"Show the {len(shown)} picks", body, open_=len(shown) <= 10
-    )
-
-
-def _rounds(history, replay_curves):
-    parts = []
-    if history is not None:
-        parts.append(_figure_html(
-            plots.history_figure(history),
-            "Left: mean predicted standard deviation (eV) of the missing cells against the cost spent, "
-            "each point a round. Right: site questions decided (P > 0.9) after each round.",
-            "history of the rounds",
-        ))
-    if replay_curves is not None:
-        parts.append(_figure_html(
-            plots.learning_curve_figure(replay_curves),
-            "Replays of picking strategies on a table whose answers are known: error against cost "
-            "spent (median over seeds, band 25th-75th percentile).",
-            "replay learning curves",
-        ))
-    return "\n".join(parts)
-
-
-def _filled_table(filled, extrapolated):
-    shown = filled.copy()
-    shown["caution"] = shown["caution"].astype(str)
-    # a cell outside its own level's domain (an element unlike those computed there)
-    level_note = "outside the domain of its level"
-    outside_cell = shown["outside_domain"].astype(bool) & ~shown["element"].isin(list(extrapolated))
-    shown.loc[outside_cell, "caution"] = [
-        f"{text}; {level_note}" if text else level_note for text in shown.loc[outside_cell, "caution"]
-    ]
-    for symbol, reason in extrapolated.items():
-        rows = shown["element"] == symbol
-        note = f"outside the training data: {reason}"
-        shown.loc[rows, "caution"] = [f"{text}; {note}" if text else note for text in shown.loc[rows, "caution"]]
-    classes = [
-        " ".join(filter(None, ["flagged" if caution else "", "computed" if status == "computed" else ""]))
-        for caution, status in zip(shown["caution"], shown["status"])
-    ]
-    return (
-        "<p>Every cell, computed (bold element) or predicted. Click a column heading to sort; type to "
-        "filter. Rows with a caution are tinted.</p>"
-        '<input id="filter" type="search" placeholder="filter rows, e.g. Ti or ZnS">'
-        f'<div class="scroll">{_table(shown, table_id="filled", sortable=True, row_classes=classes, digits=4)}</div>'
-    )
-
-
 # ----------------------------------------------------------------------------- entry point
 def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_dir=None, picks=None,
                  history=None, replay_curves=None, progress=None, model_dir=None, level=0.9,
@@ -659,6 +537,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         The file written.
     """
     step = progress if progress is not None else (lambda n=1: None)
+    out_path = Path(out_path)
     explanations = read_explanations(explanation_dir) if explanation_dir is not None else None
     if picks is not None and not isinstance(picks, pd.DataFrame):
         picks = read_picks(picks)
@@ -705,7 +584,7 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         sections.append(("rounds", "Rounds and replays",
                          _folded("Show the history of the rounds and the replays", _rounds(history, replay_curves))))
     step(1)
-    sections.append(("filled", "The filled table", _filled_table(filled, extrapolated)))
+    sections.append(("filled", "The filled table", filled_html(filled, extrapolated, out_path)))
 
     title = "dopantgap report" + (" (INVENTED demo data)" if invented else "")
     navigation = "".join(f'<a href="#{section_id}">{_text(name)}</a>' for section_id, name, _ in sections)
@@ -721,7 +600,6 @@ def build_report(surrogate, manifest, out_path, element_symbols=(), explanation_
         f"<script>{_SCRIPT}</script>",
         "</body></html>",
     ])
-    out_path = Path(out_path)
     write_text_atomic(out_path, page + "\n")
     step(1)
     return out_path

@@ -415,3 +415,50 @@ def test_report_says_how_many_targets_and_breaks_down_every_element_asked(built)
     missing = report._explanations(report.read_explanations(built["folder"] / "explain"), ("Fe", "Nb"))
     assert "Breakdowns of: <b>Fe</b>." in missing and "--elements Nb" in missing
 
+
+
+def test_a_table_too_large_for_the_page_goes_whole_to_a_linked_csv(tmp_path, capsys, monkeypatch, demo_model_dir):
+    """Past ``MAX_EMBEDDED_ROWS`` the page shows the cells that most need a look and links
+    the whole filled table, written beside it; below it nothing is written beside it."""
+    import dopantgap.reporting.filled as filled_module
+
+    out = tmp_path / "r.html"
+    assert main(["report", str(demo_model_dir), "--out", str(out)]) == 0
+    assert "too large to show whole" not in capsys.readouterr().out
+    assert not report.filled_csv_path(out).exists()
+    small_page = out.read_text(encoding="utf-8")
+    monkeypatch.setattr(filled_module, "MAX_EMBEDDED_ROWS", 40)
+    assert main(["report", str(demo_model_dir), "--out", str(out)]) == 0
+    said = capsys.readouterr().out
+    csv_path = report.filled_csv_path(out)
+    assert csv_path == tmp_path / "r_filled.csv" and f"all of it is in {csv_path}" in said
+    surrogate, _ = load_model(demo_model_dir)
+    whole = fill_table(surrogate)
+    written = pd.read_csv(csv_path)
+    assert len(written) == len(whole) > 40
+    pd.testing.assert_frame_equal(
+        written[["element", "host", "site", "method", "quantity"]],
+        whole[["element", "host", "site", "method", "quantity"]].reset_index(drop=True),
+    )
+    page = out.read_text(encoding="utf-8")
+    assert f'<a href="{csv_path.name}">' in page and f"The table has {len(whole):,} cells" in page
+    table = page[page.index('id="filled"'):]
+    table = table[: table.index("</table>")]
+    assert table.count("<tr") == 1 + 40  # heading and the 40 rows shown
+    assert len(page) < len(small_page)
+
+
+def test_a_large_tables_page_shows_cautions_first_then_the_widest_intervals(tmp_path):
+    from dopantgap.reporting.filled import filled_html
+
+    filled = pd.DataFrame({
+        "element": ["Li", "Be", "Na", "Mg", "Al", "K"], "host": "ZnS", "site": "sub_Zn", "method": "hyb",
+        "quantity": "E_sol", "value": 1.0, "std": [0.1, 0.9, 0.5, 0.7, 0.2, 0.8],
+        "status": ["predicted", "computed", "predicted", "predicted", "predicted", "predicted"],
+        "caution": ["", "", "", "", "toxic", ""], "outside_domain": False,
+    })
+    page = filled_html(filled, {}, tmp_path / "r.html", max_rows=3)
+    shown = re.findall(r"<td[^>]*>(Li|Be|Na|Mg|Al|K)</td>", page)
+    # the cautioned cell, then the two widest predicted intervals (the computed one is exact)
+    assert sorted(shown) == ["Al", "K", "Mg"]
+    assert len(pd.read_csv(tmp_path / "r_filled.csv")) == 6

@@ -396,13 +396,26 @@ def _command_explain(arguments, say):
     say(_CAUTION)
 
 
+def _file_stamp(path):
+    """(inode, modification time in ns) of a file, or None when there is none."""
+    try:
+        stat = Path(path).stat()
+    except OSError:
+        return None
+    return stat.st_ino, stat.st_mtime_ns
+
+
 def _command_report(arguments, say):
     from dopantgap.fill import parse_element_list
     from dopantgap.progress import bar
-    from dopantgap.report import REPORT_STEPS, build_report, map_columns, read_rounds_folder, read_screen
+    from dopantgap.report import (
+        REPORT_STEPS, build_report, filled_csv_path, map_columns, read_rounds_folder, read_screen,
+    )
 
     extra = parse_element_list(arguments.elements) if arguments.elements else []
     started = time.perf_counter()
+    # a large table's CSV beside the page: said only when this report wrote it
+    csv_before = _file_stamp(filled_csv_path(arguments.out))
     surrogate, manifest = _load_model(arguments, arguments.model, say)
     columns = None
     if arguments.columns is not None:
@@ -421,6 +434,9 @@ def _command_report(arguments, say):
         )
     size = path.stat().st_size / 1e6
     say(f"Report written: {path} ({size:.1f} MB, {time.perf_counter() - started:.1f} s); open it in a browser.")
+    if _file_stamp(filled_csv_path(path)) not in (None, csv_before):
+        say(f"  the filled table is too large to show whole in the page: all of it is in {filled_csv_path(path)} "
+            "(keep it beside the page; the page links it)")
     say(_CAUTION)
 
 
