@@ -514,3 +514,40 @@ def test_host_transfer_gp_tunes_on_a_subsample_and_conditions_on_every_row():
     assert abs(np.mean(std) / np.mean(full_std) - 1.0) < 0.1
     with pytest.raises(ValueError, match="max_optimise_samples"):
         HostTransferGP(max_optimise_samples=1).fit(X, y)
+
+
+# ------------------------------------------------------------ conditioning in one pass
+def test_conditioned_gp_is_scikit_learns_fixed_kernel_gp_in_one_pass(monkeypatch):
+    """The same fitted attributes, predictions and log marginal likelihood as scikit-learn's
+    GaussianProcessRegressor with ``optimizer=None`` (Rasmussen & Williams 2006, Algorithm
+    2.1), with one Cholesky factorisation per fit instead of two."""
+    import scipy.linalg
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    import sklearn.gaussian_process._gpr as gpr_module
+
+    from dopantgap.learners.conditioned import ConditionedGPR
+
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(120, 3))
+    y = np.sin(X[:, 0]) + 0.3 * X[:, 1] + 0.05 * rng.normal(size=120)
+    kernel = ConstantKernel(1.7) * RBF(np.array([1.2, 2.0, 0.8])) + WhiteKernel(0.02)
+    reference = GaussianProcessRegressor(kernel=kernel, optimizer=None, normalize_y=True).fit(X, y)
+    factorisations = []
+    real = scipy.linalg.cholesky
+    monkeypatch.setattr(gpr_module, "cholesky", lambda *a, **k: factorisations.append(1) or real(*a, **k))
+    ours = ConditionedGPR(kernel=kernel, optimizer=None, normalize_y=True).fit(X, y)
+    assert len(factorisations) == 1
+    monkeypatch.undo()
+    Xs = rng.normal(size=(15, 3))
+    np.testing.assert_allclose(ours.predict(Xs), reference.predict(Xs), rtol=1e-12, atol=1e-14)
+    for options in ({"return_std": True}, {"return_cov": True}):
+        for found, expected in zip(ours.predict(Xs, **options), reference.predict(Xs, **options)):
+            np.testing.assert_allclose(found, expected, rtol=1e-12, atol=1e-14)
+    assert ours.log_marginal_likelihood_value_ == pytest.approx(reference.log_marginal_likelihood_value_, rel=1e-12)
+    # outside fit the likelihood is scikit-learn's, gradient included
+    value, gradient = ours.log_marginal_likelihood(kernel.theta, eval_gradient=True)
+    expected, expected_gradient = reference.log_marginal_likelihood(kernel.theta, eval_gradient=True)
+    assert value == pytest.approx(expected, rel=1e-12)
+    np.testing.assert_allclose(gradient, expected_gradient, rtol=1e-10)
+    with pytest.raises(ValueError, match="optimizer=None"):
+        ConditionedGPR(kernel=kernel).fit(X, y)

@@ -14,6 +14,7 @@ from sklearn.model_selection import GroupKFold
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from dopantgap.learners.conditioned import ConditionedGPR
 from dopantgap.learners.kernels import OnColumns, SameLabel
 
 __all__ = ["GPLearner"]
@@ -196,7 +197,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         X, y = validate_data(self, X, y, y_numeric=True, dtype=np.float64)
         rng = check_random_state(self.random_state)
         if self.fixed_kernel is not None:
-            final = GaussianProcessRegressor(
+            final = ConditionedGPR(
                 kernel=clone(self.fixed_kernel), optimizer=None, normalize_y=True
             )
             self.regressor_ = final.fit(X, y)
@@ -245,7 +246,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         if rows is None:
             return _fit_quietly(optimiser, X, y)
         _fit_quietly(optimiser, X[rows], y[rows])
-        final = GaussianProcessRegressor(kernel=optimiser.kernel_, optimizer=None, normalize_y=True)
+        final = ConditionedGPR(kernel=optimiser.kernel_, optimizer=None, normalize_y=True)
         return final.fit(X, y)
 
     def _length_scale_slice(self, kernel, n_features):
@@ -341,7 +342,7 @@ def _grouped_errors(kernel, X, y, folds):
     """Mean squared error on each held-out fold, the kernel's hyperparameters held."""
     errors = []
     for train, test in folds:
-        model = GaussianProcessRegressor(kernel=kernel, optimizer=None, normalize_y=True)
+        model = ConditionedGPR(kernel=kernel, optimizer=None, normalize_y=True)
         model.fit(X[train], y[train])
         errors.append(np.mean((model.predict(X[test]) - y[test]) ** 2))
     return np.array(errors)

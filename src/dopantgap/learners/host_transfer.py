@@ -12,6 +12,8 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from dopantgap.learners.conditioned import ConditionedGPR
+
 __all__ = ["HostTransferGP"]
 
 
@@ -78,11 +80,12 @@ class HostTransferGP(RegressorMixin, BaseEstimator):
             rows = np.sort(check_random_state(self.random_state).choice(X.shape[0], size=limit, replace=False))
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", category=ConvergenceWarning)
-            self.regressor_ = GaussianProcessRegressor(
+            process = GaussianProcessRegressor if optimizer is not None else ConditionedGPR
+            self.regressor_ = process(
                 kernel=kernel, optimizer=optimizer, normalize_y=True, random_state=self.random_state
             ).fit(X[rows], y[rows])
         if not isinstance(rows, slice):
-            self.regressor_ = GaussianProcessRegressor(
+            self.regressor_ = ConditionedGPR(
                 kernel=self.regressor_.kernel_, optimizer=None, normalize_y=True
             ).fit(X, y)
         self.kernel_ = self.regressor_.kernel_
