@@ -81,8 +81,13 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
                         for s in sites
                     ]
                 )
-                summary = surrogate.predict(cells)
+                # one pass of the chain: the joint's diagonal is what ``predict`` would
+                # give (the same calibration of the same raw spread), and a computed cell
+                # is the one with a zero row
                 mean, cov = surrogate.predict_joint(cells)
+                variance = np.diag(cov)
+                std = np.sqrt(np.clip(variance, 0.0, None))
+                status = np.where(variance == 0.0, "computed", "predicted")
                 for position, element in enumerate(symbols):
                     block = slice(position * len(sites), (position + 1) * len(sites))
                     draws = _draw(mean[block], cov[block, block], n_samples, rng)
@@ -90,8 +95,7 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
                     order = np.argsort(-lowest, kind="stable")
                     ranks = np.empty(len(sites), dtype=int)
                     ranks[order] = np.arange(1, len(sites) + 1)
-                    part = summary.iloc[block]
-                    for index, site in enumerate(sites):
+                    for index, site in zip(range(block.start, block.stop), sites):
                         records.append(
                             {
                                 "element": element,
@@ -99,11 +103,11 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
                                 "method": method,
                                 "quantity": quantity,
                                 "site": site,
-                                "p_lowest": float(lowest[index]),
-                                "rank": int(ranks[index]),
-                                "value": float(part["value"].iat[index]),
-                                "std": float(part["std"].iat[index]),
-                                "status": part["status"].iat[index],
+                                "p_lowest": float(lowest[index - block.start]),
+                                "rank": int(ranks[index - block.start]),
+                                "value": float(mean[index]),
+                                "std": float(std[index]),
+                                "status": str(status[index]),
                             }
                         )
     return pd.DataFrame(
