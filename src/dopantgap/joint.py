@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from dopantgap.errors import DopantgapError
+from dopantgap.progress import step
 from dopantgap.symbols import normalise_symbol
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 from dopantgap.surrogate.stages import stage_joint
@@ -213,7 +214,7 @@ def joint_groups(surrogate, grid, quantity, methods, known, max_cells=MAX_JOINT_
     return groups
 
 
-def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CELLS):
+def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CELLS, progress=None):
     """Calibrated joints of the missing cells of each of ``quantities`` at ``methods``.
 
     Parameters
@@ -225,6 +226,8 @@ def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CEL
     methods, quantities : sequence of str
     max_cells : int, default=MAX_JOINT_CELLS
         Most missing cells in one joint (``joint_groups``).
+    progress : object or None, default=None
+        Told ``update(1)`` after each quantity (``progress.step``).
 
     Returns
     -------
@@ -242,5 +245,6 @@ def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CEL
         for block in found:
             block.n_groups = len(found)
         blocks += found
+        step(progress)
     return blocks
 

@@ -119,7 +119,8 @@ from dopantgap.gaussian import (
 )
 from dopantgap.joint import MAX_JOINT_CELLS, cell_grid, missing_joints
 from dopantgap.sites import site_quantities
-from dopantgap.surrogate.plausible import N_PLAUSIBLE, plausible_surrogates
+from dopantgap.progress import expect_steps, step
+from dopantgap.surrogate.plausible import N_PLAUSIBLE, plausible_surrogates, uncertain_stages
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = [
@@ -571,7 +572,7 @@ def _candidates(rule, block_index):
     return mask(block_index)
 
 
-def greedy_batch(rule, count, cell_costs=None, spread_columns=False):
+def greedy_batch(rule, count, cell_costs=None, spread_columns=False, progress=None):
     """The batch a goal ranks: one pick after the other, each scored given those above.
 
     Parameters
@@ -588,6 +589,8 @@ def greedy_batch(rule, count, cell_costs=None, spread_columns=False):
         Take each column (host, site, method, quantity) once before any column twice: a
         candidate in a column the batch already holds is eligible only when no other
         column has a useful one (then every column is free again).
+    progress : object or None, default=None
+        Told ``update(1)`` after each pick (``progress.step``).
 
     Returns
     -------
@@ -634,6 +637,7 @@ def greedy_batch(rule, count, cell_costs=None, spread_columns=False):
         allowed[b][cell] = False
         rule.picked(b, cell)
         scores[b] = rule.scores(b)
+        step(progress)
     return ranked
 
 
@@ -649,6 +653,7 @@ def pick_next(
     host=None,
     new_hosts=None,
     kernels=N_PLAUSIBLE,
+    progress=None,
 ):
     """A ranked batch of missing cells worth calculating next.
 
@@ -682,6 +687,10 @@ def pick_next(
         Plausible versions of the model the benefit is averaged over, the fitted one
         included (``AveragedGoal``; module docstring, "Robust picks"); 1: the fitted
         model alone. Only stages learned from few elements have versions.
+    progress : object or None, default=None
+        Told the number of steps first (``expect``, when it has one: the re-tuned
+        versions, each version's joint per quantity, the picks), then ``update(1)``
+        after each (``progress.bar``).
 
     Returns
     -------
@@ -760,10 +769,13 @@ def pick_next(
                 f"{', '.join(dict.fromkeys(grid['host']))}, or name a new host with its formula."
             )
         grid = grid[grid["host"] == host].reset_index(drop=True)
-    versions = plausible_surrogates(surrogate, n_versions=_check_versions(kernels), random_state=random_state)
+    n_versions = _check_versions(kernels)
+    n_versions = n_versions if n_versions > 1 and uncertain_stages(surrogate) else 1
+    expect_steps(progress, (n_versions - 1) + n_versions * len(quantities) + count)
+    versions = plausible_surrogates(surrogate, n_versions=n_versions, random_state=random_state, progress=progress)
     rules = []
     for version in versions:
-        blocks = missing_joints(version, grid, methods, quantities)
+        blocks = missing_joints(version, grid, methods, quantities, progress=progress)
         if goal == "table":
             rules.append(_TableGoal(blocks))
         elif goal == "window":
@@ -781,7 +793,8 @@ def pick_next(
     # a model unsure of how its columns share information spreads the batch over them
     # (module docstring, "Robust picks"); the site goal's questions pair sites on purpose
     spread = len(versions) > 1 and goal != "site"
-    ranked = greedy_batch(rule, count, cell_costs, spread_columns=spread)
+    ranked = greedy_batch(rule, count, cell_costs, spread_columns=spread, progress=progress)
+    step(progress, count - len(ranked))  # a shorter list: the steps of the picks not made
     records = []
     for rank, (b, cell, benefit, per_cost, std, reason) in enumerate(ranked, start=1):
         block = blocks[b]

@@ -1,6 +1,6 @@
 """A quiet progress bar (tqdm): drawn on a terminal's stderr, silent everywhere else.
 
-Long commands (fit, explain, replay, report) tell the user how far they are; output
+Long commands (fit, fill, next, explain, replay, report) tell the user how far they are; output
 redirected to a file or a pipe, and ``--quiet`` runs, stay free of bar characters.
 """
 
@@ -9,7 +9,7 @@ import sys
 
 from tqdm import tqdm
 
-__all__ = ["Progress", "bar"]
+__all__ = ["Progress", "bar", "expect_steps", "step"]
 
 # redraw at most this often (seconds): a terminal flooded with redraws slows the work
 # (common practice, no source; tqdm's own default)
@@ -103,3 +103,19 @@ def bar(total, label, quiet=False, stream=None):
         yield progress
     finally:
         progress.close()
+
+
+def step(progress, n=1):
+    """Tell ``progress`` that ``n`` more steps are done: a :class:`Progress`, any object
+    with ``update(n)``, a plain callable taking ``n``, or None (nothing)."""
+    if progress is None:
+        return
+    update = getattr(progress, "update", None)
+    (update if callable(update) else progress)(n)
+
+
+def expect_steps(progress, total):
+    """Tell ``progress`` how many steps to expect, if it can be told (``expect(total)``)."""
+    expect = getattr(progress, "expect", None)
+    if callable(expect):
+        expect(total)

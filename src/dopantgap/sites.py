@@ -13,6 +13,7 @@ which sites are comparable (for example a solution energy with a common referenc
 import numpy as np
 import pandas as pd
 
+from dopantgap.progress import expect_steps, step
 from dopantgap.reproducible import seed_integer
 
 __all__ = ["site_quantities", "site_preference"]
@@ -32,7 +33,7 @@ def _draw(mean, cov, n_samples, rng):
 
 
 def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=4000, random_state=0,
-                    extra_columns=None):
+                    extra_columns=None, progress=None):
     """Probability that each site is the lowest in energy.
 
     Parameters
@@ -51,6 +52,9 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
     extra_columns : DataFrame or None, default=None
         (host, site, method, quantity) columns beyond the table's, e.g. a new host's
         (``new_hosts.NewHostPlan.columns``, with its ``surrogate``).
+    progress : object or None, default=None
+        Told the number of (quantity, host, method) groups first (``expect``, when it
+        has one), then ``update(1)`` after each (``progress.bar``).
 
     Returns
     -------
@@ -67,49 +71,52 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
     columns = table[["host", "site", "method", "quantity"]]
     if extra_columns is not None:
         columns = pd.concat([columns, extra_columns[["host", "site", "method", "quantity"]]], ignore_index=True)
+    groups = []
     for quantity in quantities:
         rows = columns[columns["quantity"] == quantity]
         for host, host_rows in rows.groupby("host", sort=False):
             sites = list(dict.fromkeys(host_rows["site"]))
-            if len(sites) < 2:
-                continue
-            for method in dict.fromkeys(host_rows["method"]):
-                cells = pd.DataFrame(
-                    [
-                        {"element": e, "host": host, "site": s, "method": method, "quantity": quantity}
-                        for e in symbols
-                        for s in sites
-                    ]
+            if len(sites) >= 2:
+                groups += [(quantity, host, sites, method) for method in dict.fromkeys(host_rows["method"])]
+    expect_steps(progress, len(groups))
+    for quantity, host, sites, method in groups:
+        cells = pd.DataFrame(
+            [
+                {"element": e, "host": host, "site": s, "method": method, "quantity": quantity}
+                for e in symbols
+                for s in sites
+            ]
+        )
+        # one pass of the chain: the joint's diagonal is what ``predict`` would
+        # give (the same calibration of the same raw spread), and a computed cell
+        # is the one with a zero row
+        mean, cov = surrogate.predict_joint(cells)
+        variance = np.diag(cov)
+        std = np.sqrt(np.clip(variance, 0.0, None))
+        status = np.where(variance == 0.0, "computed", "predicted")
+        for position, element in enumerate(symbols):
+            block = slice(position * len(sites), (position + 1) * len(sites))
+            draws = _draw(mean[block], cov[block, block], n_samples, rng)
+            lowest = np.bincount(np.argmin(draws, axis=1), minlength=len(sites)) / n_samples
+            order = np.argsort(-lowest, kind="stable")
+            ranks = np.empty(len(sites), dtype=int)
+            ranks[order] = np.arange(1, len(sites) + 1)
+            for index, site in zip(range(block.start, block.stop), sites):
+                records.append(
+                    {
+                        "element": element,
+                        "host": host,
+                        "method": method,
+                        "quantity": quantity,
+                        "site": site,
+                        "p_lowest": float(lowest[index - block.start]),
+                        "rank": int(ranks[index - block.start]),
+                        "value": float(mean[index]),
+                        "std": float(std[index]),
+                        "status": str(status[index]),
+                    }
                 )
-                # one pass of the chain: the joint's diagonal is what ``predict`` would
-                # give (the same calibration of the same raw spread), and a computed cell
-                # is the one with a zero row
-                mean, cov = surrogate.predict_joint(cells)
-                variance = np.diag(cov)
-                std = np.sqrt(np.clip(variance, 0.0, None))
-                status = np.where(variance == 0.0, "computed", "predicted")
-                for position, element in enumerate(symbols):
-                    block = slice(position * len(sites), (position + 1) * len(sites))
-                    draws = _draw(mean[block], cov[block, block], n_samples, rng)
-                    lowest = np.bincount(np.argmin(draws, axis=1), minlength=len(sites)) / n_samples
-                    order = np.argsort(-lowest, kind="stable")
-                    ranks = np.empty(len(sites), dtype=int)
-                    ranks[order] = np.arange(1, len(sites) + 1)
-                    for index, site in zip(range(block.start, block.stop), sites):
-                        records.append(
-                            {
-                                "element": element,
-                                "host": host,
-                                "method": method,
-                                "quantity": quantity,
-                                "site": site,
-                                "p_lowest": float(lowest[index - block.start]),
-                                "rank": int(ranks[index - block.start]),
-                                "value": float(mean[index]),
-                                "std": float(std[index]),
-                                "status": str(status[index]),
-                            }
-                        )
+        step(progress)
     return pd.DataFrame(
         records,
         columns=["element", "host", "method", "quantity", "site", "p_lowest", "rank", "value", "std", "status"],

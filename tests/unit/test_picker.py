@@ -729,3 +729,38 @@ def test_picks_from_groups_of_hosts_say_so_and_stay_honest(demo, monkeypatch, go
     # below the cap nothing is said
     monkeypatch.undo()
     assert joint_groups_text(pick_next(demo, count=2, goal=goal, kernels=1)) == ""
+
+
+# ------------------------------------------------------------------ progress
+class _Counter:
+    """A progress object that keeps what it is told."""
+
+    def __init__(self):
+        self.total, self.done, self.told_before_work = None, 0, None
+
+    def expect(self, total):
+        if self.told_before_work is None:
+            self.told_before_work = self.done == 0
+        self.total = total
+
+    def update(self, n=1):
+        self.done += n
+
+
+@pytest.mark.parametrize("kernels", [1, 3])
+def test_next_counts_its_steps_first_and_ends_at_the_total(demo, kernels):
+    counter = _Counter()
+    picks = pick_next(demo, count=4, kernels=kernels, progress=counter)
+    assert counter.told_before_work and counter.done == counter.total
+    quantities = demo.table_["quantity"].nunique()
+    retuned = picks.attrs["kernels"] - 1
+    assert counter.total == retuned + picks.attrs["kernels"] * quantities + 4
+
+
+def test_site_preference_counts_its_groups_first(demo):
+    from dopantgap.sites import site_preference
+
+    counter = _Counter()
+    preference = site_preference(demo, progress=counter)
+    groups = preference[["quantity", "host", "method"]].drop_duplicates()
+    assert counter.told_before_work and counter.done == counter.total == len(groups) > 1

@@ -193,6 +193,7 @@ def _command_fill(arguments, say):
         unfamiliar_elements, wide_filled,
     )
     from dopantgap.new_hosts import parse_host_list, plan_new_hosts
+    from dopantgap.progress import bar
     from dopantgap.sites import site_preference
     from dopantgap.table import check_output_suffix, write_table
 
@@ -207,12 +208,15 @@ def _command_fill(arguments, say):
     surrogate, manifest = _load_model(arguments, arguments.model, say)
     sites_out = _fill_outputs(arguments, surrogate, manifest, say)
     plan = plan_new_hosts(surrogate, new_labels, arguments.hosts) if new_labels else None
-    filled = fill_table(surrogate, element_symbols=extra, level=arguments.level, new_hosts=plan)
-    write_table(wide_filled(filled) if layout == "wide" else filled, arguments.out)
-    preference = site_preference(
-        surrogate if plan is None else plan.surrogate, element_symbols=list(dict.fromkeys(filled["element"])),
-        extra_columns=None if plan is None else plan.columns,
-    )
+    with bar(1, "filled cells", quiet=arguments.quiet) as progress:
+        filled = fill_table(surrogate, element_symbols=extra, level=arguments.level, new_hosts=plan)
+        write_table(wide_filled(filled) if layout == "wide" else filled, arguments.out)
+        progress.update()
+    with bar(1, "site preferences (host, method, quantity)", quiet=arguments.quiet) as progress:
+        preference = site_preference(
+            surrogate if plan is None else plan.surrogate, element_symbols=list(dict.fromkeys(filled["element"])),
+            extra_columns=None if plan is None else plan.columns, progress=progress,
+        )
     write_table(preference, sites_out)
     predicted = filled[filled["status"] == "predicted"]
     say(
@@ -268,6 +272,7 @@ def _command_fill(arguments, say):
 def _command_next(arguments, say):
     from dopantgap.fill import outside_levels, parse_element_list, unfamiliar_elements
     from dopantgap.new_hosts import plan_new_hosts
+    from dopantgap.progress import bar
     from dopantgap.picker import (
         benefit_text, joint_groups_text, parse_cost, parse_window, pick_next, robust_picks_text,
     )
@@ -286,18 +291,20 @@ def _command_next(arguments, say):
         plan = plan_new_hosts(surrogate, [arguments.host], arguments.hosts)
         for note in plan.notes:
             say(f"note: {note}")
-    picks = pick_next(
-        surrogate,
-        count=arguments.count,
-        goal=goal,
-        method=arguments.method,
-        cost=costs,
-        window=window,
-        element_symbols=extra,
-        random_state=arguments.seed,
-        host=arguments.host,
-        new_hosts=plan,
-    )
+    with bar(1, "next (model versions, joints, picks)", quiet=arguments.quiet) as progress:
+        picks = pick_next(
+            surrogate,
+            count=arguments.count,
+            goal=goal,
+            method=arguments.method,
+            cost=costs,
+            window=window,
+            element_symbols=extra,
+            random_state=arguments.seed,
+            host=arguments.host,
+            new_hosts=plan,
+            progress=progress,
+        )
     write_table(picks, arguments.out)
     candidates = int(picks.attrs.get("candidates", 0))
     if len(picks) == 0 and candidates == 0:

@@ -16,6 +16,7 @@ from sklearn.base import clone
 from threadpoolctl import threadpool_limits
 
 from dopantgap.learners import ShiftPriorLearner
+from dopantgap.progress import step
 from dopantgap.reproducible import seed_integer
 from dopantgap.surrogate.stages import _MIN_ELEMENTS_FOR_RESIDUAL, _gaussian_process, stage_rows
 from dopantgap.table import REQUIRED_COLUMNS
@@ -101,7 +102,7 @@ def _process_prefix(learner):
     return "" if _gaussian_process(learner) is learner else "residual_learner__"
 
 
-def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
+def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0, progress=None):
     """The surrogate, then versions of it with other plausible kernels for its few-element stages.
 
     Each version re-tunes the hyperparameters of every stage of ``uncertain_stages`` on a
@@ -121,6 +122,8 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
         Number of versions returned, the fitted model first; 1 returns it alone.
     random_state : None, int, RandomState or Generator, default=0
         Seed of the subsets (``reproducible.seed_integer``).
+    progress : object or None, default=None
+        Told ``update(1)`` after each re-tuned version (``progress.step``).
 
     Returns
     -------
@@ -169,6 +172,7 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0):
         version = copy.copy(surrogate)
         version.stages_ = stages
         versions.append(version)
+        step(progress)
     return versions
 
 
