@@ -97,13 +97,13 @@ def test_next_past_the_joint_cap_weighs_groups_of_hosts_and_says_so(tmp_path, ca
     """Past the joint covariance's cap the command still answers (memory bounded by
     groups of hosts, not by a refusal) and says that benefits count a group's cells only;
     below the cap it says nothing of groups."""
+    import functools
+
     import dopantgap.joint
     import dopantgap.picker
 
-    def small_joints(surrogate, grid, methods, quantities):
-        return dopantgap.joint.missing_joints(surrogate, grid, methods, quantities, max_cells=300)
-
-    monkeypatch.setattr(dopantgap.picker, "missing_joints", small_joints)
+    monkeypatch.setattr(dopantgap.picker, "missing_joints",
+                        functools.partial(dopantgap.joint.missing_joints, max_cells=300))
     out = tmp_path / "next.csv"
     assert main(["next", str(demo_model_dir), "--out", str(out), "--count", "4"]) == 0
     text = capsys.readouterr().out

@@ -14,6 +14,7 @@ written out in the test, so every expected pick can be worked out by hand.
 """
 
 import copy
+import functools
 
 import numpy as np
 import pandas as pd
@@ -712,10 +713,7 @@ def test_picks_from_groups_of_hosts_say_so_and_stay_honest(demo, monkeypatch, go
     n_missing = sum(len(block.cells) for block in missing_joints(demo, grid, list(demo.levels_), ["E_sol"]))
     cap = n_missing // 4
 
-    def small_joints(surrogate, grid, methods, quantities):
-        return missing_joints(surrogate, grid, methods, quantities, max_cells=cap)
-
-    monkeypatch.setattr(picker_module, "missing_joints", small_joints)
+    monkeypatch.setattr(picker_module, "missing_joints", functools.partial(missing_joints, max_cells=cap))
     picks = pick_next(demo, count=6, goal=goal, kernels=1)
     assert 1 <= len(picks) <= 6
     assert set(picks.attrs["joint_groups"]) >= {"E_sol"}
