@@ -35,8 +35,9 @@ within about 0.05 eV, INVENTED too), so that the site goal has something to deci
 ``--world second-close-sites`` does the same to the second world.
 
 After each round the model is fitted in full on the grown table, as a user does between
-rounds (``--relearn fit``, the default: 27 minutes for ``--goals table`` with two runs
-side by side on two cores); ``--relearn refresh`` relearns it with
+rounds (``--relearn fit``, the default: 28.5 minutes for ``--goals table`` on two cores,
+measured beside other work at a load of about 3; the strategies and the floor's groups
+run side by side in the workers); ``--relearn refresh`` relearns it with
 ``Surrogate.refreshed`` instead (about 2 minutes alone), which keeps
 the learner, the correction form and the hyperparameters and can tell another story.
 
@@ -134,11 +135,12 @@ def main(argv=None):
     )
     elapsed = time.perf_counter() - started
     fit_seconds = steps[0] - started
-    n_rounds = len(steps) - 1 - FLOOR_GROUPS
-    round_seconds = (steps[n_rounds] - steps[0]) / max(n_rounds, 1)
-    print(f"wall time {elapsed:.0f} s: initial fit {fit_seconds:.1f} s, then {round_seconds:.1f} s per "
-          f"strategy round on average ({n_rounds} strategy rounds, model relearned by {arguments.relearn}), "
-          f"floor {steps[-1] - steps[n_rounds]:.0f} s")
+    n_strategies = len(result.settings["goals"]) + arguments.seeds
+    n_relearned = n_strategies * arguments.rounds + FLOOR_GROUPS
+    print(f"wall time {elapsed:.0f} s: initial fit "
+          f"{fit_seconds:.1f} s, then {n_strategies} strategies of {arguments.rounds} rounds and the floor's "
+          f"{FLOOR_GROUPS} groups side by side in the workers, {n_relearned} models relearned by "
+          f"{arguments.relearn} in {elapsed - fit_seconds:.0f} s")
     if arguments.out:
         written = write_replay(result, arguments.out)
         print(f"files written: {', '.join(str(path) for path in written.values())}")
