@@ -75,6 +75,7 @@ from sklearn.base import clone
 from threadpoolctl import threadpool_limits
 
 from dopantgap.atomic import write_text_atomic
+from dopantgap.progress import step
 from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.rounds import DECIDED_PROBABILITY
 from dopantgap.errors import DopantgapError, SuspectValueWarning
@@ -266,13 +267,6 @@ class _Scorer:
         return figures
 
 
-def _tick(progress, steps=1):
-    if progress is None:
-        return
-    update = getattr(progress, "update", None)
-    (update if callable(update) else progress)(steps)
-
-
 class _Relearn:
     """Grown table -> relearned model, as ``replay(relearn=...)`` says: a full fit of a
     clone of ``estimator``, or ``base.refreshed``. A class, not a closure, so that it
@@ -303,7 +297,7 @@ def _side_by_side(estimator, tasks, steps, progress):
     with threadpool_limits(limits=1) if pool.n_jobs == 1 else contextlib.nullcontext():
         for index, result in pool(tagged):
             results[index] = result
-            _tick(progress, steps[index])
+            step(progress, steps[index])
     return results
 
 
@@ -376,7 +370,7 @@ def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, meth
             # nothing and the figures stand, so that every strategy has every round
             curves.append({"strategy": strategy, "seed": seed, "round": round_number, "n_revealed": n_revealed,
                            "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
-            _tick(progress)
+            step(progress)
             continue
         picked = remaining.iloc[chosen]
         part = picked[list(REQUIRED_COLUMNS)].copy()
@@ -391,7 +385,7 @@ def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, meth
         figures = scorer(surrogate, remaining)
         curves.append({"strategy": strategy, "seed": seed, "round": round_number, "n_revealed": n_revealed,
                        "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
-        _tick(progress)
+        step(progress)
     return curves, revealed
 
 
@@ -446,7 +440,7 @@ def oracle_floor(base, visible, hidden, scorer, random_state, groups=FLOOR_GROUP
     errors = np.full(len(hidden), np.nan)
     for held in _floor_groups(hidden, random_state, groups):
         errors[held] = _floor_group_errors(relearn, scorer, visible, hidden, held)
-        _tick(progress)
+        step(progress)
     return errors
 
 
@@ -630,7 +624,7 @@ def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", SuspectValueWarning)
         base = clone(estimator).fit(visible.reset_index(drop=True))
-    _tick(progress)
+    step(progress)
     relearned = _Relearn(estimator, base, relearn)
 
     if reference is not None:

@@ -19,6 +19,7 @@ from dopantgap.calibration import SCENARIOS, cross_conformal_covered, fit_calibr
 from dopantgap.domain import LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.hosts import host_property_columns
+from dopantgap.progress import step
 from dopantgap.surrogate.chain import difficulty_features
 from dopantgap.surrogate.stages import _CELL, NEW_HOST_FORMS, new_encoder
 from dopantgap.table import KEY_COLUMNS, REQUIRED_COLUMNS
@@ -125,11 +126,6 @@ def planned_fits(surrogate, core, name):
     return count
 
 
-def _tick(progress, n=1):
-    if progress is not None:
-        progress.update(n)
-
-
 def _each(surrogate, tasks, progress=None):
     """The results of the delayed ``tasks``, in order, fitted side by side
     (``workers.worker_pool``); ``progress`` is told as each one ends."""
@@ -142,7 +138,7 @@ def _each(surrogate, tasks, progress=None):
     with threadpool_limits(limits=1) if pool.n_jobs == 1 else contextlib.nullcontext():
         for result in pool(tasks):
             results.append(result)
-            _tick(progress)
+            step(progress)
     return results
 
 
