@@ -73,7 +73,7 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     """
     levels = surrogate.quantity_levels_[quantity]
     rows = grid[grid["quantity"] == quantity]
-    wanted = [method for method in levels if method in methods and method in set(rows["method"])]
+    wanted = _wanted_methods(surrogate, rows, quantity, methods)
     if not wanted:
         return None
     top = max(levels.index(method) for method in wanted)
@@ -136,6 +136,7 @@ def missing_joint(surrogate, grid, quantity, methods, known):
 
 
 def _wanted_methods(surrogate, rows, quantity, methods):
+    """The levels of ``quantity`` among ``methods`` that the grid ``rows`` have, cheapest first."""
     levels = surrogate.quantity_levels_[quantity]
     present = set(rows["method"])
     return [method for method in levels if method in methods and method in present]
