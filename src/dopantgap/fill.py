@@ -3,6 +3,7 @@
 import difflib
 
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
 from dopantgap import elements
 from dopantgap.errors import DopantgapError
@@ -130,7 +131,12 @@ def fill_table(surrogate, element_symbols=None, level=0.9, new_hosts=None):
             for host, site, method, quantity in columns.itertuples(index=False, name=None)
         ]
     )
-    filled = surrogate.predict(grid, level=float(level))
+    # one BLAS thread: the chunks' matrices are a few hundred cells wide, where a second
+    # thread gains nothing idle and spins beside any busy process (the 3,000-cell model of
+    # benchmarks/README.md filled in 6.6 s on one thread, 6.9 s on two idle, 8.8 s against
+    # 17.1 s beside a busy process)
+    with threadpool_limits(limits=1):
+        filled = surrogate.predict(grid, level=float(level))
     notes = _caution(symbols)
     filled["caution"] = filled["element"].map(notes).fillna("")
     if new_hosts is not None and new_hosts.outside:

@@ -12,6 +12,7 @@ which sites are comparable (for example a solution energy with a common referenc
 
 import numpy as np
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
 from dopantgap.progress import expect_steps, step
 from dopantgap.reproducible import seed_integer
@@ -90,7 +91,8 @@ def site_preference(surrogate, element_symbols=None, quantities=None, n_samples=
         # one pass of the chain: the joint's diagonal is what ``predict`` would
         # give (the same calibration of the same raw spread), and a computed cell
         # is the one with a zero row
-        mean, cov = surrogate.predict_joint(cells)
+        with threadpool_limits(limits=1):  # small matrices: as fill.fill_table says why
+            mean, cov = surrogate.predict_joint(cells)
         variance = np.diag(cov)
         std = np.sqrt(np.clip(variance, 0.0, None))
         status = np.where(variance == 0.0, "computed", "predicted")
