@@ -1,5 +1,6 @@
 """Commands that read a table and learn it: check, fit, validate."""
 
+import argparse
 import time
 from pathlib import Path
 
@@ -8,10 +9,21 @@ from dopantgap.cli.common import (
 )
 from dopantgap.cluster import on_cluster
 from dopantgap.errors import DopantgapError
+from dopantgap.sizes import MAX_BLOCK_ROWS
 
 
 def _parse_levels(text):
     return [level.strip() for level in text.split(",") if level.strip()]
+
+
+def _block_rows(text):
+    try:
+        value = int(text)
+    except ValueError:
+        value = None
+    if value is None or value < 100:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 100, got {text!r}")
+    return value
 
 
 def add_learning_options(command, learner_help):
@@ -27,6 +39,12 @@ def add_learning_options(command, learner_help):
         help="CSV with columns host,formula (for host labels that are not formulas) and optionally "
              "site,site_kind (sites of different hosts that behave alike) and host properties "
              "such as 'lattice_constant [angstrom]'",
+    )
+    command.add_argument(
+        "--block-rows", type=_block_rows, default=MAX_BLOCK_ROWS, metavar="N",
+        help=f"largest stage a Gaussian process learns in one piece (default: {MAX_BLOCK_ROWS}); "
+             "a larger one is learned in blocks of whole hosts. Memory grows as N squared "
+             "(about 0.6 GB per worker at 4000)",
     )
     add_suspect_option(command)
     add_scheduler_option(command)
@@ -103,7 +121,7 @@ def _table_and_estimator(arguments, say):
     estimator = Surrogate(
         learner=arguments.learner, levels=arguments.levels, host_compositions=hosts,
         random_state=arguments.seed, suspect_values=arguments.suspect_values,
-        host_properties=properties, site_kinds=site_kinds,
+        host_properties=properties, site_kinds=site_kinds, max_block_rows=arguments.block_rows,
     )
     return table, estimator
 

@@ -152,6 +152,8 @@ class _StageColumns:
     # direct Gaussian-process path
     def _prepare_fast(self):
         regressor = self.learner.regressor_
+        if not hasattr(regressor, "X_train_"):
+            raise _Unsupported  # conditioned in blocks: each block has its own weights
         n_physical = self.stage.encoder.n_physical_
         physical = set(range(n_physical))
         train = regressor.X_train_

@@ -14,8 +14,10 @@ from sklearn.model_selection import GroupKFold
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from dopantgap.learners.blocks import BlockedGPR
 from dopantgap.learners.conditioned import ConditionedGPR
 from dopantgap.learners.kernels import OnColumns, SameLabel
+from dopantgap.sizes import MAX_BLOCK_ROWS
 
 __all__ = ["GPLearner"]
 
@@ -25,6 +27,10 @@ _MIN_GROUPS_FOR_SELECTION = 6
 #: Lower bound (standardised units) of the length scales of ``smooth_columns``.
 SMOOTH_LENGTH_SCALE = 3.0
 _SELECTION_FOLDS = 5
+#: Rows the descriptor choice scores its candidates on (a seeded random subset of a
+#: larger stage). Its cost grows as these rows cubed, times candidates and folds; the
+#: demo's and the real tables' stages are smaller, so their choice is unchanged.
+MAX_SELECTION_ROWS = 1500
 
 
 class GPLearner(RegressorMixin, BaseEstimator):
@@ -86,9 +92,21 @@ class GPLearner(RegressorMixin, BaseEstimator):
         than one standard error: the others are switched off at their length-scale
         bound and the rest retuned, and the retuned kernel is kept only if it still
         beats keeping all. Inside a cross-validation fold the choice is remade on the
-        fold's own rows.
+        fold's own rows. A stage of more than ``MAX_SELECTION_ROWS`` rows scores the
+        candidate sets on a seeded random subset of that many rows.
     random_state : int, Generator or None, default=None
         Seed for the subsample and the restarts.
+    block_column : int or None, default=None
+        Column holding a label (the host/site column code) whose rows
+        ``block_groups`` gathers into groups (hosts). When given and a conditioning
+        has more than ``max_block_rows`` rows, the process is conditioned in blocks of
+        whole groups (:class:`~dopantgap.learners.blocks.BlockedGPR`): memory grows as
+        rows times ``max_block_rows`` instead of rows squared, and cells of different
+        blocks are treated as independent. None: always one exact conditioning.
+    block_groups : dict or None, default=None
+        Label in ``block_column`` -> group; needed with ``block_column``.
+    max_block_rows : int, default=MAX_BLOCK_ROWS
+        Largest conditioning done in one piece.
 
     Attributes
     ----------
@@ -129,8 +147,14 @@ class GPLearner(RegressorMixin, BaseEstimator):
         selection_group_column=None,
         random_state=None,
         smooth_columns=(),
+        block_column=None,
+        block_groups=None,
+        max_block_rows=MAX_BLOCK_ROWS,
     ):
         self.smooth_columns = smooth_columns
+        self.block_column = block_column
+        self.block_groups = block_groups
+        self.max_block_rows = max_block_rows
         self.label_columns = label_columns
         self.indicator_columns = indicator_columns
         self.ignored_columns = ignored_columns
@@ -146,6 +170,10 @@ class GPLearner(RegressorMixin, BaseEstimator):
     def __setstate__(self, state):
         # a model folder written before smooth columns existed
         state.setdefault("smooth_columns", ())
+        # ... or before blocked conditioning
+        state.setdefault("block_column", None)
+        state.setdefault("block_groups", None)
+        state.setdefault("max_block_rows", MAX_BLOCK_ROWS)
         super().__setstate__(state)
 
     def _descriptor_columns(self, n_features):
@@ -196,11 +224,10 @@ class GPLearner(RegressorMixin, BaseEstimator):
         """
         X, y = validate_data(self, X, y, y_numeric=True, dtype=np.float64)
         rng = check_random_state(self.random_state)
+        if self.block_column is not None and self.block_groups is None:
+            raise ValueError("block_column needs block_groups (label -> group).")
         if self.fixed_kernel is not None:
-            final = ConditionedGPR(
-                kernel=clone(self.fixed_kernel), optimizer=None, normalize_y=True
-            )
-            self.regressor_ = final.fit(X, y)
+            self.regressor_ = self._condition(clone(self.fixed_kernel), X, y)
             self.ard_kernel_ = self.regressor_.kernel_
             self.kept_descriptor_columns_ = self._kept_columns(self.regressor_.kernel_, X.shape[1])
             self.selection_errors_ = None
@@ -246,8 +273,15 @@ class GPLearner(RegressorMixin, BaseEstimator):
         if rows is None:
             return _fit_quietly(optimiser, X, y)
         _fit_quietly(optimiser, X[rows], y[rows])
-        final = ConditionedGPR(kernel=optimiser.kernel_, optimizer=None, normalize_y=True)
-        return final.fit(X, y)
+        return self._condition(optimiser.kernel_, X, y)
+
+    def _condition(self, kernel, X, y):
+        """The process with ``kernel`` held fixed, conditioned on (X, y): in one piece,
+        or in blocks of whole groups past ``max_block_rows`` rows."""
+        if self.block_column is None or X.shape[0] <= int(self.max_block_rows):
+            return ConditionedGPR(kernel=kernel, optimizer=None, normalize_y=True).fit(X, y)
+        blocked = BlockedGPR(kernel, int(self.block_column), self.block_groups, int(self.max_block_rows))
+        return blocked.fit(X, y)
 
     def _length_scale_slice(self, kernel, n_features):
         """Positions in ``kernel.theta`` of the descriptor length scales (log values)."""
@@ -277,21 +311,27 @@ class GPLearner(RegressorMixin, BaseEstimator):
         Elements of Statistical Learning, 2nd ed. 2009, section 7.10.1)."""
         kernel = self.regressor_.kernel_
         where = self._length_scale_slice(kernel, X.shape[1])
-        groups = X[:, int(self.selection_group_column)]
+        scored_X, scored_y = X, y
+        if X.shape[0] > MAX_SELECTION_ROWS:
+            scored = np.sort(rng.choice(X.shape[0], size=MAX_SELECTION_ROWS, replace=False))
+            scored_X, scored_y = X[scored], y[scored]
+        groups = scored_X[:, int(self.selection_group_column)]
         n_groups = len(np.unique(groups))
         if where is None or where.stop - where.start < 2 or n_groups < _MIN_GROUPS_FOR_SELECTION:
             return
         theta = kernel.theta
         upper = kernel.bounds[where, 1]
         order = np.argsort(theta[where], kind="stable")  # shortest length scale first
-        folds = list(GroupKFold(n_splits=min(_SELECTION_FOLDS, n_groups)).split(X, y, groups))
+        folds = list(GroupKFold(n_splits=min(_SELECTION_FOLDS, n_groups)).split(scored_X, scored_y, groups))
         candidates = []
         for n_kept in range(1, len(order) + 1):
             trial = theta.copy()
             switched_off = order[n_kept:]
             trial[where.start + switched_off] = upper[switched_off]
             candidates.append(kernel.clone_with_theta(trial))
-        errors = np.array([_grouped_errors(candidate, X, y, folds) for candidate in candidates])
+        errors = np.array([
+            _grouped_errors(self._condition, candidate, scored_X, scored_y, folds) for candidate in candidates
+        ])
         mean = errors.mean(axis=1)
         chosen = int(np.argmin(mean))
         self.selection_errors_ = mean
@@ -304,7 +344,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         # measured in benchmarks/bench_real.py on the segregation table)
         switched_off = where.start + order[chosen + 1:]
         retuned = self._optimise(candidates[chosen], X, y, rows, rng, pinned=switched_off)
-        if _clearly_better(_grouped_errors(retuned.kernel_, X, y, folds), errors[-1]):
+        if _clearly_better(_grouped_errors(self._condition, retuned.kernel_, scored_X, scored_y, folds), errors[-1]):
             self.regressor_ = retuned
 
     @property
@@ -338,12 +378,12 @@ class GPLearner(RegressorMixin, BaseEstimator):
         return self.regressor_.predict(X, return_std=return_std, return_cov=return_cov)
 
 
-def _grouped_errors(kernel, X, y, folds):
-    """Mean squared error on each held-out fold, the kernel's hyperparameters held."""
+def _grouped_errors(condition, kernel, X, y, folds):
+    """Mean squared error on each held-out fold, the kernel's hyperparameters held;
+    ``condition(kernel, X, y)`` gives the conditioned process."""
     errors = []
     for train, test in folds:
-        model = ConditionedGPR(kernel=kernel, optimizer=None, normalize_y=True)
-        model.fit(X[train], y[train])
+        model = condition(kernel, X[train], y[train])
         errors.append(np.mean((model.predict(X[test]) - y[test]) ** 2))
     return np.array(errors)
 

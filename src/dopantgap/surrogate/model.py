@@ -19,6 +19,7 @@ from dopantgap.domain import ElementDomain, HostDomain, LevelDomain
 from dopantgap.errors import DopantgapError
 from dopantgap.features import DEFAULT_DESCRIPTORS
 from dopantgap.hosts import host_descriptor_table, host_property_columns
+from dopantgap.sizes import MAX_BLOCK_ROWS
 from dopantgap.reproducible import canonical_order, seed_integer
 from dopantgap.surrogate import chain, crossval
 from dopantgap.surrogate.crossval import _calibration, _selection_residuals
@@ -109,6 +110,13 @@ def _check_jobs(n_jobs):
         raise DopantgapError(f"n_jobs must be a whole number of at least 1, or -1 for every core; got {n_jobs!r}.")
 
 
+def _check_block_rows(max_block_rows):
+    """Refuse a block size that is not a whole number of at least 100."""
+    value = max_block_rows
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 100:
+        raise DopantgapError(f"max_block_rows must be a whole number of at least 100, got {value!r}.")
+
+
 def _host_compositions(table, host_map):
     """Host compositions, with an unreadable host label located in the user's file."""
     compositions = {}
@@ -165,6 +173,11 @@ class Surrogate(BaseEstimator):
         process, -1 uses every core. Inside
         ``cluster.on_cluster`` the work goes to the Dask cluster instead. The model
         is the same whatever the value.
+    max_block_rows : int, default=sizes.MAX_BLOCK_ROWS
+        Largest stage a Gaussian process is conditioned on in one piece; a larger
+        stage is conditioned in blocks of whole hosts, each host's cells predicted
+        by its own block (``learners.blocks.BlockedGPR``). Memory grows as the square
+        of this number; a larger value lets more hosts share what they teach.
 
     Attributes
     ----------
@@ -222,8 +235,10 @@ class Surrogate(BaseEstimator):
         host_properties=None,
         site_kinds=None,
         n_jobs=2,
+        max_block_rows=MAX_BLOCK_ROWS,
     ):
         self.n_jobs = n_jobs
+        self.max_block_rows = max_block_rows
         self.learner = learner
         self.levels = levels
         self.correction = correction
@@ -240,6 +255,7 @@ class Surrogate(BaseEstimator):
         state.setdefault("host_properties", None)
         state.setdefault("site_kinds", None)
         state.setdefault("n_jobs", 2)
+        state.setdefault("max_block_rows", MAX_BLOCK_ROWS)
         super().__setstate__(state)
 
     # ------------------------------------------------------------------ fitting
@@ -265,6 +281,7 @@ class Surrogate(BaseEstimator):
         descriptors = _checked_descriptors(self.descriptors)
         _check_folds(self.n_folds)
         _check_jobs(self.n_jobs)
+        _check_block_rows(self.max_block_rows)
         # the reader's checks, for a table built in memory as for one read from a file
         table = check_frame(table, suspect_values=self.suspect_values)
         missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]

@@ -261,6 +261,10 @@ def new_learner(surrogate, name, encoder, n_rows, template, mode="fresh", kind="
             smooth_columns=tuple(
                 encoder.physical_names_.index(name) for name in getattr(encoder, "host_names_", ())
             ),
+            # a large stage is conditioned in blocks of whole hosts (memory bounded)
+            block_column=column_label,
+            block_groups={code: host for code, (host, _site) in enumerate(encoder.columns_)},
+            max_block_rows=int(surrogate.max_block_rows),
         )
     return BoostLearner(label_columns=(encoder.label_columns_[0],), random_state=learner_seed(surrogate._seed()))
 
