@@ -8,7 +8,6 @@ import numpy as np
 from scipy.optimize import minimize
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.base import BaseEstimator, RegressorMixin, clone
-from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 from sklearn.model_selection import GroupKFold
 from sklearn.utils import check_random_state
@@ -17,6 +16,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from dopantgap.learners.blocks import BlockedGPR
 from dopantgap.learners.conditioned import ConditionedGPR
 from dopantgap.learners.kernels import OnColumns, SameLabel
+from dopantgap.learners.likelihood import ContractedGradientGPR
 from dopantgap.sizes import MAX_BLOCK_ROWS
 
 __all__ = ["GPLearner"]
@@ -261,7 +261,7 @@ class GPLearner(RegressorMixin, BaseEstimator):
         """Maximise the marginal likelihood from ``start`` on ``rows`` (all when None),
         hyperparameters at positions ``pinned`` held where they are, then condition the
         regressor on every row."""
-        optimiser = GaussianProcessRegressor(
+        optimiser = ContractedGradientGPR(
             kernel=start,
             optimizer=partial(
                 _bounded_lbfgs, max_iterations=int(self.max_optimiser_iterations), pinned=tuple(pinned)
