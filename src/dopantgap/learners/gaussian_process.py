@@ -271,14 +271,19 @@ class GPLearner(RegressorMixin, BaseEstimator):
             random_state=rng,
         )
         if rows is None:
-            return _fit_quietly(optimiser, X, y)
+            fitted = _fit_quietly(optimiser, X, y)
+            return self._condition(fitted.kernel_, X, y) if self._blocked(X) else fitted
         _fit_quietly(optimiser, X[rows], y[rows])
         return self._condition(optimiser.kernel_, X, y)
+
+    def _blocked(self, X):
+        """Whether a conditioning on ``X`` is done in blocks."""
+        return self.block_column is not None and X.shape[0] > int(self.max_block_rows)
 
     def _condition(self, kernel, X, y):
         """The process with ``kernel`` held fixed, conditioned on (X, y): in one piece,
         or in blocks of whole groups past ``max_block_rows`` rows."""
-        if self.block_column is None or X.shape[0] <= int(self.max_block_rows):
+        if not self._blocked(X):
             return ConditionedGPR(kernel=kernel, optimizer=None, normalize_y=True).fit(X, y)
         blocked = BlockedGPR(kernel, int(self.block_column), self.block_groups, int(self.max_block_rows))
         return blocked.fit(X, y)
