@@ -74,11 +74,11 @@ def test_each_block_is_the_exact_process_on_its_rows():
     block_of_row = np.array([blocked.block_of_group_[name] for name in host])
     for block in range(len(blocked.experts_)):
         own = block_of_row == block
-        assert own.sum() <= 30  # half its rows its own hosts', half shared
+        assert own.sum() <= 60
         # every cell of a host is in the block of that host
         assert len(set(block_of_row[np.isin(host, host[own])])) == 1
         rows = blocked.expert_rows_[block]
-        assert len(rows) == 60 and set(np.flatnonzero(own)) <= set(rows)
+        np.testing.assert_array_equal(rows, np.flatnonzero(own))
         standardised = (y - y.mean()) / y.std()
         reference = GaussianProcessRegressor(kernel=_kernel(), optimizer=None).fit(X[rows], standardised[rows])
         query = X[own][:5] + [0.05, -0.05, 0.0, 0.0]
@@ -132,7 +132,7 @@ def test_gp_learner_blocks_only_past_the_cap():
     tight = GPLearner(label_columns=(2,), ignored_columns=(3,), random_state=0, max_optimise_samples=60,
                       block_column=3, block_groups=groups, max_block_rows=50).fit(X, y)
     assert isinstance(tight.regressor_, BlockedGPR)
-    assert max(len(expert.X_train_) for expert in tight.regressor_.experts_) == 50
+    assert max(len(expert.X_train_) for expert in tight.regressor_.experts_) <= 50
     # the same hyperparameters (tuned on the same 60 rows), conditioned in blocks
     np.testing.assert_allclose(tight.kernel_.theta, plain.kernel_.theta)
     mean, std = tight.predict(X, return_std=True)

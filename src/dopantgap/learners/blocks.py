@@ -54,13 +54,10 @@ class BlockedGPR(RegressorMixin, BaseEstimator):
     """Local experts over whole hosts: a fixed kernel conditioned block by block.
 
     The rows are split into blocks of whole groups (hosts: every cell of a host, at any
-    site, sits in one block); each block is a Gaussian process conditioned exactly on
-    its own rows plus a random share of the other blocks' rows (``shared_fraction``),
-    ``max_block_rows`` in all, with the one kernel and the one target scaling (the mean
-    and standard deviation of all rows) shared by every block. The shared rows carry
-    what all hosts share into every block: without them, an element's offset was
-    learned from its cells in one block's hosts only (a 3,000-cell table in blocks of
-    1,000 rows: new-cell MAE 1.28x the exact process's; benchmarks/bench_blocks.py). A query is predicted by the block of its group, so two cells of one host
+    site, sits in one block) of at most ``max_block_rows`` rows; each block is a
+    Gaussian process conditioned exactly on its own rows, with the one kernel and the
+    one target scaling (the mean and standard deviation of all rows) shared by every
+    block. A query is predicted by the block of its group, so two cells of one host
     keep their joint covariance; cells of different blocks are independent, and a
     query of a group no block holds (a new host) is predicted by every block and the
     answers combined as a generalised product of experts with equal weights (Cao &
@@ -79,13 +76,7 @@ class BlockedGPR(RegressorMixin, BaseEstimator):
     group_of_label : dict
         Label -> group (host); labels absent here form no group of their own.
     max_block_rows : int, default=MAX_BLOCK_ROWS
-        Rows each block is conditioned on.
-    shared_fraction : float, default=0.5
-        With more than one block: the share of each block's rows drawn at random from
-        the other blocks' hosts. A block's own hosts fill the rest (a single host
-        larger than that is a block of its own).
-    random_state : int, default=0
-        Seed of the shared rows.
+        Largest block (a single group larger than this is a block on its own).
 
     Attributes
     ----------
@@ -94,8 +85,7 @@ class BlockedGPR(RegressorMixin, BaseEstimator):
     experts_ : list of ConditionedGPR
         One conditioned process per block, on standardised targets.
     expert_rows_ : list of ndarray
-        Rows (of the training ``X``) each block is conditioned on: its own hosts' and
-        the shared ones.
+        Rows (of the training ``X``) each block is conditioned on.
     block_of_group_ : dict
         Group -> position in ``experts_``.
     y_mean_, y_scale_ : float
@@ -104,14 +94,11 @@ class BlockedGPR(RegressorMixin, BaseEstimator):
         Sum of the blocks' log marginal likelihoods (of the standardised targets).
     """
 
-    def __init__(self, kernel, group_column, group_of_label, max_block_rows=MAX_BLOCK_ROWS, shared_fraction=0.5,
-                 random_state=0):
+    def __init__(self, kernel, group_column, group_of_label, max_block_rows=MAX_BLOCK_ROWS):
         self.kernel = kernel
         self.group_column = group_column
         self.group_of_label = group_of_label
         self.max_block_rows = max_block_rows
-        self.shared_fraction = shared_fraction
-        self.random_state = random_state
 
     def _groups(self, X):
         labels = X[:, int(self.group_column)]
@@ -140,25 +127,16 @@ class BlockedGPR(RegressorMixin, BaseEstimator):
             if group in counts:
                 counts[group] += 1
         present = [group for group in order if counts[group]]
-        n_rows, limit = len(X), int(self.max_block_rows)
-        own_limit = limit if n_rows <= limit else max(1, int(round(limit * (1.0 - self.shared_fraction))))
-        blocks = pack_blocks([counts[group] for group in present], own_limit)
+        blocks = pack_blocks([counts[group] for group in present], int(self.max_block_rows))
         self.block_of_group_ = {present[position]: block for block, members in enumerate(blocks) for position in members}
         row_block = np.array([self.block_of_group_.get(group, 0) for group in groups])
         self.y_mean_ = float(np.mean(y))
         spread = float(np.std(y))
         self.y_scale_ = spread if spread > 0 else 1.0
         target = (y - self.y_mean_) / self.y_scale_
-        rng = np.random.default_rng(self.random_state)
         self.experts_, self.expert_rows_ = [], []
         for block in range(len(blocks)):
-            own = np.flatnonzero(row_block == block)
-            others = np.flatnonzero(row_block != block)
-            # rows of the other blocks fill the block up to the limit: they carry what
-            # the hosts share (an element's own offset above all) into every block
-            n_shared = min(len(others), max(0, limit - len(own))) if len(blocks) > 1 else 0
-            shared = rng.choice(others, size=n_shared, replace=False) if n_shared else np.empty(0, dtype=int)
-            rows = np.sort(np.concatenate([own, shared]))
+            rows = np.flatnonzero(row_block == block)
             expert = ConditionedGPR(kernel=self.kernel, optimizer=None, normalize_y=False)
             self.experts_.append(expert.fit(X[rows], target[rows]))
             self.expert_rows_.append(rows)
