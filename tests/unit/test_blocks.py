@@ -169,3 +169,13 @@ def test_descriptor_choice_scores_a_large_stage_on_a_subset(monkeypatch):
     scored = [size for size in seen if size != len(X)]
     assert scored and max(scored) < 60  # each fold's training part of the 60 scored rows
     assert seen.count(len(X)) >= 1  # the stage itself is still conditioned on every row
+
+
+@pytest.mark.parametrize("value", [10, 2.5, True, "4000"])
+def test_a_surrogate_refuses_an_unusable_block_size(value):
+    from dopantgap.demo import demo_table
+    from dopantgap.errors import DopantgapError
+    from dopantgap.surrogate import Surrogate
+
+    with pytest.raises(DopantgapError, match="max_block_rows must be a whole number of at least 100"):
+        Surrogate(max_block_rows=value).fit(demo_table())

@@ -42,6 +42,7 @@ def test_importing_the_command_line_loads_no_heavy_library():
     ["--help"],
     ["fit", "--help"],
     ["fit", "table.csv"],  # --out missing: argparse's error
+    ["fit", "table.csv", "--out", "m", "--block-rows", "50"],  # below the smallest block
     ["replay", "table.csv", "--rounds", "0"],  # a number refused by the command itself
     ["add", "t.csv", "r.csv", "--out", "n.csv", "--picks", "p.csv"],  # --picks without --rounds-dir
 ])
@@ -91,3 +92,13 @@ def test_no_campaign_in_any_help(capsys):
     # the rounds vocabulary is what replaced it
     assert "ROUNDS_DIR" in pages["history"]
     assert "--rounds-dir" in pages["add"] and "--rounds-dir" in pages["report"]
+
+
+def test_block_rows_below_the_smallest_is_one_line(capsys):
+    from dopantgap.cli import main
+
+    with pytest.raises(SystemExit) as stop:
+        main(["fit", "table.csv", "--out", "m", "--block-rows", "ten"])
+    assert stop.value.code == 2
+    error = capsys.readouterr().err
+    assert "--block-rows" in error and "at least 100" in error and "Traceback" not in error
