@@ -110,8 +110,9 @@ class GPLearner(RegressorMixin, BaseEstimator):
 
     Attributes
     ----------
-    regressor_ : GaussianProcessRegressor
-        The fitted regressor; ``regressor_.kernel_`` holds the fitted covariance.
+    regressor_ : GaussianProcessRegressor or BlockedGPR
+        The fitted regressor (a scikit-learn process, or one per block of hosts);
+        ``regressor_.kernel_`` holds the fitted covariance.
     ard_kernel_ : Kernel
         The covariance at the optimum of the hyperparameter search, before descriptors
         were switched off; folds warm-start from it so that they choose afresh.
