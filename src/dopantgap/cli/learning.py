@@ -43,8 +43,7 @@ def add_learning_options(command, learner_help):
     command.add_argument(
         "--block-rows", type=_block_rows, default=MAX_BLOCK_ROWS, metavar="N",
         help=f"largest stage a Gaussian process learns in one piece (default: {MAX_BLOCK_ROWS}); "
-             "a larger one is learned in blocks of whole hosts. Memory grows as N squared "
-             "(about 0.6 GB per worker at 4000)",
+             "a larger one is learned in blocks of whole hosts. Memory grows as N squared",
     )
     add_suspect_option(command)
     add_scheduler_option(command)
