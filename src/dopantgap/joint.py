@@ -61,8 +61,13 @@ def cell_grid(surrogate, element_symbols=(), extra_columns=None):
     )
 
 
-def missing_joint(surrogate, grid, quantity, methods, known):
+def missing_joint(surrogate, grid, quantity, methods, known, stage_cache=None):
     """Calibrated joint of the missing cells of ``quantity`` at ``methods``.
+
+    ``stage_cache`` (a dict, or None) keeps each stage's joint over the cells asked
+    for, keyed by the stage object: plausible versions of a model share the stages they
+    do not re-tune, and on a 10,000-cell model recomputing the cheap stage's covariance
+    for every version was half of ``next``.
 
     Every level is written as a sum of independent stage processes: value(level k) at a
     cell is the user's number where computed, else stage_k + value(level k-1) for a
@@ -86,7 +91,7 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     stage_covs, level_means, level_weights, level_computed = [], [], [], []
     for position, method in enumerate(levels[: top + 1]):
         stage = surrogate.stages_[(quantity, method)]
-        stage_mean, stage_cov = stage_joint(surrogate, stage, units)
+        stage_mean, stage_cov = _stage_joint_once(surrogate, stage, units, unit_keys, stage_cache)
         stage_covs.append(stage_cov)
         values = np.array([known.get(key + (method, quantity), np.nan) for key in unit_keys])
         computed = ~np.isnan(values)
@@ -133,6 +138,17 @@ def missing_joint(surrogate, grid, quantity, methods, known):
     cov = cov * np.outer(scale, scale)
     cells["scenario"] = scenarios
     return MissingJoint(quantity, cells, mean, (cov + cov.T) / 2.0)
+
+
+def _stage_joint_once(surrogate, stage, units, unit_keys, stage_cache):
+    """``stage_joint`` of the units, read from ``stage_cache`` when that stage was asked
+    for the same units before (the cache holds the stage itself, so its id stays its own)."""
+    if stage_cache is None:
+        return stage_joint(surrogate, stage, units)
+    key = (id(stage), tuple(unit_keys))
+    if key not in stage_cache:
+        stage_cache[key] = (stage, stage_joint(surrogate, stage, units))
+    return stage_cache[key][1]
 
 
 def _wanted_methods(surrogate, rows, quantity, methods):
@@ -215,7 +231,8 @@ def joint_groups(surrogate, grid, quantity, methods, known, max_cells=MAX_JOINT_
     return groups
 
 
-def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CELLS, progress=None):
+def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CELLS, progress=None,
+                   stage_cache=None):
     """Calibrated joints of the missing cells of each of ``quantities`` at ``methods``.
 
     Parameters
@@ -229,6 +246,9 @@ def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CEL
         Most missing cells in one joint (``joint_groups``).
     progress : object or None, default=None
         Told ``update(1)`` after each quantity (``progress.step``).
+    stage_cache : dict or None, default=None
+        Shared by calls for versions of one model (``missing_joint``); the caller
+        must not change a stage's learner while it holds the cache.
 
     Returns
     -------
@@ -241,7 +261,7 @@ def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CEL
     blocks = []
     for quantity in quantities:
         groups = joint_groups(surrogate, grid, quantity, methods, known, max_cells)
-        found = [missing_joint(surrogate, rows, quantity, methods, known) for rows in groups]
+        found = [missing_joint(surrogate, rows, quantity, methods, known, stage_cache) for rows in groups]
         found = [block for block in found if block is not None]
         for block in found:
             block.n_groups = len(found)

@@ -774,8 +774,10 @@ def pick_next(
     expect_steps(progress, (n_versions - 1) + n_versions * len(quantities) + count)
     versions = plausible_surrogates(surrogate, n_versions=n_versions, random_state=random_state, progress=progress)
     rules = []
+    # the versions share the stages they do not re-tune: each stage's joint is made once
+    stage_cache = {}
     for version in versions:
-        blocks = missing_joints(version, grid, methods, quantities, progress=progress)
+        blocks = missing_joints(version, grid, methods, quantities, progress=progress, stage_cache=stage_cache)
         if goal == "table":
             rules.append(_TableGoal(blocks))
         elif goal == "window":

@@ -762,3 +762,30 @@ def test_site_preference_counts_its_groups_first(demo):
     preference = site_preference(demo, progress=counter)
     groups = preference[["quantity", "host", "method"]].drop_duplicates()
     assert counter.told_before_work and counter.done == counter.total == len(groups) > 1
+
+
+def test_versions_share_the_joint_of_the_stages_they_share(demo, monkeypatch):
+    """A cache shared by the plausible versions gives each version the same joints as
+    without it, and computes a stage's joint once for the versions that share it."""
+    from dopantgap import joint as joint_module
+
+    versions = plausible_surrogates(demo, n_versions=3, random_state=0)
+    grid = cell_grid(demo, ["Hg"])
+    methods = list(demo.levels_)
+    alone = [missing_joints(version, grid, methods, ["E_sol"]) for version in versions]
+    calls = []
+    original = joint_module.stage_joint
+
+    def counting(surrogate, stage, cells):
+        calls.append(id(stage))
+        return original(surrogate, stage, cells)
+
+    monkeypatch.setattr(joint_module, "stage_joint", counting)
+    cache = {}
+    shared = [missing_joints(version, grid, methods, ["E_sol"], stage_cache=cache) for version in versions]
+    for left_blocks, right_blocks in zip(alone, shared):
+        for left, right in zip(left_blocks, right_blocks):
+            np.testing.assert_array_equal(left.mean, right.mean)
+            np.testing.assert_array_equal(left.cov, right.cov)
+    distinct = {id(version.stages_[key]) for version in versions for key in version.stages_ if key[0] == "E_sol"}
+    assert len(calls) == len(set(calls)) == len(distinct) < len(versions) * len(demo.quantity_levels_["E_sol"])
