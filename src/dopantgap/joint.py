@@ -4,6 +4,8 @@ What the picker ranks and the screen decides on: calibrated means and covariance
 cells not yet computed, with the chain between levels carried through.
 """
 
+from collections import Counter
+
 import numpy as np
 import pandas as pd
 
@@ -64,10 +66,10 @@ def cell_grid(surrogate, element_symbols=(), extra_columns=None):
 def missing_joint(surrogate, grid, quantity, methods, known, stage_cache=None):
     """Calibrated joint of the missing cells of ``quantity`` at ``methods``.
 
-    ``stage_cache`` (a dict, or None) keeps each stage's joint over the cells asked
-    for, keyed by the stage object: plausible versions of a model share the stages they
-    do not re-tune, and on a 10,000-cell model recomputing the cheap stage's covariance
-    for every version was half of ``next``.
+    ``stage_cache`` (``shared_stage_cache``, or None) keeps the joint over the cells
+    asked for of the stages that plausible versions of a model share (those they do not
+    re-tune): on a 10,000-cell model, recomputing the cheap stage's covariance for every
+    version was half of ``next``.
 
     Every level is written as a sum of independent stage processes: value(level k) at a
     cell is the user's number where computed, else stage_k + value(level k-1) for a
@@ -140,15 +142,24 @@ def missing_joint(surrogate, grid, quantity, methods, known, stage_cache=None):
     return MissingJoint(quantity, cells, mean, (cov + cov.T) / 2.0)
 
 
+def shared_stage_cache(versions):
+    """An empty ``stage_cache`` for the stages that more than one of ``versions`` (fitted
+    surrogates) hold: only those are kept, since a joint over thousands of cells is
+    hundreds of megabytes (id -> {units: joint}; the versions keep the stages alive)."""
+    held = Counter(id(stage) for version in versions for stage in version.stages_.values())
+    return {key: {} for key, count in held.items() if count > 1}
+
+
 def _stage_joint_once(surrogate, stage, units, unit_keys, stage_cache):
-    """``stage_joint`` of the units, read from ``stage_cache`` when that stage was asked
-    for the same units before (the cache holds the stage itself, so its id stays its own)."""
-    if stage_cache is None:
+    """``stage_joint`` of the units, read from ``stage_cache`` when the stage is one it
+    keeps and was asked for the same units before."""
+    kept = None if stage_cache is None else stage_cache.get(id(stage))
+    if kept is None:
         return stage_joint(surrogate, stage, units)
-    key = (id(stage), tuple(unit_keys))
-    if key not in stage_cache:
-        stage_cache[key] = (stage, stage_joint(surrogate, stage, units))
-    return stage_cache[key][1]
+    key = tuple(unit_keys)
+    if key not in kept:
+        kept[key] = stage_joint(surrogate, stage, units)
+    return kept[key]
 
 
 def _wanted_methods(surrogate, rows, quantity, methods):
@@ -247,8 +258,8 @@ def missing_joints(surrogate, grid, methods, quantities, max_cells=MAX_JOINT_CEL
     progress : object or None, default=None
         Told ``update(1)`` after each quantity (``progress.step``).
     stage_cache : dict or None, default=None
-        Shared by calls for versions of one model (``missing_joint``); the caller
-        must not change a stage's learner while it holds the cache.
+        ``shared_stage_cache(versions)``, passed to the calls for each of the versions
+        (``missing_joint``); no stage may change while it is in use.
 
     Returns
     -------

@@ -117,7 +117,7 @@ from dopantgap.gaussian import (
     summed_variance_reduction,
     window_probability,
 )
-from dopantgap.joint import MAX_JOINT_CELLS, cell_grid, missing_joints
+from dopantgap.joint import MAX_JOINT_CELLS, cell_grid, missing_joints, shared_stage_cache
 from dopantgap.sites import site_quantities
 from dopantgap.progress import expect_steps, step
 from dopantgap.surrogate.plausible import N_PLAUSIBLE, plausible_surrogates, uncertain_stages
@@ -775,7 +775,7 @@ def pick_next(
     versions = plausible_surrogates(surrogate, n_versions=n_versions, random_state=random_state, progress=progress)
     rules = []
     # the versions share the stages they do not re-tune: each stage's joint is made once
-    stage_cache = {}
+    stage_cache = shared_stage_cache(versions)
     for version in versions:
         blocks = missing_joints(version, grid, methods, quantities, progress=progress, stage_cache=stage_cache)
         if goal == "table":
