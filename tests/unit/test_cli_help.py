@@ -94,7 +94,7 @@ def test_no_campaign_in_any_help(capsys):
     assert "--rounds-dir" in pages["add"] and "--rounds-dir" in pages["report"]
 
 
-def test_block_rows_below_the_smallest_is_one_line(capsys):
+def test_block_rows_that_is_not_a_number_is_one_line(capsys):
     from dopantgap.cli import main
 
     with pytest.raises(SystemExit) as stop:
