@@ -58,7 +58,8 @@ For the error, also the floor (``oracle_floor``: each hidden cell predicted with
 other hidden cell known, the lowest error any picker could leave), and the share of
 random's excess error the picker removed, each strategy's excess read over the floor of
 the very cells it still hides (curve column ``floor_left``), so that revealing the
-hardest cells first is not mistaken for learning.
+hardest cells first is not mistaken for learning, with random's median excess, the
+distance between its quartile seeds' excesses and the share read against each of them.
 """
 
 import contextlib
@@ -106,7 +107,7 @@ CURVE_COLUMNS = (
 SUMMARY_COLUMNS = (
     "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
     "ratio", "picker_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "floor",
-    "share_removed", "note",
+    "share_removed", "random_excess", "random_excess_spread", "share_low", "share_high", "note",
 )
 RANDOM = "random"
 #: How a replay's model learns each round's new cells (``replay(relearn=...)``).
@@ -484,7 +485,10 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
         The error floor over all hidden cells (the mean of ``oracle_floor``), reported in
         the error row. The share of random's excess removed reads each strategy's excess
         over the floor of the cells it still hides (the curves' ``floor_left``): 1 -
-        picker's excess / median of random's excesses.
+        picker's excess / median of random's excesses. ``share_low`` and ``share_high``
+        read it against random's lower and upper quartile excesses (NaN where that excess
+        is not above zero), and ``random_excess_spread`` is the distance between them: a
+        share whose random reference spreads as much as its median excess measures luck.
 
     Returns
     -------
@@ -512,20 +516,29 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
         saved = 0.0
     else:
         saved = random_picks_spent - needed
-    share = math.nan
+    share = share_low = share_high = random_excess = random_spread = math.nan
     if metric == "error" and "floor_left" in curves and curves["floor_left"].notna().any():
         last = final["round"]
-        random_excess = float(np.median(
-            (randoms.loc[randoms["round"] == last, metric] - randoms.loc[randoms["round"] == last, "floor_left"])
-        ))
+        excesses = (
+            randoms.loc[randoms["round"] == last, metric] - randoms.loc[randoms["round"] == last, "floor_left"]
+        ).to_numpy(float)
+        low_excess, random_excess, high_excess = np.quantile(excesses, [0.25, 0.5, 0.75])
+        random_spread = float(high_excess - low_excess)
+        picker_excess = picker_final - float(final["floor_left"])
         if random_excess > 0:
-            share = 1.0 - (picker_final - float(final["floor_left"])) / random_excess
+            share = 1.0 - picker_excess / random_excess
+        # the same share read against random's quartile seeds: how much of it is random's own luck
+        if low_excess > 0:
+            share_low = 1.0 - picker_excess / low_excess
+        if high_excess > 0:
+            share_high = 1.0 - picker_excess / high_excess
     return {
         "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
         "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
         "picker_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
         "n_random_seeds": int(randoms["seed"].nunique()), "floor": floor if metric == "error" else math.nan,
-        "share_removed": share, "note": note,
+        "share_removed": share, "random_excess": float(random_excess), "random_excess_spread": random_spread,
+        "share_low": share_low, "share_high": share_high, "note": note,
     }
 
 
@@ -762,6 +775,24 @@ def _round_lines(result):
             over = f" (floor {left:.4f} eV over the cells it left hidden)" if not math.isnan(left) else ""
             lines.append(f"  {row.goal}: share of random's excess error removed, each over the floor of the "
                          f"cells it still hides: {share}{over}")
+            lines += _share_spread_lines(row)
+    return lines
+
+
+def _share_spread_lines(row):
+    """How far random's own seeds move the share: it is read only where they move it little."""
+    if math.isnan(row.random_excess) or row.random_excess <= 0:
+        return []
+
+    def percent(value):
+        return "n/a" if math.isnan(value) else f"{value:.0%}"
+
+    lines = [f"    random's median excess {row.random_excess:.4f} eV, its seeds' quartiles "
+             f"{row.random_excess_spread:.4f} eV apart; against random's quartile seeds the share is "
+             f"{percent(row.share_low)} to {percent(row.share_high)}"]
+    if row.random_excess_spread >= row.random_excess:
+        lines.append("    the share cannot be read here: random's seeds spread as much as their excess over the "
+                     "floor (random nearly reached the floor)")
     return lines
 
 

@@ -168,11 +168,38 @@ def test_savings_give_the_share_of_randoms_excess_removed_over_the_same_cells():
     # random's excesses over the floors of the cells they left: 0.6 - 0.2 and 0.7 - 0.1, median 0.5;
     # the picker's 0.5 - 0.2 = 0.3: 1 - 0.3 / 0.5 removed (by hand)
     assert math.isclose(error["share_removed"], 0.4) and error["floor"] == 0.2
+    # random's quartile excesses by linear interpolation between its two seeds (Hyndman & Fan,
+    # "Sample quantiles in statistical packages", 1996, definition 7): 0.45 and 0.55
+    assert math.isclose(error["random_excess"], 0.5) and math.isclose(error["random_excess_spread"], 0.1)
+    assert math.isclose(error["share_low"], 1 - 0.3 / 0.45) and math.isclose(error["share_high"], 1 - 0.3 / 0.55)
     assert math.isnan(savings(curves, "table", "decided", floor=0.2)["share_removed"])
     # a picker that only left the easy cells behind is not credited for it
     easy = curves.copy()
     easy.loc[(easy["strategy"] == "table") & (easy["round"] == 2), "floor_left"] = 0.0
     assert math.isclose(savings(easy, "table", "error", floor=0.2)["share_removed"], 0.0, abs_tol=1e-12)
+
+
+def test_the_share_is_flagged_unreadable_where_randoms_seeds_spread_as_much_as_its_excess(result):
+    def rows(strategy, seed, final):
+        return [{"strategy": strategy, "seed": seed, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0,
+                 "floor_left": 0.2} for r, e in enumerate([1.0, final])]
+
+    def text_for(random_finals):
+        curves = pd.DataFrame(
+            [row for seed, final in enumerate(random_finals) for row in rows("random", seed, final)]
+            + rows("table", 0, 0.25)
+        )
+        summary = pd.DataFrame([savings(curves, "table", "error", floor=0.2)], columns=list(SUMMARY_COLUMNS))
+        return replay_text(result.__class__(curves=curves, summary=summary, picks=result.picks,
+                                            hidden=result.hidden, settings=result.settings))
+
+    # random 0.01-0.09 eV above the floor: quartiles 0.04 apart, median excess 0.05
+    lucky = text_for([0.21, 0.23, 0.25, 0.27, 0.29])
+    assert "share of random's excess error removed" in lucky and "cannot be read" not in lucky
+    assert "against random's quartile seeds the share is -67% to 29%" in lucky
+    # random 0.01-0.29 eV above the floor, median 0.05: its seeds spread more than its excess
+    unreadable = text_for([0.21, 0.24, 0.25, 0.45, 0.49])
+    assert "cannot be read" in unreadable
 
 
 def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):
