@@ -451,6 +451,38 @@ def test_gp_descriptor_selection_switches_off_what_does_not_help_unseen_groups()
     assert settled.kernel_.theta == pytest.approx(settled.ard_kernel_.theta)
 
 
+
+def test_gp_random_restarts_keep_the_likeliest_optimum_and_leave_pinned_descriptors_at_their_bound():
+    """The marginal likelihood can have several optima (Rasmussen & Williams 2006, section
+    5.4.1, figure 5.5): from the stuck start of the test above with few iterations, extra
+    random starts end at least as likely as the one start. The retune after the
+    descriptor choice starts only from the chosen kernel: a random start would move the
+    switched-off length scales off the bound that switches them off."""
+    rng = np.random.default_rng(0)
+    n_groups, n_descriptors = 20, 5
+    descriptors = rng.standard_normal((n_groups, n_descriptors))
+    X = np.array([[*descriptors[g], g, c] for g in range(n_groups) for c in range(4)])
+    y = np.sin(X[:, 0]) + 0.05 * rng.standard_normal(len(X))
+    layout = dict(label_columns=(n_descriptors,), ignored_columns=(n_descriptors + 1,), random_state=0)
+    kernel = GPLearner(**layout).fit(X, y).kernel_
+    theta = kernel.theta.copy()
+    descriptor_positions = slice(1, 1 + n_descriptors)
+    theta[descriptor_positions] = np.log([0.5, 0.7, 0.7, 0.7, 0.7])
+    stuck = kernel.clone_with_theta(theta)
+    one = GPLearner(initial_kernel=stuck, max_optimiser_iterations=3, **layout).fit(X, y)
+    several = GPLearner(initial_kernel=stuck, max_optimiser_iterations=3, n_restarts_optimizer=6, **layout).fit(X, y)
+    assert several.regressor_.log_marginal_likelihood_value_ >= one.regressor_.log_marginal_likelihood_value_ - 1e-9
+    # the retune with descriptors pinned at their bound (switched off), from a poor start
+    # that random starts would beat: the pinned length scales stay where they are
+    learner = GPLearner(max_optimiser_iterations=0, n_restarts_optimizer=6, **layout)
+    start = learner._build_kernel(X.shape[1])
+    switched_off = kernel.bounds[descriptor_positions, 1]
+    start = start.clone_with_theta(np.r_[start.theta[:1], switched_off, start.theta[1 + n_descriptors:]])
+    pinned = np.arange(2, 1 + n_descriptors)
+    retuned = learner._optimise(start, X, y, None, np.random.RandomState(1), pinned=pinned)
+    np.testing.assert_array_equal(retuned.kernel_.theta[pinned], start.theta[pinned])
+
+
 # ------------------------------------------------------------------ pair model (new hosts)
 
 

@@ -268,7 +268,8 @@ class GPLearner(RegressorMixin, BaseEstimator):
                 _bounded_lbfgs, max_iterations=int(self.max_optimiser_iterations), pinned=tuple(pinned)
             ),
             normalize_y=True,
-            n_restarts_optimizer=self.n_restarts_optimizer,
+            # a random start would move the pinned hyperparameters off their bound
+            n_restarts_optimizer=0 if len(pinned) else self.n_restarts_optimizer,
             random_state=rng,
         )
         if rows is None:
