@@ -152,10 +152,7 @@ def plausible_surrogates(surrogate, n_versions=N_PLAUSIBLE, random_state=0, prog
             size = max(_MIN_SUBSET_ELEMENTS, int(round(_SUBSET_SHARE * len(elements))))
             subset = cells["element"].isin(rng.choice(elements, size=size, replace=False)).to_numpy()
             prefix = _process_prefix(form)
-            # a version re-tunes near the stage's own search (or its default start): random
-            # starts would make it another model, not a plausible reading of this one
-            settings = {prefix + "fixed_kernel": None, prefix + "selection_group_column": None,
-                        prefix + "n_restarts_optimizer": 0}
+            settings = {prefix + "fixed_kernel": None, prefix + "selection_group_column": None}
             if warm is not None:
                 settings[prefix + "initial_kernel"] = warm
                 settings[prefix + "max_optimiser_iterations"] = _RETUNE_ITERATIONS

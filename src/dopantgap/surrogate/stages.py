@@ -37,13 +37,6 @@ _MIN_ELEMENTS_FOR_RESIDUAL = 3
 # demo table, no benchmark script: 30 left the out-of-fold errors within 1 % of 80).
 _OPTIMISER_ITERATIONS = 80
 _FOLD_OPTIMISER_ITERATIONS = 30
-#: A stage of at most this many rows whose hyperparameters are searched from the default
-#: start also tries this many random starts and keeps the likeliest
-#: optimum. On a few dozen rows the likelihood has several optima and one start can miss
-#: the likeliest (measured on a replay's binding-energy correction, DEVELOPERS.md); on
-#: so few rows the starts cost little.
-SMALL_STAGE_ROWS = 150
-SMALL_STAGE_RESTARTS = 4
 # A refreshed model (recorded rounds, replay) re-optimises a stage's hyperparameters once
 # it has this many times the rows they were optimised on (common practice, no source:
 # hyperparameters fitted on a handful of elements go stale as the stage grows; measured
@@ -264,11 +257,6 @@ def new_learner(surrogate, name, encoder, n_rows, template, mode="fresh", kind="
             initial_kernel=initial,
             selection_group_column=element_label,
             max_optimiser_iterations=iterations,
-            # a search from the default start may need them; a fold starts from the
-            # full fit's optimum, which they already found
-            n_restarts_optimizer=(
-                SMALL_STAGE_RESTARTS if fixed is None and initial is None and n_rows <= SMALL_STAGE_ROWS else 0
-            ),
             random_state=learner_seed(surrogate._seed()),
             smooth_columns=tuple(
                 encoder.physical_names_.index(name) for name in getattr(encoder, "host_names_", ())
