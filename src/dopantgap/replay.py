@@ -522,7 +522,9 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
         excesses = (
             randoms.loc[randoms["round"] == last, metric] - randoms.loc[randoms["round"] == last, "floor_left"]
         ).to_numpy(float)
-        low_excess, random_excess, high_excess = np.quantile(excesses, [0.25, 0.5, 0.75])
+        low_excess, random_excess, high_excess = (
+            np.quantile(excesses, [0.25, 0.5, 0.75]) if len(excesses) else (math.nan,) * 3
+        )
         random_spread = float(high_excess - low_excess)
         picker_excess = picker_final - float(final["floor_left"])
         if random_excess > 0:
