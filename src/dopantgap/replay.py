@@ -789,9 +789,13 @@ def _share_spread_lines(row):
     def percent(value):
         return "n/a" if math.isnan(value) else f"{value:.0%}"
 
+    # a picker below the floor of the cells it left gains more against the nearer seed
+    shares = [share for share in (row.share_low, row.share_high) if not math.isnan(share)]
+    reading = f"{percent(min(shares))} to {percent(max(shares))}"
+    if len(shares) < 2:
+        reading = f"{percent(row.share_high)} (its lower quartile seed reached the floor)"
     lines = [f"    random's median excess {row.random_excess:.4f} eV, its seeds' quartiles "
-             f"{row.random_excess_spread:.4f} eV apart; against random's quartile seeds the share is "
-             f"{percent(row.share_low)} to {percent(row.share_high)}"]
+             f"{row.random_excess_spread:.4f} eV apart; against random's quartile seeds the share is {reading}"]
     if row.random_excess_spread >= row.random_excess:
         lines.append("    the share cannot be read here: random's seeds spread as much as their excess over the "
                      "floor (random nearly reached the floor)")

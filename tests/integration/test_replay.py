@@ -184,10 +184,10 @@ def test_the_share_is_flagged_unreadable_where_randoms_seeds_spread_as_much_as_i
         return [{"strategy": strategy, "seed": seed, "round": r, "n_revealed": 10 * r, "error": e, "decided": 0,
                  "floor_left": 0.2} for r, e in enumerate([1.0, final])]
 
-    def text_for(random_finals):
+    def text_for(random_finals, picker_final=0.25):
         curves = pd.DataFrame(
             [row for seed, final in enumerate(random_finals) for row in rows("random", seed, final)]
-            + rows("table", 0, 0.25)
+            + rows("table", 0, picker_final)
         )
         summary = pd.DataFrame([savings(curves, "table", "error", floor=0.2)], columns=list(SUMMARY_COLUMNS))
         return replay_text(result.__class__(curves=curves, summary=summary, picks=result.picks,
@@ -200,6 +200,10 @@ def test_the_share_is_flagged_unreadable_where_randoms_seeds_spread_as_much_as_i
     # random 0.01-0.29 eV above the floor, median 0.05: its seeds spread more than its excess
     unreadable = text_for([0.21, 0.24, 0.25, 0.45, 0.49])
     assert "cannot be read" in unreadable
+    # a picker 0.05 below the floor gains more against the nearer seed: 1 + 0.05 / 0.03 and
+    # 1 + 0.05 / 0.07, shown lowest first
+    below = text_for([0.21, 0.23, 0.25, 0.27, 0.29], picker_final=0.15)
+    assert "the share is 171% to 267%" in below
 
 
 def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):
