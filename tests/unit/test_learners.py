@@ -454,10 +454,11 @@ def test_gp_descriptor_selection_switches_off_what_does_not_help_unseen_groups()
 
 def test_gp_random_restarts_keep_the_likeliest_optimum_and_leave_pinned_descriptors_at_their_bound():
     """The marginal likelihood can have several optima (Rasmussen & Williams 2006, section
-    5.4.1, figure 5.5): from the stuck start of the test above with few iterations, extra
-    random starts end at least as likely as the one start. The retune after the
-    descriptor choice starts only from the chosen kernel: a random start would move the
-    switched-off length scales off the bound that switches them off."""
+    5.4.1, figure 5.5; section and figure from memory): from the stuck start of the test
+    above with few iterations, extra random starts end at least as likely as the one
+    start. The retune after the descriptor choice starts only from the chosen kernel: a
+    random start would move the switched-off length scales off the bound that switches
+    them off."""
     rng = np.random.default_rng(0)
     n_groups, n_descriptors = 20, 5
     descriptors = rng.standard_normal((n_groups, n_descriptors))
