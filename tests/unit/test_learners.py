@@ -415,24 +415,34 @@ def test_gp_warm_start_starts_from_the_given_kernel_and_checks_its_size():
         GPLearner(initial_kernel=other).fit(X, y)
 
 
+N_STUCK_DESCRIPTORS = 5
+
+
+def _stuck_search():
+    """Groups whose target follows the first of five descriptors, and a kernel stuck where
+    the four noise descriptors look relevant: (rng, X, y, layout, fitted kernel, stuck)."""
+    rng = np.random.default_rng(0)
+    n_groups, n_descriptors = 20, N_STUCK_DESCRIPTORS
+    descriptors = rng.standard_normal((n_groups, n_descriptors))
+    X = np.array([[*descriptors[g], g, c] for g in range(n_groups) for c in range(4)])
+    y = np.sin(X[:, 0]) + 0.05 * rng.standard_normal(len(X))
+    layout = dict(label_columns=(n_descriptors,), ignored_columns=(n_descriptors + 1,), random_state=0)
+    kernel = GPLearner(**layout).fit(X, y).kernel_
+    assert kernel.hyperparameters[1].name.endswith("length_scale")  # after the amplitude
+    theta = kernel.theta.copy()
+    theta[1:1 + n_descriptors] = np.log([0.5, 0.7, 0.7, 0.7, 0.7])
+    return rng, X, y, layout, kernel, kernel.clone_with_theta(theta)
+
+
 def test_gp_descriptor_selection_switches_off_what_does_not_help_unseen_groups():
     """A search stuck where four noise descriptors look relevant (short length scales,
     no iterations to escape): grouped-CV selection keeps the one descriptor that drives
     the target, pins the noise at its bound, and predicts unseen groups far better than
     the same kernel without selection. Where keeping every descriptor does as well,
     nothing is switched off."""
-    rng = np.random.default_rng(0)
-    n_groups, n_descriptors = 20, 5
-    descriptors = rng.standard_normal((n_groups, n_descriptors))
-    X = np.array([[*descriptors[g], g, c] for g in range(n_groups) for c in range(4)])
-    y = np.sin(X[:, 0]) + 0.05 * rng.standard_normal(len(X))
-    layout = dict(label_columns=(n_descriptors,), ignored_columns=(n_descriptors + 1,), random_state=0)
-    kernel = GPLearner(**layout).fit(X, y).kernel_
-    theta = kernel.theta.copy()
+    rng, X, y, layout, kernel, stuck = _stuck_search()
+    n_descriptors = N_STUCK_DESCRIPTORS
     descriptor_positions = slice(1, 1 + n_descriptors)  # after the amplitude
-    assert kernel.hyperparameters[1].name.endswith("length_scale")
-    theta[descriptor_positions] = np.log([0.5, 0.7, 0.7, 0.7, 0.7])
-    stuck = kernel.clone_with_theta(theta)
     chosen = GPLearner(selection_group_column=n_descriptors, initial_kernel=stuck,
                        max_optimiser_iterations=0, **layout).fit(X, y)
     unselected = GPLearner(initial_kernel=stuck, max_optimiser_iterations=0, **layout).fit(X, y)
@@ -459,17 +469,9 @@ def test_gp_random_restarts_keep_the_likeliest_optimum_and_leave_pinned_descript
     start. The retune after the descriptor choice starts only from the chosen kernel: a
     random start would move the switched-off length scales off the bound that switches
     them off."""
-    rng = np.random.default_rng(0)
-    n_groups, n_descriptors = 20, 5
-    descriptors = rng.standard_normal((n_groups, n_descriptors))
-    X = np.array([[*descriptors[g], g, c] for g in range(n_groups) for c in range(4)])
-    y = np.sin(X[:, 0]) + 0.05 * rng.standard_normal(len(X))
-    layout = dict(label_columns=(n_descriptors,), ignored_columns=(n_descriptors + 1,), random_state=0)
-    kernel = GPLearner(**layout).fit(X, y).kernel_
-    theta = kernel.theta.copy()
-    descriptor_positions = slice(1, 1 + n_descriptors)
-    theta[descriptor_positions] = np.log([0.5, 0.7, 0.7, 0.7, 0.7])
-    stuck = kernel.clone_with_theta(theta)
+    rng, X, y, layout, kernel, stuck = _stuck_search()
+    n_descriptors = N_STUCK_DESCRIPTORS
+    descriptor_positions = slice(1, 1 + n_descriptors)  # after the amplitude
     one = GPLearner(initial_kernel=stuck, max_optimiser_iterations=3, **layout).fit(X, y)
     several = GPLearner(initial_kernel=stuck, max_optimiser_iterations=3, n_restarts_optimizer=6, **layout).fit(X, y)
     assert several.regressor_.log_marginal_likelihood_value_ >= one.regressor_.log_marginal_likelihood_value_ - 1e-9
