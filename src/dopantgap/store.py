@@ -39,6 +39,7 @@ from dopantgap import __version__, elements
 from dopantgap.atomic import write_folder_atomic
 from dopantgap.errors import DopantgapError, ModelFolderError, ModelVersionWarning
 from dopantgap.table import table_hash
+from dopantgap.surrogate.stages import correction_forms
 
 __all__ = [
     "DESCRIPTORS_FILE_NAME",
@@ -267,6 +268,7 @@ def save_model(surrogate, folder, source=None, validation=None):
         "learner": surrogate.learner_,
         "levels": list(surrogate.levels_),
         "correction": bool(surrogate.correction),
+        "correction_forms": correction_forms(surrogate),
         "descriptors": [
             {"name": name, "unit": descriptors[name].unit, "source": descriptors[name].source}
             for name in surrogate.descriptors_

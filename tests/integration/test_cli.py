@@ -8,6 +8,8 @@ import pandas as pd
 import pytest
 
 from dopantgap.cli import main
+from dopantgap.store import load_model
+from dopantgap.surrogate.stages import correction_forms_text
 from dopantgap.world import invent_world, observe
 
 pytestmark = pytest.mark.slow
@@ -52,6 +54,22 @@ def test_fit_writes_manifest_with_metrics(workspace):
     assert {row["model"] for row in validation if row["chosen"]} == {"gp"}
     assert any("baseline" in row["model"] for row in validation)
     assert all(0.0 <= row["coverage"] <= 1.0 for row in validation)
+
+
+def test_fit_says_what_each_correction_leans_on(workspace):
+    """The manifest and the fit's summary name, per correction between levels, the form
+    the fitted stage uses: the learner, or the column shifts alone."""
+    rows = json.loads((workspace["model"] / "manifest.json").read_text())["correction_forms"]
+    assert {(row["quantity"], row["cheap"], row["expensive"]) for row in rows} == {
+        ("E_sol", "gga", "hyb"), ("E_bind", "gga", "hyb")
+    }
+    surrogate, _manifest = load_model(workspace["model"])
+    text = correction_forms_text(surrogate)
+    for row in rows:
+        stage = surrogate.stages_[(row["quantity"], row["expensive"])]
+        assert row["form"] == ("column shifts" if stage.learner.residual_learner_ is None else "learner")
+        words = "the column shifts alone" if row["form"] == "column shifts" else "the gp learner on top"
+        assert f"{row['quantity']} gga -> hyb: {words}" in text
 
 
 def test_fill_outputs(workspace, capsys):

@@ -134,6 +134,7 @@ def _learner_bar(arguments):
 
 def _command_fit(arguments, say):
     from dopantgap.store import check_model_target, save_model
+    from dopantgap.surrogate.stages import correction_forms_text
     from dopantgap.validate import validation_metrics, validation_text
 
     # before any work: the folder is replaced whole at the end, never an input with it
@@ -150,6 +151,9 @@ def _command_fit(arguments, say):
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
     say(f"Learner kept: {surrogate.learner_} (lowest cross-validated error, whole elements held out)")
+    corrections = correction_forms_text(surrogate)
+    if corrections:
+        say(corrections)
     if surrogate.new_host_ready():
         from dopantgap.surrogate.stages import NEW_HOST_FORM_WORDS, new_host_form
 

@@ -184,6 +184,50 @@ def _tuned_rows(stage):
     return len(regressor.X_train_) if regressor is not None else 0
 
 
+def correction_forms(surrogate):
+    """What each correction between levels leans on, as the fitted stages do it.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        A fitted model.
+
+    Returns
+    -------
+    list of dict
+        Per correction stage, in the model's order of stages: ``quantity``, ``cheap`` and
+        ``expensive`` (the two levels) and ``form``: "learner" (the pooled shift plus
+        the learner) or "column shifts" (the shifts alone, because the upgrade loop
+        found the learner no help or too few elements were computed at both levels).
+    """
+    found = []
+    for (quantity, method), stage in surrogate.stages_.items():
+        learner = stage.learner
+        if stage.kind != "correction" or not isinstance(learner, ShiftPriorLearner):
+            continue
+        levels = surrogate.quantity_levels_[quantity]
+        found.append({
+            "quantity": quantity, "cheap": levels[levels.index(method) - 1], "expensive": method,
+            "form": "column shifts" if learner.residual_learner_ is None else "learner",
+        })
+    return found
+
+
+def correction_forms_text(surrogate):
+    """One line per correction between levels saying what it leans on, or "" (none)."""
+    words = {
+        "learner": f"the {surrogate.learner_} learner on top of the pooled shift",
+        "column shifts": "the column shifts alone",
+    }
+    lines = [
+        f"  {row['quantity']} {row['cheap']} -> {row['expensive']}: {words[row['form']]}"
+        for row in correction_forms(surrogate)
+    ]
+    if not lines:
+        return ""
+    return "Corrections between levels (chosen on elements held out at the costlier level):\n" + "\n".join(lines)
+
+
 def stage_rows(surrogate, core, quantity, position):
     """Training cells and target of a stage, and whether it is a correction."""
     methods = surrogate.quantity_levels_[quantity]
