@@ -89,7 +89,7 @@ def main():
     print(f"boosted trees fitted on the invented demo table in {fit_time:.0f} s")
     names = _site_group(boosted)
     fast = _timed(lambda: explain_model(boosted, targets=names))
-    with mock.patch.object(explanation_module, "_tree_ensembles", lambda function, n_features: None):
+    with mock.patch.object(explanation_module, "_tree_ensembles", lambda function, n_features, evaluated=None: None):
         public = _timed(lambda: explain_model(boosted, targets=names))
     _compare(f"boosted trees ({len(names)} site-choice targets)", fast, public)
 

@@ -207,7 +207,7 @@ def explain_model(surrogate, element_symbols=None, targets=None, random_state=0,
 
     function = _TargetFunction(surrogate, target_table, features)
     function.check(background)
-    ensembles = _tree_ensembles(function, len(features))
+    ensembles = _tree_ensembles(function, len(features), evaluated=descriptors)
     if ensembles is None:
         values, base_values = shapley_values(function, descriptors, background, random_state, progress)
         method = "exact enumeration" if len(features) <= _MAX_EXACT_FEATURES else "sampled orderings"

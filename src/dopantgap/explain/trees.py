@@ -9,7 +9,50 @@ from dopantgap.learners import BoostLearner, ColumnMeanLearner, ShiftPriorLearne
 __all__ = ["tree_shapley_values"]
 
 
-def _descriptor_tree(predictor, encoding, tree_columns, weight):
+def _float32_at_least(value):
+    """The smallest float32 number not below ``value``, as a float."""
+    found = np.float32(value)
+    if float(found) < value:
+        found = np.nextafter(found, np.float32(np.inf))
+    return float(found)
+
+
+def _float32_below(value):
+    """The largest float32 number strictly below ``value``, as a float."""
+    found = np.float32(value)
+    if float(found) >= value:
+        found = np.nextafter(found, np.float32(-np.inf))
+    return float(found)
+
+
+def _descriptor_cut(threshold, slope, intercept, values):
+    """The descriptor cut c that sends ``values`` the way the model sends them.
+
+    The model sends a descriptor value v to the lower side when ``v * slope +
+    intercept <= threshold`` goes that way, computed as the encoder computes it. The
+    cut is a float32 number: shap's interventional code compares in single precision,
+    and a cut within rounding of a value (an element sitting on a split: 144 pm against
+    143.99999999999997) went the other way there, so the SHAP values of that element
+    no longer summed to its prediction. ``c`` separates ``values`` identically in
+    double and single precision; None where no float32 number does (or no values).
+    """
+    if values is None or len(values) == 0:
+        return None
+    model_left = values * slope + intercept <= threshold
+    lower = values[model_left] if slope > 0 else values[~model_left]
+    upper = values[~model_left] if slope > 0 else values[model_left]
+    if len(lower) and len(upper) and lower.max() >= upper.min():
+        return None  # not monotone in the values (rounding at a tie between two values)
+    if len(upper) == 0:
+        return _float32_at_least(max(lower.max(), float(np.float32(lower.max()))))
+    ceiling = min(upper.min(), float(np.float32(upper.min())))
+    if len(lower) == 0:
+        return _float32_below(ceiling)
+    cut = _float32_at_least(max(lower.max(), float(np.float32(lower.max()))))
+    return cut if cut < ceiling else None
+
+
+def _descriptor_tree(predictor, encoding, tree_columns, weight, known_values=None):
     """One histogram-gradient-boosting tree rewritten as a tree over the descriptors.
 
     The tree splits encoded inputs; for a fixed host/site column each encoded input
@@ -17,7 +60,10 @@ def _descriptor_tree(predictor, encoding, tree_columns, weight):
     ``input <= t`` is the split ``descriptor <= (t - intercept) / slope`` when the slope
     is positive and ``descriptor >= ...`` (children swapped) when it is negative;
     a split on a column indicator, constant for the column, is decided outright.
-    Returns shap's dictionary form of a tree, leaf values times ``weight``.
+    ``known_values`` (descriptor index -> the values the tree will be evaluated at)
+    places each cut so that those values go exactly where the model sends them
+    (``_descriptor_cut``). Returns shap's dictionary form of a tree, leaf values times
+    ``weight``.
     """
     nodes = predictor.nodes
     n_physical = len(encoding.index)
@@ -52,7 +98,12 @@ def _descriptor_tree(predictor, encoding, tree_columns, weight):
             # input <= t  <=>  descriptor >= cut: the lower side is the original right
             low, high = high, low
             cut = float(np.nextafter(cut, -np.inf))
-        out["feature"][position] = int(encoding.index[column])
+        descriptor = int(encoding.index[column])
+        placed = _descriptor_cut(
+            float(node["num_threshold"]), slope, intercept, (known_values or {}).get(descriptor)
+        )
+        cut = cut if placed is None else placed
+        out["feature"][position] = descriptor
         out["threshold"][position] = cut
         out["left"][position] = add(low)
         out["right"][position] = add(high)
@@ -71,13 +122,22 @@ def _descriptor_tree(predictor, encoding, tree_columns, weight):
     }
 
 
-def _tree_ensembles(function, n_features):
+def _tree_ensembles(function, n_features, evaluated=None):
     """Per target, the whole target as one sum of trees over the descriptors, or None.
 
     Possible when every stage of every target is boosted trees (or a column mean,
     constant for a column): the target's chain of stages and, for a site choice, the
-    difference of two columns are sums of trees with signed weights.
+    difference of two columns are sums of trees with signed weights. ``evaluated``
+    (rows of descriptors: the elements explained and the background) are the points
+    the trees must route exactly as the model does (``_descriptor_cut``).
     """
+    known_values = None
+    if evaluated is not None:
+        evaluated = np.asarray(evaluated, dtype=float)
+        known_values = {
+            column: np.unique(evaluated[np.isfinite(evaluated[:, column]), column])
+            for column in range(evaluated.shape[1])
+        }
     for _positions, evaluator in function.stages:
         if not isinstance(evaluator.learner, (BoostLearner, ColumnMeanLearner, ShiftPriorLearner)):
             return None
@@ -120,7 +180,7 @@ def _tree_ensembles(function, n_features):
             sign = float(row[position])
             offset += sign * offset_per_unit[position]
             trees += [
-                _descriptor_tree(predictor, encoding, columns, sign * share)
+                _descriptor_tree(predictor, encoding, columns, sign * share, known_values)
                 for predictor, encoding, columns, share in trees_per_unit[position]
             ]
         if not trees:
