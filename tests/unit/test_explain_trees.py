@@ -46,9 +46,10 @@ def test_a_cut_within_rounding_of_a_value_goes_the_other_way_in_shap():
 
 @pytest.mark.parametrize("slope, intercept", [(1.0, 0.0), (0.25, -36.0), (-0.25, 36.0)])
 def test_placed_cut_routes_an_element_on_the_split_as_the_model_does(slope, intercept):
-    """An element at 144 with the model's threshold a rounding error below its encoded
-    value: the model sends it up (encoded > threshold); the placed cut does too, in
-    shap and in double precision, and the other values stay on their sides."""
+    """An element at 144 sitting on the model's threshold (a rounding error below its
+    encoded value for a positive slope, equal to it for a negative one): the model sends
+    it to the upper side of the descriptor; the placed cut does too, in shap and in
+    double precision, and the other values stay on their sides."""
     values = np.array([140.0, 144.0, 148.0])
     encoded = values * slope + intercept
     threshold = float(np.nextafter(encoded[1], -np.inf)) if slope > 0 else float(encoded[1])
