@@ -317,6 +317,39 @@ class ElementDomain(BaseEstimator):
         far = self.distance(element_symbols, reference) > self.threshold_
         return far | self.new_block(element_symbols, reference)
 
+    def range_excess(self, element_symbols, reference=None):
+        """How far each element lies beyond the range of the training (or reference)
+        elements along its most extreme descriptor.
+
+        The distance averages over descriptors; this reads them one by one. An element
+        inside the reference elements' [min, max] on every descriptor gets 0; one that
+        lies beyond it on some descriptor gets the largest such overshoot, in the
+        training elements' standard deviations (a 4d metal against the 3d metals only:
+        its period alone, which no reference element varies).
+
+        Parameters
+        ----------
+        element_symbols : sequence of str
+            Symbols in any letter case; order and duplicates are kept.
+        reference : sequence of str or None, default=None
+            As in :meth:`distance`. An empty reference gives infinite values.
+
+        Returns
+        -------
+        numpy.ndarray of float
+            One non-negative value per symbol; 0 for a reference element.
+        """
+        check_is_fitted(self, "points_")
+        scaled = self._standardised(element_symbols)
+        if scaled.shape[0] == 0:
+            return np.empty(0, dtype=float)
+        points = self.points_ if reference is None else self._standardised(reference)
+        if points.shape[0] == 0:
+            return np.full(scaled.shape[0], np.inf)
+        below = points.min(axis=0) - scaled
+        above = scaled - points.max(axis=0)
+        return np.maximum(np.maximum(below, above).max(axis=1), 0.0)
+
     def new_block(self, element_symbols, reference=None):
         """Whether each element belongs to a block no training (or reference) element
         belongs to.
@@ -479,6 +512,21 @@ class LevelDomain(BaseEstimator):
             level (in the host); infinite for a level with no computed element.
         """
         return self._per_reference(cells, self.elements_.distance)
+
+    def range_excess(self, cells):
+        """Overshoot of each cell's element beyond the range of its level's (and host's)
+        elements, along its most extreme descriptor (:meth:`ElementDomain.range_excess`).
+
+        Parameters
+        ----------
+        cells : DataFrame
+            Columns element, host, method, quantity.
+
+        Returns
+        -------
+        numpy.ndarray of float
+        """
+        return self._per_reference(cells, self.elements_.range_excess)
 
     def outside(self, cells):
         """Whether each cell's element lies outside its level's domain (distance over the

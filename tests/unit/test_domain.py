@@ -355,3 +355,41 @@ def test_a_host_exactly_at_the_host_domain_limit_is_inside():
     domain = HostDomain().fit(known)
     new = pd.DataFrame({"host_x": [3.0, 3.0 + 1e-9, 3.1]}, index=pd.Index(["D", "E", "F"], name="host"))
     assert domain.outside(new).tolist() == [False, False, True]
+
+
+def test_range_excess_reads_the_most_extreme_descriptor_by_hand():
+    """A 4d metal against the 3d metals alone: along period (constant over the 3d metals)
+    Rh overshoots by one period, over the population std of the training elements'
+    periods; the distance, an average over descriptors, dilutes that. Periods from
+    mendeleev's bundled data (3d metals period 4, Rh period 5: the IUPAC periodic table)."""
+    three_d = ["Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn"]
+    training = three_d + ["Rh", "Y", "Ba", "Al"]
+    names = ("period", "covalent_radius")
+    table = descriptor_table(training)[list(names)].astype(float)
+    assert set(table.loc[three_d, "period"]) == {4.0} and table.at["Rh", "period"] == 5.0
+    std = table.to_numpy().std(axis=0)
+    reference = table.loc[three_d].to_numpy()
+    rh = table.loc["Rh"].to_numpy()
+    by_hand = max(0.0, float(np.max(np.maximum(reference.min(axis=0) - rh, rh - reference.max(axis=0)) / std)))
+    domain = ElementDomain(descriptors=names).fit(training)
+    excess = domain.range_excess(["Rh", "Fe", "Zn"], reference=three_d)
+    np.testing.assert_allclose(excess, [by_hand, 0.0, 0.0], rtol=1e-12, atol=1e-15)
+    assert by_hand == pytest.approx(1.0 / std[0])  # the period is the extreme descriptor
+    # inside the range on every descriptor: 0, though not a reference element
+    assert domain.range_excess(["Mn"], reference=["Sc", "Zn"])[0] == 0.0
+    assert np.isinf(domain.range_excess(["Rh"], reference=[])[0])
+    assert domain.range_excess([], reference=three_d).shape == (0,)
+
+
+def test_level_domain_range_excess_is_the_element_domains_against_the_level():
+    from dopantgap.domain import LevelDomain
+
+    table = _level_table()
+    domain = LevelDomain().fit(table)
+    cells = table[["element", "host", "site", "quantity"]].drop_duplicates().reset_index(drop=True)
+    expensive = cells.assign(method="hyb")
+    reference = sorted(set(table.loc[table["method"] == "hyb", "element"]))
+    excess = dict(zip(expensive["element"], domain.range_excess(expensive)))
+    assert excess["Fe"] == 0.0
+    assert excess["F"] == pytest.approx(domain.elements_.range_excess(["F"], reference)[0]) and excess["F"] > 0
+    assert not domain.range_excess(cells.assign(method="gga")).any()

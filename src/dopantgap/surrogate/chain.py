@@ -121,7 +121,8 @@ def predict_raw(surrogate, stages, core, cells):
 def difficulty_features(level_domain, core, cells):
     """What makes a cell harder than usual, known before it is computed: its element's
     distance from the elements computed at its level (and host), also over the domain
-    threshold, and the element's computed cells of its quantity in ``core``."""
+    threshold, its overshoot beyond their range along its most extreme descriptor, and
+    the element's computed cells of its quantity in ``core``."""
     cells = cells.reset_index(drop=True)
     distance = level_domain.distance(cells) if len(cells) else np.zeros(0)
     threshold = level_domain.elements_.threshold_
@@ -134,7 +135,10 @@ def difficulty_features(level_domain, core, cells):
         [counts.get((element, quantity), 0) for element, quantity in zip(cells["element"], cells["quantity"])],
         dtype=float,
     )
-    return pd.DataFrame({"domain_distance": distance, "domain_ratio": ratio, "element_cells": element_cells})
+    excess = level_domain.range_excess(cells) if len(cells) else np.zeros(0)
+    return pd.DataFrame({
+        "domain_distance": distance, "domain_ratio": ratio, "element_cells": element_cells, "range_excess": excess,
+    })
 
 
 def calibrated_factors(surrogate, core, cells, scenarios, level=0.9, raw_std=None):

@@ -411,7 +411,7 @@ def _upgrade_outcome(plans, fold_results):
         return pd.DataFrame(), frozenset(shift_only)
     residuals = pd.concat(records, ignore_index=True)[
         list(REQUIRED_COLUMNS)
-        + ["mean", "raw_std", "scenario", "fold", "domain_distance", "domain_ratio", "element_cells"]
+        + ["mean", "raw_std", "scenario", "fold", "domain_distance", "domain_ratio", "element_cells", "range_excess"]
     ]
     residuals["error"] = residuals["value"] - residuals["mean"]
     residuals["z"] = residuals["error"] / np.maximum(residuals["raw_std"], 1e-9)
