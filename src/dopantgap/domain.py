@@ -57,7 +57,9 @@ differs from yttrium mainly in ``block_index`` and ``period``: by distance alone
 lanthanides only Nd is flagged against the invented demo elements without La, Ce and
 Gd (Eu sits 0.57 from Y, below a threshold of 0.62); rule 5 flags them all. The flag
 catches elements unlike every training element; it is no proof that an unflagged
-element is chemically familiar to the model.
+element is chemically familiar to the model. ``range_excess`` reads the descriptors one
+by one instead (how far an element lies beyond the reference elements' range along its
+most extreme one); the interval calibration widens cells by it, the flag does not use it.
 
 An element inside the domain is not a promise of an accurate estimate, and an
 element outside is not necessarily wrong; estimates do not replace calculation,
