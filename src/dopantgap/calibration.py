@@ -136,7 +136,8 @@ class DifficultyModel:
             # a level with no computed element at all (infinite ratio) says nothing of slopes
             target = np.log(scores[finite] + _LOG_FLOOR)
             centred = design[finite] - self.centre_
-            # bounded slopes on (ratio, -log cells, -log std), least squares on the centred system
+            # bounded slopes on (ratio, -log cells, -log std, overshoot), least squares on the
+            # centred system
             signed = centred * _SIGNS
             upper = np.array([np.inf, np.inf, 1.0, np.inf])
             # a feature constant over the fitting rows (no std given) carries no slope
@@ -192,7 +193,7 @@ class DifficultyModel:
             return np.maximum(beyond, 1.0)
         design[:, 0] = np.minimum(ratio, self.ratio_cap_)
         # an overshoot larger than any in fitting is taken at twice the largest seen
-        design[:, 3] = np.minimum(np.nan_to_num(design[:, 3], nan=0.0, posinf=np.inf), getattr(self, "excess_cap_", 0.0))
+        design[:, 3] = np.minimum(np.nan_to_num(design[:, 3], nan=0.0), getattr(self, "excess_cap_", 0.0))
         # models fitted before the std feature have two slopes, before the overshoot three
         n_slopes = len(self.slopes_)
         if n_slopes > 2:
