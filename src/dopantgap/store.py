@@ -276,6 +276,7 @@ def save_model(surrogate, folder, source=None, validation=None):
         "host_relative": list(elements.HOST_RELATIVE_NAMES),
         "hosts": _plain(surrogate.compositions_),
         "cross_validation": _plain(surrogate.cv_metrics_.to_dict(orient="records")),
+        "first_look": _first_look_records(surrogate),
         "calibration_borrowed": sorted(surrogate.calibration_.borrowed_),
     }
     if validation is not None:
@@ -283,6 +284,12 @@ def save_model(surrogate, folder, source=None, validation=None):
     contents[MANIFEST_NAME] = (json.dumps(manifest, indent=2, sort_keys=True) + "\n").encode("utf-8")
     write_folder_atomic(folder, contents)
     return manifest
+
+
+def _first_look_records(surrogate):
+    """The fit's first look (``Surrogate.first_look_``) as plain records, or None."""
+    record = getattr(surrogate, "first_look_", None)
+    return None if record is None else _plain(record.to_dict(orient="records"))
 
 
 def read_manifest(folder):

@@ -246,7 +246,8 @@ def validate(table, estimator=None, baselines=BASELINES, random_state=0, progres
     table : DataFrame
         Long table (``table.read_table``).
     estimator : Surrogate or None, default=None
-        Unfitted surrogate to clone and fit; None: ``Surrogate(random_state=random_state)``.
+        Unfitted surrogate to clone and fit (with ``first_look=False``: every learner
+        is scored in full); None: ``Surrogate(random_state=random_state)``.
     baselines : sequence of str, default=BASELINES
     random_state : None, int, RandomState or Generator, default=0
         Seed of the fit and the tree baseline (``reproducible.seed_integer``,
@@ -260,6 +261,9 @@ def validate(table, estimator=None, baselines=BASELINES, random_state=0, progres
     """
     random_state = seed_integer(random_state)
     estimator = Surrogate(random_state=random_state) if estimator is None else clone(estimator)
+    if "first_look" in estimator.get_params():
+        # scoring every learner is what validate is for: none is left out after a first look
+        estimator.set_params(first_look=False)
     surrogate = estimator.fit(table, progress=progress)
     metrics, predictions = validation_metrics(surrogate, baselines, random_state)
     result = ValidationResult(metrics=metrics, predictions=predictions, surrogate=surrogate)

@@ -134,6 +134,7 @@ def _learner_bar(arguments):
 
 def _command_fit(arguments, say):
     from dopantgap.store import check_model_target, save_model
+    from dopantgap.surrogate.crossval import first_look_text
     from dopantgap.surrogate.stages import correction_forms_text
     from dopantgap.validate import validation_metrics, validation_text
 
@@ -151,6 +152,9 @@ def _command_fit(arguments, say):
     elapsed = time.perf_counter() - started
     say(f"Levels, cheapest first: {' < '.join(surrogate.levels_)}")
     say(f"Learner kept: {surrogate.learner_} (lowest cross-validated error, whole elements held out)")
+    look = first_look_text(surrogate)
+    if look:
+        say(look)
     corrections = correction_forms_text(surrogate)
     if corrections:
         say(corrections)

@@ -39,6 +39,17 @@ MIN_HOSTS_FOR_NEW_HOST = 3
 # sparse-host fits follow at this offset.
 _HOST_FOLD_START = 100_000
 _SPARSE_FOLD_OFFSET = 50_000
+#: Tables with at least this many computed cells let ``learner="auto"`` leave out a
+#: learner after a first look on a sample (``first_look``); smaller tables fit every
+#: candidate in full, as the first look would cost a good part of what it saves
+#: (benchmarks/README.md, "Issue 17"). Common practice, no source.
+FIRST_LOOK_MIN_CELLS = 2000
+#: Most cells of the first look's sample.
+FIRST_LOOK_MAX_CELLS = 1500
+#: A candidate whose first-look error exceeds this many times the best one's is left
+#: out (common practice, no source; what it changed on benchmarks/bench_scale.py's
+#: tables: benchmarks/README.md, "Issue 17").
+FIRST_LOOK_MARGIN = 1.5
 #: Cells of a held-out host given back in the host loop's second fit (the issue's "a host
 #: with five calculations"; common practice, no source).
 SPARSE_HOST_CELLS = 5
@@ -109,6 +120,108 @@ def fit_candidates(surrogate, core, candidates, progress=None):
         residuals = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
         outcomes[name] = (stages[name], residuals, shift_only[name])
     return outcomes
+
+
+def first_look(surrogate, core, candidates, progress=None):
+    """Successive halving's first rung for ``learner="auto"`` on a large table: every
+    candidate cross-validated on a sample of whole elements, and the ones that lose by
+    more than ``FIRST_LOOK_MARGIN`` left out before the full cross-validation.
+
+    The sample is a seeded draw of whole elements holding about a third of the table's
+    cells (at most ``FIRST_LOOK_MAX_CELLS``); each candidate is fitted on it and scored
+    by its main folds (new-element and new-cell cells; the upgrade and host loops wait
+    for the full run). Successive halving (Jamieson & Talwalkar 2016, "Non-stochastic
+    best arm identification and hyperparameter optimization", AISTATS, Algorithm 1)
+    keeps the better half of the candidates after each rung; with two candidates that
+    would always drop one, so a candidate is dropped only when its error is more than
+    ``FIRST_LOOK_MARGIN`` times the best one's, a loss no full run was expected to undo.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+        Being fitted (its levels and seed set).
+    core : DataFrame
+        The table's required columns.
+    candidates : sequence of str
+        Learner names.
+    progress : object or None, default=None
+        Told after each fit.
+
+    Returns
+    -------
+    kept : tuple of str
+        The candidates still in the race, in their original order.
+    record : DataFrame
+        Per candidate: ``learner``, ``cells`` and ``elements`` of the sample, its
+        out-of-fold ``mae`` (eV) there, the ``margin`` applied and whether it was
+        ``kept``.
+    """
+    sample = _first_look_sample(core, surrogate._seed())
+    tasks = [delayed(_full_fit)(surrogate, sample, name, frozenset()) for name in candidates]
+    stages = dict(zip(candidates, _each(surrogate, tasks, progress)))
+    folds = [(fold, test) for fold, test in enumerate(surrogate._fold_masks(sample)) if test.any()]
+    keys, tasks = [], []
+    for name in candidates:
+        for fold, test in folds:
+            keys.append(name)
+            tasks.append(delayed(_fold_predictions)(surrogate, sample, name, stages[name], frozenset(), fold, test))
+    parts = {name: [] for name in candidates}
+    for name, result in zip(keys, _each(surrogate, tasks, progress)):
+        parts[name].append(result)
+    mae = {name: float(np.mean(np.abs(_main_outcome(parts[name])["error"]))) for name in candidates}
+    best = min(mae.values())
+    kept = tuple(name for name in candidates if mae[name] <= FIRST_LOOK_MARGIN * best)
+    record = pd.DataFrame(
+        {
+            "learner": list(candidates),
+            "cells": len(sample),
+            "elements": int(sample["element"].nunique()),
+            "mae": [mae[name] for name in candidates],
+            "margin": float(FIRST_LOOK_MARGIN),
+            "kept": [name in kept for name in candidates],
+        }
+    )
+    return kept, record
+
+
+def first_look_text(surrogate):
+    """One line on the first look of ``surrogate``'s fit ("" when there was none)."""
+    record = getattr(surrogate, "first_look_", None)
+    if record is None or len(record) == 0:
+        return ""
+    errors = ", ".join(f"{row.learner} {row.mae:.3f} eV" for row in record.itertuples())
+    line = (f"First look on {int(record['cells'].iloc[0]):,} cells of {int(record['elements'].iloc[0])} elements "
+            f"(mean absolute error out of fold): {errors}")
+    left_out = list(record.loc[~record["kept"], "learner"])
+    margin = float(record["margin"].iloc[0])
+    if not left_out:
+        return line + f"; every learner within {margin:g}x of the best, all cross-validated in full"
+    best = record.loc[record["mae"].idxmin(), "learner"]
+    return (line + f"; left out as more than {margin:g}x {best}'s error: {', '.join(left_out)} "
+            f"(--learner {left_out[0]} fits it anyway; validate scores every learner)")
+
+
+def first_look_fits(surrogate, core, candidates):
+    """How many fits ``first_look`` makes: per candidate, the sample's full fit and its
+    main folds."""
+    sample = _first_look_sample(core, surrogate._seed())
+    folds = sum(bool(test.any()) for test in surrogate._fold_masks(sample))
+    return len(candidates) * (1 + folds)
+
+
+def _first_look_sample(core, seed):
+    """Whole elements, in a seeded random order, until about a third of the table's
+    cells (at most ``FIRST_LOOK_MAX_CELLS``) are in; rows in the table's order."""
+    target = min(len(core) / 3.0, FIRST_LOOK_MAX_CELLS)
+    counts = core["element"].value_counts().sort_index()
+    order = np.random.default_rng([seed, 7]).permutation(len(counts))
+    chosen, total = [], 0
+    for position in order:
+        if total >= target:
+            break
+        chosen.append(counts.index[position])
+        total += int(counts.iloc[position])
+    return core[core["element"].isin(chosen)].reset_index(drop=True)
 
 
 def _full_fit(surrogate, core, name, shift_only):

@@ -178,6 +178,12 @@ class Surrogate(BaseEstimator):
         stage is conditioned in blocks of whole hosts, each host's cells predicted
         by its own block (``learners.blocks.BlockedGPR``). Memory grows as the square
         of this number; a larger value lets more hosts share what they teach.
+    first_look : bool, default=True
+        With ``learner="auto"`` and at least ``crossval.FIRST_LOOK_MIN_CELLS`` (2,000)
+        computed cells: cross-validate both learners on a sample of whole elements
+        first and leave out one whose error there is more than
+        ``crossval.FIRST_LOOK_MARGIN`` (1.5) times the other's (successive halving,
+        ``crossval.first_look``); False always runs both in full, as ``validate`` does.
 
     Attributes
     ----------
@@ -201,6 +207,11 @@ class Surrogate(BaseEstimator):
         With ``learner="auto"``: each fold's cells as predicted by the learner that the
         other folds would have chosen (column ``learner`` names it), so the error of
         choosing is judged out of fold too; None with one candidate.
+    first_look_ : DataFrame or None
+        The first look's record (``crossval.first_look``): per candidate the sample's
+        cells and elements, its out-of-fold MAE there and whether it was kept; None
+        when there was no first look. A learner left out has no residuals, metrics or
+        selection residuals.
     cv_metrics_ : DataFrame
         Per learner, scenario and quantity: n, mae, rmse, the out-of-fold coverage of
         the raw 90 % Gaussian interval (``coverage_raw``), and of the calibrated one
@@ -236,7 +247,9 @@ class Surrogate(BaseEstimator):
         site_kinds=None,
         n_jobs=2,
         max_block_rows=MAX_BLOCK_ROWS,
+        first_look=True,
     ):
+        self.first_look = first_look
         self.n_jobs = n_jobs
         self.max_block_rows = max_block_rows
         self.learner = learner
@@ -256,6 +269,8 @@ class Surrogate(BaseEstimator):
         state.setdefault("site_kinds", None)
         state.setdefault("n_jobs", 2)
         state.setdefault("max_block_rows", MAX_BLOCK_ROWS)
+        state.setdefault("first_look", True)
+        state.setdefault("first_look_", None)
         super().__setstate__(state)
 
     # ------------------------------------------------------------------ fitting
@@ -282,6 +297,8 @@ class Surrogate(BaseEstimator):
         _check_folds(self.n_folds)
         _check_jobs(self.n_jobs)
         _check_block_rows(self.max_block_rows)
+        if not isinstance(self.first_look, (bool, np.bool_)):
+            raise DopantgapError(f"first_look must be True or False, got {self.first_look!r}.")
         # the reader's checks, for a table built in memory as for one read from a file
         table = check_frame(table, suspect_values=self.suspect_values)
         missing = [column for column in REQUIRED_COLUMNS if column not in table.columns]
@@ -314,10 +331,18 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         candidates = LEARNERS if self.learner == "auto" else (self.learner,)
+        look = len(candidates) > 1 and self.first_look and len(core) >= crossval.FIRST_LOOK_MIN_CELLS
         # every candidate's fits handed to the workers together (crossval.fit_candidates)
         expect = getattr(progress, "expect", None)
         if callable(expect):
-            expect(sum(crossval.planned_fits(self, core, name) for name in candidates))
+            planned = sum(crossval.planned_fits(self, core, name) for name in candidates)
+            expect(planned + (crossval.first_look_fits(self, core, candidates) if look else 0))
+        self.first_look_ = None
+        if look:
+            candidates, self.first_look_ = crossval.first_look(self, core, candidates, progress)
+            if callable(expect):
+                expect(crossval.first_look_fits(self, core, LEARNERS)
+                       + sum(crossval.planned_fits(self, core, name) for name in candidates))
         outcomes = self._fit_candidates(core, candidates, progress)
         fitted = {name: outcomes[name][0] for name in candidates}
         residuals = {name: outcomes[name][1] for name in candidates}
@@ -396,6 +421,7 @@ class Surrogate(BaseEstimator):
         fresh.calibration_ = self.calibration_
         fresh.cv_residuals_ = self.cv_residuals_
         fresh.cv_metrics_ = self.cv_metrics_
+        fresh.first_look_ = getattr(self, "first_look_", None)
         fresh.cv_residuals_by_learner_ = getattr(self, "cv_residuals_by_learner_", {})
         fresh.domain_ = ElementDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(list(table["element"]))
         fresh.level_domain_ = LevelDomain(descriptors=self.descriptors_, descriptor_values=self.descriptor_values_).fit(core)
