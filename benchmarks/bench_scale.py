@@ -18,7 +18,10 @@ Each step runs as the command a user types (``dopantgap fit``, ``fill``, ``next
   summed, read from ``/proc`` every 0.2 s; Linux only);
 * after ``fill``: the MAE against the invented truth of the cells the table lacks
   (new-cell: cheap-level cells left out; upgrade: hyb cells of elements computed at gga
-  only) and the coverage of the 90 % intervals (share of true values inside lo..hi).
+  only) and the coverage of the 90 % intervals: the share of the world's noisy values
+  (what a calculation would return, which is what the intervals describe) inside
+  lo..hi, over all those cells and per kind. Read against the noise-free truth the
+  intervals look wider than they are (0.976 instead of 0.961 at 10,000 cells).
 
 With ``--dask-workers 1,2,4`` the fit is run again on a Dask ``LocalCluster`` of that
 many worker processes (one thread each; ``fit --scheduler``, needs ``pip install
@@ -169,19 +172,23 @@ def run_step(arguments, timeout):
 
 
 def accuracy(world, table, filled_path):
-    """New-cell and upgrade MAE against the truth, and the 90 % intervals' coverage."""
+    """New-cell and upgrade MAE against the truth, and the 90 % intervals' coverage of
+    the world's noisy values (all cells, new-cell, upgrade)."""
     filled = pd.read_csv(filled_path)
     filled = filled[filled["status"] != "computed"]
-    scored = filled.merge(world[KEYS + ["truth"]], on=KEYS)
+    scored = filled.merge(world[KEYS + ["truth", "value"]], on=KEYS, suffixes=("", "_world"))
     cheap_elements = set(table.loc[table["method"] == "gga", "element"])
     expensive_elements = set(table.loc[table["method"] == "hyb", "element"])
     upgrade = (scored["method"] == "hyb") & scored["element"].isin(cheap_elements - expensive_elements)
     new_cell = scored["method"] == "gga"
-    inside = (scored["truth"] >= scored["lo"]) & (scored["truth"] <= scored["hi"])
+    # the intervals describe a new calculation, noise included (as bench_honesty scores them)
+    inside = (scored["value_world"] >= scored["lo"]) & (scored["value_world"] <= scored["hi"])
     return {
         "new-cell MAE": float(np.mean(np.abs(scored.loc[new_cell, "value"] - scored.loc[new_cell, "truth"]))),
         "upgrade MAE": float(np.mean(np.abs(scored.loc[upgrade, "value"] - scored.loc[upgrade, "truth"]))),
         "coverage": float(inside.mean()),
+        "new-cell coverage": float(inside[new_cell].mean()),
+        "upgrade coverage": float(inside[upgrade].mean()),
         "cells scored": int(len(scored)),
     }
 
@@ -257,7 +264,8 @@ def main(argv=None):
                 scores = accuracy(world, table, here / "filled.csv")
                 row.update(scores)
                 print(f"        new-cell MAE {scores['new-cell MAE']:.3f} eV, upgrade MAE {scores['upgrade MAE']:.3f} eV, "
-                      f"coverage of 90 % intervals {scores['coverage']:.3f} ({scores['cells scored']} cells)")
+                      f"coverage of 90 % intervals {scores['coverage']:.3f} ({scores['cells scored']} cells; "
+                      f"new-cell {scores['new-cell coverage']:.3f}, upgrade {scores['upgrade coverage']:.3f})")
         if "fit" not in stopped:
             local_wall = float(row["fit"].split()[0])
             for n_workers in dask_workers:
