@@ -98,3 +98,12 @@ def test_first_look_must_be_a_boolean(table):
 
     with pytest.raises(DopantgapError, match="first_look must be True or False"):
         Surrogate(first_look="yes").fit(table)
+
+
+def test_few_elements_are_not_sampled(table, monkeypatch):
+    """A sample of a third of ten elements would leave folds of one element each."""
+    monkeypatch.setattr(crossval, "FIRST_LOOK_MIN_CELLS", 1)
+    few = table[table["element"].isin(sorted(table["element"].unique())[:10])]
+    model = Surrogate(learner="auto", n_jobs=1).fit(few)
+    assert model.first_look_ is None
+    assert set(model.cv_metrics_["learner"]) == {"gp", "boost"}

@@ -44,6 +44,9 @@ _SPARSE_FOLD_OFFSET = 50_000
 #: candidate in full, as the first look would cost a good part of what it saves
 #: (benchmarks/README.md, "Issue 17"). Common practice, no source.
 FIRST_LOOK_MIN_CELLS = 2000
+#: ... and at least this many elements, so that the sample's folds hold out several
+#: (common practice, no source).
+FIRST_LOOK_MIN_ELEMENTS = 15
 #: Most cells of the first look's sample.
 FIRST_LOOK_MAX_CELLS = 1500
 #: A candidate whose first-look error exceeds this many times the best one's is left

@@ -180,10 +180,11 @@ class Surrogate(BaseEstimator):
         of this number; a larger value lets more hosts share what they teach.
     first_look : bool, default=True
         With ``learner="auto"`` and at least ``crossval.FIRST_LOOK_MIN_CELLS`` (2,000)
-        computed cells: cross-validate both learners on a sample of whole elements
-        first and leave out one whose error there is more than
-        ``crossval.FIRST_LOOK_MARGIN`` (1.5) times the other's (successive halving,
-        ``crossval.first_look``); False always runs both in full, as ``validate`` does.
+        computed cells of 15 elements or more: cross-validate both learners on a
+        sample of whole elements first and leave out one whose error there is more
+        than ``crossval.FIRST_LOOK_MARGIN`` (1.5) times the other's (successive
+        halving, ``crossval.first_look``); False always runs both in full, as
+        ``validate`` does.
 
     Attributes
     ----------
@@ -331,7 +332,8 @@ class Surrogate(BaseEstimator):
         }
         core = table[list(REQUIRED_COLUMNS)].reset_index(drop=True)
         candidates = LEARNERS if self.learner == "auto" else (self.learner,)
-        look = len(candidates) > 1 and self.first_look and len(core) >= crossval.FIRST_LOOK_MIN_CELLS
+        look = (len(candidates) > 1 and self.first_look and len(core) >= crossval.FIRST_LOOK_MIN_CELLS
+                and core["element"].nunique() >= crossval.FIRST_LOOK_MIN_ELEMENTS)
         # every candidate's fits handed to the workers together (crossval.fit_candidates)
         expect = getattr(progress, "expect", None)
         if callable(expect):
