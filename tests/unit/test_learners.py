@@ -139,6 +139,31 @@ def test_same_seed_gives_identical_predictions_and_another_seed_does_not():
     np.testing.assert_array_equal(column_mean[0], column_mean[1])
 
 
+def test_gp_tunes_on_at_least_ten_rows_per_hyperparameter(monkeypatch):
+    """However small ``max_optimise_samples``, a kernel with many length scales is tuned
+    on 10 rows per hyperparameter (or every row); the conditioning sees every row."""
+    import dopantgap.learners.gaussian_process as gaussian_process
+
+    seen = []
+    real = gaussian_process._fit_quietly
+
+    def spy(regressor, X, y):
+        seen.append(len(X))
+        return real(regressor, X, y)
+
+    monkeypatch.setattr(gaussian_process, "_fit_quietly", spy)
+    X, y = _data(n_rows=300)
+    learner = GPLearner(label_columns=(2,), max_optimise_samples=30, random_state=0)
+    hyperparameters = learner._build_kernel(X.shape[1]).n_dims
+    learner.fit(X, y)
+    assert seen[0] == 10 * hyperparameters < 300
+    assert learner.regressor_.X_train_.shape[0] == 300
+    # a limit above the floor is kept as it is
+    seen.clear()
+    GPLearner(label_columns=(2,), max_optimise_samples=200, random_state=0).fit(X, y)
+    assert seen[0] == 200
+
+
 # ---------------------------------------------------------------------------
 # Kernels
 
