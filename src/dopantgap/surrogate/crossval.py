@@ -41,8 +41,9 @@ _HOST_FOLD_START = 100_000
 _SPARSE_FOLD_OFFSET = 50_000
 #: Tables with at least this many computed cells let ``learner="auto"`` leave out a
 #: learner after a first look on a sample (``first_look``); smaller tables fit every
-#: candidate in full, as the first look would cost a good part of what it saves
-#: (benchmarks/README.md, "Issue 17"). Common practice, no source.
+#: candidate in full: there the first look would cost much of what it saves (an
+#: expectation, not measured below 2,000 cells; at 3,050 cells it saved 19 % of the CPU,
+#: benchmarks/README.md, "Issue 17, fourth steps"). Common practice, no source.
 FIRST_LOOK_MIN_CELLS = 2000
 #: ... and at least this many elements, so that the sample's folds hold out several
 #: (common practice, no source).
