@@ -12,9 +12,10 @@ Printed, after the same number of ``hyb`` calculations:
 
 * ``table`` goal: MAE of the remaining hidden ``hyb`` cells, picker / random median
   per round (issue 16's target: at most 1.0 every round), and the share of random's
-  excess over the measured floor removed (target at least 75 %), with the reading
-  proposed to replace that target: the share counts only where random's median excess
-  over the floor is at least ``READABLE_EXCESS`` (0.02 eV), more than its seeds spread;
+  excess over the measured floor removed (target at least 75 %), with the range a
+  picker no better than random reads (``replay_text``); both targets read the median
+  over replay seeds: ``python benchmarks/replay_seeds.py DIR ...`` reads the ``--out``
+  folders of several seeds together;
 * ``site`` goal: decided site preferences (p_lowest > 0.9 and the completed table's
   lowest site), picker against random median (target: more);
 * the calculations saved versus random to reach the same figure, and timings.
@@ -59,12 +60,6 @@ from dopantgap.demo import demo_world
 from dopantgap.replay import FLOOR_GROUPS, replay, replay_text, write_replay
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import close_site_gaps, invent_second_world
-
-#: Random's median excess over the floor (eV) below which the share is not read: its
-#: quartile seeds ended up to 0.020 eV apart after 40 picks on the issue-16 replays
-#: (benchmarks/README), so a smaller excess measures random's luck more than the picker.
-READABLE_EXCESS = 0.02
-
 
 def noise_floor(world, hidden, against="truth"):
     """MAE of an oracle that knows the true correction hyb - gga but only the noisy gga
@@ -193,12 +188,12 @@ def main(argv=None):
               f"(target <= 1.0 every round): {'met' if max(ratios) <= 1.0 else 'NOT met'}")
         print(f"  share of random's excess over the measured floor removed: {share:.0%} (target >= 75 %): "
               f"{'met' if share >= 0.75 else 'NOT met'}")
-        excess = summary.at[("table", "error"), "random_excess"]
-        spread = summary.at[("table", "error"), "random_excess_spread"]
-        readable = excess >= READABLE_EXCESS
-        print(f"  proposed reading (issue 16's closing note): the share counts only where random's median "
-              f"excess is at least {READABLE_EXCESS} eV; here {excess:.4f} eV (its seeds' quartiles "
-              f"{spread:.4f} eV apart): {'read' if readable else 'not read, random is too near the floor'}")
+        low = summary.at[("table", "error"), "chance_share_low"]
+        high = summary.at[("table", "error"), "chance_share_high"]
+        if not (math.isnan(low) or math.isnan(high)):
+            beyond = "above" if share > high else "inside" if share >= low else "below"
+            print(f"  a picker no better than random reads {low:.0%} to {high:.0%} here; this seed's share is "
+                  f"{beyond} that range (over seeds: python benchmarks/replay_seeds.py with the --out folders)")
     if "site" in goals:
         site_picker = summary.at[("site", "decided"), "picker_final"]
         site_random = summary.at[("site", "decided"), "random_median_final"]

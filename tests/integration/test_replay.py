@@ -13,6 +13,7 @@ from dopantgap.errors import DopantgapError, SuspectValueWarning
 from dopantgap.replay import (
     CURVE_COLUMNS,
     SUMMARY_COLUMNS,
+    chance_shares,
     hide_cells,
     random_picks,
     replay,
@@ -173,6 +174,8 @@ def test_savings_give_the_share_of_randoms_excess_removed_over_the_same_cells():
     assert math.isclose(error["random_excess"], 0.5) and math.isclose(error["random_excess_spread"], 0.1)
     assert math.isclose(error["share_low"], 1 - 0.3 / 0.45) and math.isclose(error["share_high"], 1 - 0.3 / 0.55)
     assert math.isnan(savings(curves, "table", "decided", floor=0.2)["share_removed"])
+    # two random seeds: one other seed is no median, so no range of chance is given
+    assert math.isnan(error["chance_share_low"]) and math.isnan(error["chance_share_high"])
     # a picker that only left the easy cells behind is not credited for it
     easy = curves.copy()
     easy.loc[(easy["strategy"] == "table") & (easy["round"] == 2), "floor_left"] = 0.0
@@ -204,6 +207,24 @@ def test_the_share_is_flagged_unreadable_where_randoms_seeds_spread_as_much_as_i
     # 1 + 0.05 / 0.07, shown lowest first
     below = text_for([0.21, 0.23, 0.25, 0.27, 0.29], picker_final=0.15)
     assert "the share is 171% to 267%" in below
+    # random's seeds as pickers (excesses 0.01-0.09, by hand): 1 - 0.09 / 0.04 = -125 % up to
+    # 1 - 0.01 / 0.06 = 83 %; a share of 0 % lies inside, 200 % above, -200 % below
+    assert "a picker no better than random reads -125% to 83% here" in lucky
+    assert "inside it, so this replay cannot tell the picker from chance" in lucky
+    assert "lies above that range" in below
+    behind = text_for([0.21, 0.23, 0.25, 0.27, 0.29], picker_final=0.35)
+    assert "lies below it: random picks did better here" in behind
+
+
+def test_chance_shares_read_each_random_seed_against_the_others():
+    # by hand: excesses 0.01, 0.03, 0.05, 0.07, 0.09; the others' medians 0.06, 0.06, 0.05,
+    # 0.04, 0.04
+    shares = chance_shares([0.01, 0.03, 0.05, 0.07, 0.09])
+    np.testing.assert_allclose(shares, [1 - 0.01 / 0.06, 1 - 0.03 / 0.06, 0.0, 1 - 0.07 / 0.04, 1 - 0.09 / 0.04])
+    assert len(chance_shares([0.01, 0.02])) == 0
+    # others at the floor give no share rather than a division by zero
+    # (0.0 and 0.0 read against a median of 0.1; 0.1 and 0.3 against one of 0.0: dropped)
+    np.testing.assert_allclose(chance_shares([0.0, 0.0, 0.1, 0.3]), [1.0, 1.0])
 
 
 def test_the_floor_lies_below_every_strategys_error_and_is_printed(result):

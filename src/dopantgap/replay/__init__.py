@@ -19,6 +19,7 @@ from dopantgap.replay.scoring import (
     FLOOR_GROUPS,
     RANDOM,
     SUMMARY_COLUMNS,
+    chance_shares,
     oracle_floor,
     savings,
 )
@@ -31,6 +32,7 @@ __all__ = [
     "CURVE_COLUMNS",
     "SUMMARY_COLUMNS",
     "ReplayResult",
+    "chance_shares",
     "hide_cells",
     "oracle_floor",
     "random_picks",

@@ -42,12 +42,13 @@ from dopantgap.rounds import DECIDED_PROBABILITY
 from dopantgap.sites import site_preference, site_quantities
 from dopantgap.table import KEY_COLUMNS
 
-__all__ = ["FLOOR_GROUPS", "RANDOM", "SUMMARY_COLUMNS", "oracle_floor", "savings"]
+__all__ = ["FLOOR_GROUPS", "RANDOM", "SUMMARY_COLUMNS", "chance_shares", "oracle_floor", "savings"]
 
 SUMMARY_COLUMNS = (
     "goal", "method", "metric", "better", "picks", "picker_final", "random_median_final",
     "ratio", "picker_picks_to_match", "picks_saved", "cost_saved", "n_random_seeds", "floor",
-    "share_removed", "random_excess", "random_excess_spread", "share_low", "share_high", "note",
+    "share_removed", "random_excess", "random_excess_spread", "share_low", "share_high",
+    "chance_share_low", "chance_share_high", "note",
 )
 RANDOM = "random"
 #: Groups the oracle floor hides the hidden cells in, one relearned model each (common
@@ -226,6 +227,10 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
         read it against random's lower and upper quartile excesses (NaN where that excess
         is not above zero), and ``random_excess_spread`` is the distance between them: a
         share whose random reference spreads as much as its median excess measures luck.
+        ``chance_share_low`` and ``chance_share_high`` are the lowest and highest share a
+        picker no better than random reads: each random seed taken as the picker, against
+        the median excess of the other seeds (three seeds or more; NaN otherwise). A share
+        inside that range cannot tell the picker from chance.
 
     Returns
     -------
@@ -254,6 +259,7 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
     else:
         saved = random_picks_spent - needed
     share = share_low = share_high = random_excess = random_spread = math.nan
+    chance_low = chance_high = math.nan
     if metric == "error" and "floor_left" in curves and curves["floor_left"].notna().any():
         last = final["round"]
         excesses = (
@@ -271,11 +277,41 @@ def savings(curves, goal, metric, cost_per_cell=1.0, floor=math.nan):
             share_low = 1.0 - picker_excess / low_excess
         if high_excess > 0:
             share_high = 1.0 - picker_excess / high_excess
+        chance = chance_shares(excesses)
+        if len(chance):
+            chance_low, chance_high = float(chance.min()), float(chance.max())
     return {
         "goal": goal, "method": "", "metric": metric, "better": "higher" if higher else "lower",
         "picks": picks, "picker_final": picker_final, "random_median_final": random_final, "ratio": ratio,
         "picker_picks_to_match": needed, "picks_saved": saved, "cost_saved": saved * cost_per_cell,
         "n_random_seeds": int(randoms["seed"].nunique()), "floor": floor if metric == "error" else math.nan,
         "share_removed": share, "random_excess": float(random_excess), "random_excess_spread": random_spread,
-        "share_low": share_low, "share_high": share_high, "note": note,
+        "share_low": share_low, "share_high": share_high, "chance_share_low": chance_low,
+        "chance_share_high": chance_high, "note": note,
     }
+
+
+def chance_shares(excesses):
+    """The share of random's excess each random seed would be credited with as the picker.
+
+    Parameters
+    ----------
+    excesses : array-like of float
+        Each random seed's excess error over the floor of the cells it still hides (eV).
+
+    Returns
+    -------
+    ndarray
+        For each seed, 1 - its excess / the median excess of the other seeds: the shares a
+        picker no better than random reads by luck alone. Empty with fewer than three seeds
+        (one other seed is no median), NaN where the others' median excess is not above zero.
+    """
+    excesses = np.asarray(excesses, dtype=float)
+    if len(excesses) < 3:
+        return np.array([])
+    shares = np.full(len(excesses), np.nan)
+    for index, own in enumerate(excesses):
+        others = np.median(np.delete(excesses, index))
+        if others > 0:
+            shares[index] = 1.0 - own / others
+    return shares[~np.isnan(shares)]

@@ -102,6 +102,17 @@ def _share_spread_lines(row):
         reading = f"{percent(row.share_high)} (its lower quartile seed reached the floor)"
     lines = [f"    random's median excess {row.random_excess:.4f} eV, its seeds' quartiles "
              f"{row.random_excess_spread:.4f} eV apart; against random's quartile seeds the share is {reading}"]
+    chance_low = getattr(row, "chance_share_low", math.nan)
+    chance_high = getattr(row, "chance_share_high", math.nan)
+    if not (math.isnan(chance_low) or math.isnan(row.share_removed)):
+        if row.share_removed > chance_high:
+            verdict = "this picker's share lies above that range"
+        elif row.share_removed >= chance_low:
+            verdict = "this picker's share lies inside it, so this replay cannot tell the picker from chance"
+        else:
+            verdict = "this picker's share lies below it: random picks did better here"
+        lines.append(f"    a picker no better than random reads {percent(chance_low)} to {percent(chance_high)} here "
+                     f"(each random seed against the median of the others): {verdict}")
     if row.random_excess_spread >= row.random_excess:
         lines.append("    the share cannot be read here: random's seeds spread as much as their excess over the "
                      "floor (random nearly reached the floor)")
