@@ -279,6 +279,8 @@ def test_cli_replay_end_to_end(tmp_path, capsys):
     assert status == 0
     printed = capsys.readouterr().out
     assert "saved" in printed and "MAE eV" in printed
+    # a refreshed replay says it is a first look, and how to run the loop a user runs
+    assert "a first look only" in printed and "--relearn fit, the default" in printed
     assert sorted(p.name for p in out.iterdir()) == [
         "curves.csv", "hidden.csv", "learning_curves.png", "picks.csv", "settings.json", "summary.csv"
     ]

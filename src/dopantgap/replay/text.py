@@ -12,7 +12,9 @@ __all__ = ["replay_text", "write_replay"]
 
 
 _RELEARN_WORDS = {
-    "refresh": "the model refreshed after each round (hyperparameters kept until a stage outgrows them)",
+    "refresh": ("the model refreshed after each round (learner, correction form and hyperparameters kept "
+                "until a stage outgrows them): a first look only, since the full fits you run between rounds "
+                "(--relearn fit, the default) can change those and tell another story"),
     "fit": "the model fitted in full after each round",
 }
 
