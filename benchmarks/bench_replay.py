@@ -61,6 +61,7 @@ from dopantgap.replay import FLOOR_GROUPS, replay, replay_text, write_replay
 from dopantgap.surrogate import Surrogate
 from dopantgap.world import close_site_gaps, invent_second_world
 
+
 def noise_floor(world, hidden, against="truth"):
     """MAE of an oracle that knows the true correction hyb - gga but only the noisy gga
     value, against the hyb truth or the noisy hyb value: what no model of the visible

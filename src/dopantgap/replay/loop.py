@@ -89,7 +89,6 @@ def _whole(value, name, minimum):
     return int(value)
 
 
-
 class _Relearn:
     """Grown table -> relearned model, as ``replay(relearn=...)`` says: a full fit of a
     clone of ``estimator``, or ``base.refreshed``. A class, not a closure, so that it
@@ -210,7 +209,6 @@ def _run_strategy(strategy, seed, base, visible, hidden, rounds, per_round, meth
                        "cost_spent": n_revealed * cost_per_cell, **figures, "n_hidden_left": len(remaining)})
         step(progress)
     return curves, revealed
-
 
 
 def replay(table, goal="table", rounds=4, per_round=5, method=None, cost=None, n_random_seeds=5,

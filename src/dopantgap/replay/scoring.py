@@ -29,7 +29,9 @@ other hidden cell known, the lowest error any picker could leave), and the share
 random's excess error the picker removed, each strategy's excess read over the floor of
 the very cells it still hides (curve column ``floor_left``), so that revealing the
 hardest cells first is not mistaken for learning, with random's median excess, the
-distance between its quartile seeds' excesses and the share read against each of them.
+distance between its quartile seeds' excesses and the share read against each of them,
+and the range of shares random's own seeds read against the others (``chance_shares``:
+what a picker no better than random is credited with).
 """
 
 import math
@@ -125,7 +127,6 @@ class Scorer:
                         wrong += 1
         figures.update(decided=decided, decided_wrong=wrong, n_site_questions=len(self.truth))
         return figures
-
 
 
 def _crossing(n_picks, figures, target, higher_is_better):
