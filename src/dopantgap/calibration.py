@@ -24,7 +24,7 @@ import math
 
 import numpy as np
 from scipy.optimize import lsq_linear
-from scipy.stats import norm
+from scipy.stats import binomtest, norm
 
 __all__ = [
     "DIFFICULTY_FEATURES",
@@ -34,6 +34,7 @@ __all__ = [
     "cross_conformal_covered",
     "cross_conformal_widths",
     "fit_calibration",
+    "undercovered_scenarios",
 ]
 
 #: The scenarios a missing cell can be in, in the order they are reported.
@@ -415,3 +416,45 @@ def cross_conformal_widths(residuals, score_column="z", level=0.9, adaptive=True
             half_width[position] = found[key][0] * difficulty[offset]
             std_scale[position] = found[key][1] * difficulty[offset]
     return half_width, std_scale
+
+
+#: Chance of flagging well-calibrated intervals as too narrow (one-sided; common
+#: practice, no source). Cells of one element are not independent, so the test reads
+#: more cells than it has and flags sooner than the level says: hence a strict one.
+UNDERCOVERAGE_SIGNIFICANCE = 0.01
+
+
+def undercovered_scenarios(cv_metrics, level=_REFERENCE_LEVEL, significance=UNDERCOVERAGE_SIGNIFICANCE):
+    """Scenarios whose calibrated intervals held fewer hidden values than they state, beyond chance.
+
+    Parameters
+    ----------
+    cv_metrics : DataFrame
+        ``Surrogate.cv_metrics_``: per learner, scenario and quantity, ``n`` cells and
+        ``coverage_calibrated`` (cross-conformal, out of fold).
+    level : float, default=0.9
+        The intervals' stated coverage.
+    significance : float, default=UNDERCOVERAGE_SIGNIFICANCE
+        A scenario is returned when an exact one-sided binomial test (``scipy.stats.binomtest``)
+        finds so few cells inside less likely than this under the stated level.
+
+    Returns
+    -------
+    list of dict
+        ``scenario``, ``n``, ``coverage`` and ``p_value`` of the kept learner's pooled rows
+        (quantity "all"), in the order of ``SCENARIOS``.
+    """
+    pooled = cv_metrics[(cv_metrics["quantity"] == "all") & cv_metrics["chosen"].astype(bool)]
+    found = []
+    for scenario in SCENARIOS:
+        rows = pooled[pooled["scenario"] == scenario]
+        if len(rows) == 0:
+            continue
+        n = int(rows["n"].iat[0])
+        coverage = float(rows["coverage_calibrated"].iat[0])
+        if n == 0 or math.isnan(coverage):
+            continue
+        p_value = binomtest(int(round(coverage * n)), n, level, alternative="less").pvalue
+        if p_value < significance:
+            found.append({"scenario": scenario, "n": n, "coverage": coverage, "p_value": float(p_value)})
+    return found

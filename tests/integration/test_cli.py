@@ -72,6 +72,29 @@ def test_fit_says_what_each_correction_leans_on(workspace):
         assert f"{row['quantity']} gga -> hyb: {words}" in text
 
 
+def test_fit_cautions_where_its_own_folds_find_intervals_too_narrow(workspace, monkeypatch, capsys):
+    """The caution line follows ``calibration.undercovered_scenarios`` on the fitted model's
+    own out-of-fold coverage (that test is checked against the binomial tail in
+    tests/unit/test_calibration.py); here a short fall is planted to see it said."""
+    from dopantgap import calibration
+
+    seen = []
+
+    def planted(cv_metrics, *args, **kwargs):
+        seen.append(cv_metrics)
+        return [{"scenario": "upgrade", "n": 1678, "coverage": 0.821, "p_value": 1e-20}]
+
+    monkeypatch.setattr(calibration, "undercovered_scenarios", planted)
+    out = workspace["folder"] / "model_planted"
+    assert main(["fit", str(workspace["table"]), "--out", str(out), "--seed", "1", "--learner", "gp"]) == 0
+    printed = capsys.readouterr().out
+    assert "caution: out of fold, the upgrade cells' 90% intervals held 82% of 1678 hidden values" in printed
+    assert "estimates do not replace calculation" in printed
+    # it read the fitted model's own cross-validation
+    surrogate, _manifest = load_model(out)
+    pd.testing.assert_frame_equal(seen[0].reset_index(drop=True), surrogate.cv_metrics_.reset_index(drop=True))
+
+
 def test_fill_outputs(workspace, capsys):
     filled_path = workspace["folder"] / "filled.csv"
     status = main(["fill", str(workspace["model"]), "--out", str(filled_path), "--elements", "ti, Zr"])

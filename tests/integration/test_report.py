@@ -462,3 +462,20 @@ def test_a_large_tables_page_shows_cautions_first_then_the_widest_intervals(tmp_
     # the cautioned cell, then the two widest predicted intervals (the computed one is exact)
     assert sorted(shown) == ["Al", "K", "Mg"]
     assert len(pd.read_csv(tmp_path / "r_filled.csv")) == 6
+
+
+def test_the_trust_lines_call_intervals_too_narrow_where_fit_cautions(demo_model_dir):
+    """The report's "how far to trust it" reads the same test as fit's caution
+    (``calibration.undercovered_scenarios``, checked against the binomial tail in
+    tests/unit/test_calibration.py): the demo model's intervals pass it; planting a
+    short fall in its upgrade coverage (50 % of 122 cells) marks that line only."""
+    from dopantgap.reporting.findings import _trust_lines
+
+    surrogate, manifest = load_model(demo_model_dir)
+    assert not any("too narrow" in line for line in _trust_lines(surrogate, manifest))
+    metrics = surrogate.cv_metrics_.copy()
+    metrics.loc[(metrics["scenario"] == "upgrade") & (metrics["quantity"] == "all"), "coverage_calibrated"] = 0.5
+    surrogate.cv_metrics_ = metrics
+    lines = _trust_lines(surrogate, manifest)
+    marked = [line for line in lines if "too narrow" in line]
+    assert len(marked) == 1 and "(upgrade," in marked[0] and "50% inside" in marked[0]

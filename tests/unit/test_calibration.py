@@ -7,7 +7,13 @@ import pandas as pd
 import pytest
 
 from dopantgap import calibration as calibration_module
-from dopantgap.calibration import DifficultyModel, ScenarioCalibration, cross_conformal_covered, fit_calibration
+from dopantgap.calibration import (
+    DifficultyModel,
+    ScenarioCalibration,
+    cross_conformal_covered,
+    fit_calibration,
+    undercovered_scenarios,
+)
 
 
 @pytest.mark.parametrize("n_calibration", [20, 39, 60])
@@ -241,3 +247,34 @@ def test_the_overshoot_does_not_take_the_distances_slope():
     without = DifficultyModel(frame.drop(columns="range_excess"), frame["z"])
     assert without.slopes_[0] > 0.3
     np.testing.assert_allclose(with_overshoot.slopes_[:3], without.slopes_[:3], rtol=1e-9, atol=1e-12)
+
+
+def test_undercovered_scenarios_follow_the_exact_binomial_tail():
+    """Outside check: the exact binomial lower tail (scipy.stats.binom.cdf, the sum
+    of C(n, k) 0.9^k 0.1^(n-k) for k up to the count inside). 24 of 30 inside has a
+    tail of 0.0732, not below 0.01: not flagged; 1,378 of 1,678 (82 %, as the upgrade
+    cells of a 10,000-cell invented table held) is far below: flagged; a too-wide
+    scenario (99 % of 500) never is."""
+    from scipy.stats import binom
+
+    metrics = pd.DataFrame([
+        {"learner": "gp", "chosen": True, "quantity": "all", "scenario": "new-cell", "n": 30,
+         "coverage_calibrated": 24 / 30},
+        {"learner": "gp", "chosen": True, "quantity": "all", "scenario": "upgrade", "n": 1678,
+         "coverage_calibrated": 1378 / 1678},
+        {"learner": "gp", "chosen": True, "quantity": "all", "scenario": "new-element", "n": 500,
+         "coverage_calibrated": 0.99},
+        # a learner not kept, and one quantity's own row, are not read
+        {"learner": "boost", "chosen": False, "quantity": "all", "scenario": "new-element", "n": 500,
+         "coverage_calibrated": 0.5},
+        {"learner": "gp", "chosen": True, "quantity": "E_bind", "scenario": "new-element", "n": 500,
+         "coverage_calibrated": 0.5},
+    ])
+    assert math.isclose(binom.cdf(24, 30, 0.9), 0.0732, abs_tol=5e-4)
+    found = undercovered_scenarios(metrics)
+    assert [row["scenario"] for row in found] == ["upgrade"]
+    assert found[0]["n"] == 1678 and math.isclose(found[0]["coverage"], 1378 / 1678)
+    assert math.isclose(found[0]["p_value"], binom.cdf(1378, 1678, 0.9), rel_tol=1e-6)
+    # the same 24 of 30 is flagged at a looser significance
+    assert [row["scenario"] for row in undercovered_scenarios(metrics, significance=0.1)] == ["new-cell", "upgrade"]
+

@@ -133,6 +133,7 @@ def _learner_bar(arguments):
 
 
 def _command_fit(arguments, say):
+    from dopantgap.calibration import undercovered_scenarios
     from dopantgap.store import check_model_target, save_model
     from dopantgap.surrogate.crossval import first_look_text
     from dopantgap.surrogate.stages import correction_forms_text
@@ -166,6 +167,12 @@ def _command_fit(arguments, say):
             "of the ways tried, the closest on hosts left out in turn")
     pooled = metrics[metrics["quantity"] == "all"]
     say(validation_text(metrics).rstrip("\n"))
+    for row in undercovered_scenarios(surrogate.cv_metrics_):
+        say(
+            f"caution: out of fold, the {row['scenario']} cells' 90% intervals held {row['coverage']:.0%} of "
+            f"{row['n']} hidden values, fewer than chance explains: on this table they are too narrow, so "
+            f"compute a few such cells before trusting them; estimates do not replace calculation."
+        )
     for scenario in sorted(surrogate.calibration_.borrowed_):
         if scenario in set(pooled["scenario"]):
             say(

@@ -3,7 +3,7 @@ candidates and the next picks."""
 
 import pandas as pd
 
-from dopantgap.calibration import SCENARIOS
+from dopantgap.calibration import SCENARIOS, undercovered_scenarios
 from dopantgap.reporting.page import escaped
 
 __all__ = ["findings_html"]
@@ -26,6 +26,7 @@ def _trust_lines(surrogate, manifest):
     metrics = surrogate.cv_metrics_
     pooled = metrics[(metrics["quantity"] == "all") & metrics["chosen"].astype(bool)]
     stored = pd.DataFrame((manifest or {}).get("validation") or [])
+    narrow = {row["scenario"] for row in undercovered_scenarios(metrics)}
     lines = []
     for scenario in SCENARIOS:
         row = pooled[pooled["scenario"] == scenario]
@@ -37,6 +38,8 @@ def _trust_lines(surrogate, manifest):
             f"typical error {float(row['mae']):.2f} eV; {float(row['coverage_calibrated']):.0%} inside the "
             f"90 % interval, out of fold"
         )
+        if scenario in narrow:
+            text += " (<strong>too narrow</strong>: fewer than chance explains; compute a few such cells first)"
         if len(stored) and {"scenario", "model", "quantity", "mae"} <= set(stored.columns):
             rules = stored[(stored["scenario"] == scenario) & (stored["quantity"] == "all")
                            & stored["model"].astype(str).str.contains("baseline")]
