@@ -36,6 +36,10 @@ DRAWS = 20000
 def read_replay(folder, goal="table"):
     """One replay folder -> (settings, per-round ratios, share, random excesses after the last round)."""
     folder = Path(folder)
+    missing = [name for name in ("settings.json", "curves.csv", "summary.csv") if not (folder / name).is_file()]
+    if missing:
+        raise SystemExit(f"{folder}: no {', '.join(missing)}; give folders written by "
+                         f"bench_replay.py --out DIR or dopantgap replay --out DIR.")
     settings = json.loads((folder / "settings.json").read_text())
     curves = pd.read_csv(folder / "curves.csv")
     summary = pd.read_csv(folder / "summary.csv")
