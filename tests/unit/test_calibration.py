@@ -142,6 +142,24 @@ def test_difficulty_slopes_keep_their_physical_signs():
     assert few.scale(pd.DataFrame({"domain_ratio": [np.inf], "element_cells": [0]}))[0] == 10.0
 
 
+def test_the_difficulty_model_only_widens():
+    """Within the domain no cell gets a factor below 1, whatever the slopes: the model
+    widens the cells it finds harder than the typical one and leaves the rest to the
+    conformal quantile (a design rule measured on invented tables, benchmarks/README.md,
+    "Issue 17, fifth steps"; no published source). Slopes learned from a few elements the
+    folds miss badly used to narrow the elements near the computed ones to a third."""
+    rng = np.random.default_rng(12)
+    frame = _heteroscedastic(rng, 600)
+    model = DifficultyModel(frame, frame["z"])
+    assert model.slopes_[0] > 0.3 and model.slopes_[1] > 0.0  # something was learned
+    inside = frame[frame["domain_ratio"] <= 1.0]
+    factors = model.scale(inside)
+    assert factors.min() == 1.0  # the typical and easier cells keep the common width
+    assert (factors > 1.0).any()
+    easiest = pd.DataFrame({"domain_ratio": [0.0], "element_cells": [50.0]})
+    assert model.scale(easiest)[0] == 1.0
+
+
 def test_fit_calibration_widens_far_cells_and_cross_conformal_uses_other_folds_only(monkeypatch):
     """fit_calibration gives a far cell a wider interval than a near one; the cross-conformal
     check fits every calibration (difficulty models included) without the fold it judges."""
@@ -180,8 +198,8 @@ def test_a_model_surest_where_it_is_wrong_gets_its_narrow_cells_widened():
     """The normalised score's sensitivity to the model's own spread (Papadopoulos, Vovk &
     Gammerman 2011, JAIR 40, normalised nonconformity |r| / (sigma + beta)) is learned from
     the residuals: where the error does not shrink with sigma the slope d nears 1 and the
-    narrowest cells are covered as well as the widest (cross-conformal, other folds only);
-    where sigma is honest d stays near 0 and nothing changes."""
+    narrowest cells are covered far better than by one width for all (cross-conformal,
+    other folds only); where sigma is honest d stays near 0 and nothing changes."""
     rng = np.random.default_rng(8)
     frame = _overconfident(rng, 900).assign(scenario="upgrade", quantity="E", fold=np.repeat(np.arange(6), 150))
     model = DifficultyModel(frame, frame["z"])
@@ -189,8 +207,12 @@ def test_a_model_surest_where_it_is_wrong_gets_its_narrow_cells_widened():
     adaptive = cross_conformal_covered(frame, "z", 0.9)
     fixed = cross_conformal_covered(frame, "z", 0.9, adaptive=False)
     narrow = frame["raw_std"] < frame["raw_std"].quantile(1 / 3)
-    assert adaptive[narrow].mean() >= 0.85
+    # the model only widens (see test_the_difficulty_model_only_widens): the wide cells
+    # keep the common width and are over-covered, which costs the narrow third a few
+    # points against a model free to narrow (0.84 here; 0.87 when it could narrow)
+    assert adaptive[narrow].mean() >= 0.80
     assert fixed[narrow].mean() < 0.75  # the check can fail: one width for all misses them
+    assert adaptive[narrow].mean() >= fixed[narrow].mean() + 0.1
     honest = _overconfident(np.random.default_rng(9), 900, honest=True)
     assert DifficultyModel(honest, honest["z"]).slopes_[2] < 0.15
 
@@ -200,7 +222,7 @@ def test_an_overshoot_beyond_the_computed_range_widens_cells_the_distance_calls_
     elements computed at the level (``domain.LevelDomain.range_excess``) while the domain
     ratio stays the same: the overshoot's slope is learned (positive, its physical sign),
     the far-overshooting cells are widened, and locally weighted conformal widths (Lei et
-    al. 2018, JASA 113, section 5.2) keep them covered where one width for all does not."""
+    al. 2018, JASA 113, section 5.2) cover them far better than one width for all."""
     rng = np.random.default_rng(31)
     n_rows = 900
     excess = np.where(rng.random(n_rows) < 0.5, 0.0, rng.uniform(0.0, 2.0, n_rows))
@@ -220,8 +242,11 @@ def test_an_overshoot_beyond_the_computed_range_widens_cells_the_distance_calls_
     adaptive = cross_conformal_covered(frame, "z", 0.9)
     fixed = cross_conformal_covered(frame, "z", 0.9, adaptive=False)
     hard = excess > 1.4
-    assert adaptive[hard].mean() >= 0.85
-    assert fixed[hard].mean() < 0.8  # the check can fail: one width for all misses them
+    # widening only, the cells without overshoot keep the common width and are
+    # over-covered; the hard ones gain most of what a model free to narrow gives them
+    assert adaptive[hard].mean() >= 0.78
+    assert fixed[hard].mean() < 0.7  # the check can fail: one width for all misses them
+    assert adaptive[hard].mean() >= fixed[hard].mean() + 0.1
 
 
 def test_a_difficulty_model_saved_before_the_overshoot_still_scales():
