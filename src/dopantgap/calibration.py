@@ -57,13 +57,16 @@ _STD_FLOOR = 1e-6
 # A difficulty model needs this many residuals of its scenario (common practice, no
 # source: two slopes and an intercept want tens of points), and its scale stays within
 # these bounds, so that a few odd residuals cannot make an interval explode (the upper
-# bound: common practice, no source). The lower bound is 1: the model only widens. Its
-# slopes are learned from the few elements the folds miss worst, and where those
-# elements are unlike the rest the slopes narrowed the others below the scenario's
-# typical width (an invented 10,000-cell table's upgrades: 0.821 covered with a floor of
-# 0.33, 0.862 with a floor of 1; benchmarks/README.md, "Issue 17, fifth steps").
+# bound: common practice, no source). The lower bound keeps the model from narrowing a
+# cell much below the scenario's typical width: its slopes are learned from the few
+# elements the folds miss worst, and where those are unlike the rest the slopes narrow
+# the others too far. Chosen on invented tables (benchmarks/README.md, "Issue 17, sixth
+# steps"): hybrid upgrades of the 10,000-cell scale table covered 0.821 / 0.834 / 0.892 /
+# 0.949 with a floor of 0.33 / 0.5 / 0.7 / 1, of the 3,000-cell one 0.873 / 0.938 / 0.975
+# / 0.981, of a rough one-host table (tests/integration/test_validate.py) 0.854 / 0.846
+# / 0.854 / 0.815: 0.7 is the floor that leaves none of them below 0.85.
 _MIN_DIFFICULTY_RESIDUALS = 40
-_SCALE_BOUNDS = (1.0, 4.0)
+_SCALE_BOUNDS = (0.7, 4.0)
 # Direction of each feature's effect on the residuals' scale (ratio up, cells down, the
 # model's own std down, overshoot up)
 _SIGNS = np.array([1.0, -1.0, -1.0, 1.0])
@@ -90,25 +93,24 @@ class DifficultyModel:
     the model's own spread (the role of the constant beta in the normalised score
     |r| / (sigma + beta): Papadopoulos, Vovk & Gammerman 2011, "Regression conformal
     prediction with nearest neighbours", JAIR 40, eq. 13): d = 0 trusts the model's std
-    as it is, d = 1 gives no cell of the scenario less than the typical cell's width. A
-    Gaussian process fitted on a dozen cells can put a std of 0.01 eV on a cell it misses
-    by 0.2 eV; where the out-of-fold residuals show such cells, d > 0 widens them.
-    ``e`` reads the
-    element's overshoot beyond the range of the elements computed at the level along its
-    most extreme descriptor, which the distance (an average over descriptors) dilutes: a
-    4d metal when only 3d metals were computed at the level differs from them most in
-    its period, which none of them varies. It is fitted after the others so that where
+    as it is, d = 1 gives no cell of the scenario much less than the typical cell's
+    width. A Gaussian process fitted on a dozen cells can put a std of 0.01 eV on a cell
+    it misses by 0.2 eV; where the out-of-fold residuals show such cells, d > 0 widens
+    them. ``e`` reads the element's overshoot beyond the range of the elements computed
+    at the level along its most extreme descriptor, which the distance (an average over
+    descriptors) dilutes: a 4d metal when only 3d metals were computed at the level
+    differs from them most in its period, which none of them varies. It is fitted after the others so that where
     overshoot and distance grow together the distance keeps its slope (fitted jointly,
     the overshoot took the distance's slope and narrowed the cells far from the
     computed elements inside their range: an invented rough table's missing upgrade
     cells went from 85 % to 83 % covered). ``scale(features)`` is exp(b * (ratio - mean
     ratio) - c * (log cells - mean log cells) - d * (log std - mean log std) + e *
-    (overshoot - mean overshoot)), clipped to [1, 4] after the ratio and the
-    overshoot are capped at twice the largest seen in fitting: the model only widens the
-    cells it finds harder than the typical one and never narrows the others (the
-    conformal quantile then sets the common width); and for a cell beyond the
-    domain limit (ratio > 1) at least the ratio itself (at most 10). The floor is what no
-    fitted slope can give: residuals come from cells the table could hide, and an
+    (overshoot - mean overshoot)), clipped to [0.7, 4] after the ratio and the
+    overshoot are capped at twice the largest seen in fitting: the model widens the
+    cells it finds harder than the typical one and narrows the others at most to 0.7x
+    (the conformal quantile then sets the common width); and for a cell beyond the
+    domain limit (ratio > 1) at least the ratio itself (at most 10). That last floor is
+    what no fitted slope can give: residuals come from cells the table could hide, and an
     element unlike every element computed at a level leaves no such residual behind.
 
     Parameters
@@ -190,7 +192,7 @@ class DifficultyModel:
         Returns
         -------
         ndarray
-            Factors within [1, 4] (up to 10 beyond the domain limit); 1
+            Factors within [0.7, 4] (up to 10 beyond the domain limit); 1
             within the domain when nothing was learned.
         """
         design = self._design(features)
