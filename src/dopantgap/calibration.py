@@ -99,19 +99,19 @@ class DifficultyModel:
     them. ``e`` reads the element's overshoot beyond the range of the elements computed
     at the level along its most extreme descriptor, which the distance (an average over
     descriptors) dilutes: a 4d metal when only 3d metals were computed at the level
-    differs from them most in its period, which none of them varies. It is fitted after the others so that where
-    overshoot and distance grow together the distance keeps its slope (fitted jointly,
-    the overshoot took the distance's slope and narrowed the cells far from the
-    computed elements inside their range: an invented rough table's missing upgrade
-    cells went from 85 % to 83 % covered). ``scale(features)`` is exp(b * (ratio - mean
-    ratio) - c * (log cells - mean log cells) - d * (log std - mean log std) + e *
-    (overshoot - mean overshoot)), clipped to [0.7, 4] after the ratio and the
-    overshoot are capped at twice the largest seen in fitting: the model widens the
-    cells it finds harder than the typical one and narrows the others at most to 0.7x
-    (the conformal quantile then sets the common width); and for a cell beyond the
-    domain limit (ratio > 1) at least the ratio itself (at most 10). That last floor is
-    what no fitted slope can give: residuals come from cells the table could hide, and an
-    element unlike every element computed at a level leaves no such residual behind.
+    differs from them most in its period, which none of them varies. It is fitted after
+    the others so that where overshoot and distance grow together the distance keeps its
+    slope (fitted jointly, the overshoot took the distance's slope and narrowed the
+    cells far from the computed elements inside their range: an invented rough table's
+    missing upgrade cells went from 85 % to 83 % covered). ``scale(features)`` is
+    exp(b * (ratio - mean ratio) - c * (log cells - mean log cells) - d * (log std -
+    mean log std) + e * (overshoot - mean overshoot)), clipped to [0.7, 4] after the
+    ratio and the overshoot are capped at twice the largest seen in fitting: the model
+    widens the cells it finds harder than the typical one and narrows the others at
+    most to 0.7x (the conformal quantile then sets the common width); and for a cell
+    beyond the domain limit (ratio > 1) at least the ratio itself (at most 10). That last floor is
+    what no fitted slope can give: residuals come from cells the table could hide, and
+    an element unlike every element computed at a level leaves no such residual behind.
 
     Parameters
     ----------
