@@ -109,9 +109,10 @@ class DifficultyModel:
     ratio and the overshoot are capped at twice the largest seen in fitting: the model
     widens the cells it finds harder than the typical one and narrows the others at
     most to 0.7x (the conformal quantile then sets the common width); and for a cell
-    beyond the domain limit (ratio > 1) at least the ratio itself (at most 10). That last floor is
-    what no fitted slope can give: residuals come from cells the table could hide, and
-    an element unlike every element computed at a level leaves no such residual behind.
+    beyond the domain limit (ratio > 1) at least the ratio itself (at most 10). That
+    last floor is what no fitted slope can give: residuals come from cells the table
+    could hide, and an element unlike every element computed at a level leaves no such
+    residual behind.
 
     Parameters
     ----------
