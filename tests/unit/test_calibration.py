@@ -155,7 +155,6 @@ def test_the_difficulty_model_narrows_a_cell_at_most_to_its_floor():
     inside = frame[frame["domain_ratio"] <= 1.0]
     factors = model.scale(inside)
     assert factors.min() == pytest.approx(calibration_module._SCALE_BOUNDS[0])
-    assert calibration_module._SCALE_BOUNDS[0] == 0.7
     assert (factors > 1.0).any()
     easiest = pd.DataFrame({"domain_ratio": [0.0], "element_cells": [50.0]})
     assert model.scale(easiest)[0] == pytest.approx(0.7)
